@@ -1,0 +1,3 @@
+"""curvekeeper: an online calibration service for sensor fleets."""
+
+__version__ = "0.1.0"

@@ -1,0 +1,19 @@
+"""The numeric core: pure computation on numpy arrays, no I/O.
+
+Its public face is ``ChannelModel``; errors are in ``service.core.errors``.
+"""
+
+from .config import normalize_config
+from .errors import ConfigError, CoreError, FitError, InputError, StateError
+from .model import ChannelModel, LearnResult
+
+__all__ = [
+    "ChannelModel",
+    "ConfigError",
+    "CoreError",
+    "FitError",
+    "InputError",
+    "LearnResult",
+    "StateError",
+    "normalize_config",
+]

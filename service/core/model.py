@@ -1,0 +1,337 @@
+"""``ChannelModel``: one channel's calibration curve, its learner, drift watch and guards.
+
+>>> m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 1000}]})
+>>> report = m.fit_closed_form([0.0, 500.0, 1000.0], [1.0, 6.0, 11.0])
+>>> [round(c, 9) for c in report["poly_coefficients"]]
+[1.0, 0.01]
+>>> y, u = m.predict([250.0])
+>>> round(float(y[0]), 9)
+3.5
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .basis import Basis, PolyBasis, make_basis
+from .config import normalize_config
+from .drift import STATES, detector_params, detector_statistic
+from .errors import ConfigError, InputError
+from .learners import (
+    ACCEPTED, GUARD, IP_SIZE, LEARNERS, LP_ALPHA, LP_FORGET, LP_HUBER, LP_L2, LP_OFFSET,
+    LP_OUTLIER, LP_P0, LP_SIZE, LP_WARMUP, ST_OMS, ST_ON, ST_RN, ST_RVAR, ST_SCALE, ST_T,
+    learn_batch,
+)
+from .lstsq import fit_least_squares
+from .scaling import InputScaler
+from .schedules import schedule_params
+from .state import ModelState
+from .transform import OutputTransform
+from .uncertainty import standard_uncertainty
+
+Array = NDArray[np.float64]
+
+WARMUP = 30  # accepted samples before the gate and the detectors start
+RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimate
+CURVE_GRID = 201  # points over the input range for curve comparisons
+
+# settings a channel may change after creation (PATCH); the rest fix the curve's form
+MUTABLE = {"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage_factor"}
+
+
+@dataclass
+class LearnResult:
+    """Per-sample outcome of ``learn``, each (n,): prior residuals in output units
+    (NaN where the curve cannot be inverted), status (``accepted`` / ``outlier`` /
+    ``guard``), drift state and statistic after the sample; plus events."""
+
+    residuals: Array
+    status: list[str]
+    drift_state: list[str]
+    drift_statistic: Array
+    events: list[dict[str, Any]] = field(default_factory=list)
+
+    @property
+    def accepted(self) -> int:
+        return sum(1 for s in self.status if s == "accepted")
+
+
+STATUS_NAMES = {ACCEPTED: "accepted", 1: "outlier", GUARD: "guard"}
+
+
+class ChannelModel:
+    """A channel's model; build it with ``from_config`` or ``from_state``."""
+
+    def __init__(self, config: dict[str, Any], state: ModelState) -> None:
+        self.config = config
+        self.scaler = InputScaler(config["inputs"])
+        self.basis: Basis = make_basis(config["basis"], self.scaler)
+        out = config["output"]
+        self.transform = OutputTransform(out["transform"], out["offset"])
+        self.s = state
+        self._grid_phi: Array | None = None
+        self._compile_params()
+
+    # construction -------------------------------------------------------------
+    @classmethod
+    def from_config(cls, cfg: dict[str, Any]) -> ChannelModel:
+        """A fresh model (zero weights) from a channel body; raises ``ConfigError``."""
+        config = normalize_config(cfg)
+        size = make_basis(config["basis"], InputScaler(config["inputs"])).size
+        state = ModelState.fresh(size)
+        if config["learner"]["kind"] == "rls":
+            state.cov = np.eye(size) * config["learner"]["initial_covariance"]
+        return cls(config, state)
+
+    @classmethod
+    def from_state(cls, state: dict[str, Any]) -> ChannelModel:
+        """Restore a model from ``to_state()``; raises ``StateError`` on a damaged state."""
+        ms = ModelState.from_dict(state)
+        return cls(normalize_config(state.get("config")), ms)
+
+    def to_state(self) -> dict[str, Any]:
+        """The whole model as JSON-safe plain types (config included)."""
+        return self.s.to_dict(self.config)
+
+    def with_settings(self, changes: dict[str, Any]) -> ChannelModel:
+        """A copy with changed learner / drift / guard settings and the same learned state.
+
+        Raises ``ConfigError`` with field ``immutable`` for inputs, output or basis.
+        """
+        fixed = sorted(set(changes) - MUTABLE)
+        if fixed:
+            raise ConfigError(
+                f"{', '.join(fixed)} cannot change after creation; create a new channel",
+                field="immutable",
+            )
+        merged = {**self.config, **changes}
+        config = normalize_config(merged)
+        state = ModelState.from_dict(self.to_state())
+        if config["drift"] != self.config["drift"]:
+            state.reset_detector()
+        if config["learner"]["kind"] == "rls" and state.cov is None:
+            state.cov = np.eye(self.basis.size) * config["learner"]["initial_covariance"]
+        return ChannelModel(config, state)
+
+    def _compile_params(self) -> None:
+        cfg = self.config
+        learner = cfg["learner"]
+        self.ip = np.zeros(IP_SIZE, dtype=np.int64)
+        self.lp = np.zeros(LP_SIZE)
+        self.ip[0] = LEARNERS[learner["kind"]]
+        if learner["kind"] == "sgd":
+            self.ip[1], self.sp = schedule_params(learner["schedule"])
+            self.lp[LP_L2] = learner["l2"]
+            self.lp[LP_HUBER] = learner["huber"] or 0.0
+        else:
+            self.ip[1], self.sp = schedule_params({"kind": "constant"})
+            self.lp[LP_FORGET] = learner["forgetting"]
+            self.lp[LP_P0] = learner["initial_covariance"]
+        self.ip[2] = self.transform.code
+        self.ip[3], self.dp = detector_params(cfg["drift"])
+        self.lp[LP_OUTLIER] = cfg["outlier_sd"] or 0.0
+        self.lp[LP_OFFSET] = self.transform.offset
+        self.lp[LP_WARMUP] = WARMUP
+        self.lp[LP_ALPHA] = 1.0 / RESIDUAL_WINDOW
+
+    # inputs -------------------------------------------------------------------
+    def _samples(self, X: Any, y: Any) -> tuple[Array, Array]:
+        Xa = self.scaler.check(X)
+        try:
+            ya = np.asarray(y, dtype=np.float64).reshape(-1)
+        except (TypeError, ValueError) as exc:
+            raise InputError("reference values must be numbers", field="y") from exc
+        if ya.shape[0] != Xa.shape[0]:
+            raise InputError(f"{Xa.shape[0]} inputs but {ya.shape[0]} reference values", field="y")
+        if not np.isfinite(ya).all():
+            i = int(np.argmax(~np.isfinite(ya)))
+            raise InputError(f"reference value at position {i} is not a finite number", field="y",
+                             details={"index": i})
+        return Xa, ya
+
+    # learning -----------------------------------------------------------------
+    def learn(self, X: Any, y: Any) -> LearnResult:
+        """One step per row of X (n, d) raw inputs with references y (n,), in order.
+
+        Raises ``InputError`` (and changes nothing) when any sample is invalid.
+        """
+        Xa, ya = self._samples(X, y)
+        n = Xa.shape[0]
+        Phi = self.basis.expand(Xa)
+        z = self.transform.forward(ya)
+        s = self.s
+        before_state = int(s.ds[4])
+        before_tol = s.tolerance_state
+        cov = s.cov if s.cov is not None else np.zeros((self.basis.size, self.basis.size))
+        out_r = np.empty(n)
+        out_status = np.empty(n, dtype=np.int8)
+        out_state = np.empty(n, dtype=np.int8)
+        out_stat = np.empty(n)
+        if n:
+            learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp, self.dp,
+                        s.st, s.ds, out_r, out_status, out_state, out_stat)
+            if s.cov is not None:
+                s.cov = cov
+        s.n_samples += n
+        events: list[dict[str, Any]] = []
+        prev = before_state
+        for i in np.flatnonzero(np.diff(np.concatenate([[before_state], out_state]))):
+            cur = int(out_state[i])
+            events.append({"kind": f"drift_{STATES[cur]}", "index": int(i), "from": STATES[prev],
+                           "statistic": float(out_stat[i])})
+            prev = cur
+        for i in np.flatnonzero(out_status == GUARD):
+            events.append({"kind": "guard", "index": int(i),
+                           "message": "unstable step not applied; step size halved"
+                           if self.config["learner"]["kind"] == "sgd"
+                           else "unstable step not applied; covariance restarted"})
+        if n:
+            self._check_tolerance()
+            if s.tolerance_state != before_tol and s.tolerance_state is not None:
+                events.append({"kind": s.tolerance_state, "index": n - 1,
+                               "max_curve_change": s.max_curve_change})
+        return LearnResult(out_r, [STATUS_NAMES[int(c)] for c in out_status],
+                           [STATES[int(c)] for c in out_state], out_stat, events)
+
+    def fit_closed_form(self, X: Any, y: Any) -> dict[str, Any]:
+        """Least-squares calibration on points X (n, d), y (n,); replaces the weights,
+        resets the learner's clock and the drift detector, and makes this curve the
+        reference for the tolerance check. Returns the fit report."""
+        Xa, ya = self._samples(X, y)
+        Phi = self.basis.expand(Xa)
+        z = self.transform.forward(ya)
+        fit = fit_least_squares(Phi, z, has_intercept=self.basis.has_intercept)
+        old = self.curve_values(self.s.w)
+        s = self.s
+        s.w = fit.weights.copy()
+        s.w_ref = fit.weights.copy()
+        s.cov = fit.cov_unscaled.copy()
+        yhat, _ = self.transform.inverse(Phi @ fit.weights)
+        out_resid = ya - yhat
+        s.st[ST_T] = 0.0
+        s.st[ST_SCALE] = 1.0
+        s.st[ST_RN] = float(fit.dof)
+        s.st[ST_RVAR] = fit.residual_sd**2 if fit.dof > 0 else 0.0
+        s.st[ST_ON] = float(fit.n)
+        s.st[ST_OMS] = float(np.mean(out_resid**2))
+        s.reset_detector()
+        s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
+        s.max_curve_change = 0.0
+        change = float(np.max(np.abs(self.curve_values(s.w) - old)))
+        report: dict[str, Any] = {
+            "weights": fit.weights.tolist(),
+            "weight_sd": _nan_to_none(fit.weight_sd),
+            "residual_sd": _float_or_none(fit.residual_sd),
+            "rmse_output": float(np.sqrt(np.mean(out_resid**2))),
+            "r_squared": _float_or_none(fit.r_squared),
+            "n": fit.n,
+            "max_curve_change": change if np.isfinite(change) else None,
+        }
+        report.update(self.raw_coefficients(fit.residual_sd))
+        return report
+
+    def raw_coefficients(self, residual_sd: float | None = None) -> dict[str, Any]:
+        """Coefficients in raw units where the basis has such a form (with s.d. when a
+        covariance and residual s.d. are known). ``poly_coefficients`` for one-input poly."""
+        T = self.basis.raw_map()
+        if T is None:
+            return {}
+        c = T @ self.s.w
+        sd = residual_sd if residual_sd is not None else self.residual_sd()
+        if self.s.cov is not None and sd is not None and np.isfinite(sd):
+            csd = _nan_to_none(sd * np.sqrt(np.maximum(np.diag(T @ self.s.cov @ T.T), 0.0)))
+        else:
+            csd = None
+        out: dict[str, Any] = {"raw_terms": self.basis.raw_terms(), "raw_coefficients": c.tolist(),
+                               "raw_coefficient_sd": csd}
+        if isinstance(self.basis, PolyBasis) and self.scaler.d == 1:
+            out["poly_coefficients"] = c.tolist()
+            out["poly_coefficient_sd"] = csd
+        return out
+
+    # prediction ---------------------------------------------------------------
+    def residual_sd(self) -> float | None:
+        """Current residual s.d. in the fitted space, or None before the first residual."""
+        if self.s.st[ST_RN] < 1:
+            return None
+        return float(np.sqrt(self.s.st[ST_RVAR]))
+
+    def predict(self, X: Any) -> tuple[Array, Array]:
+        """Calibrated values y (n,) and standard uncertainties u (n,) in output units for
+        raw inputs X (n, d); u is NaN before the channel has a residual estimate."""
+        Xa = self.scaler.check(X)
+        Phi = self.basis.expand(Xa)
+        sd = self.residual_sd()
+        uz = standard_uncertainty(Phi, np.nan if sd is None else sd * sd, self.s.cov)
+        y, slope = self.transform.inverse(Phi @ self.s.w)
+        return y, uz * slope
+
+    def out_of_range(self, X: Any) -> NDArray[np.bool_]:
+        return self.scaler.out_of_range(self.scaler.check(X))
+
+    def curve_values(self, weights: Array) -> Array:
+        """The curve with the given weights on the standard grid, output units."""
+        if self._grid_phi is None:
+            self._grid_phi = self.basis.expand(self.scaler.grid(CURVE_GRID))
+        y, _ = self.transform.inverse(self._grid_phi @ weights)
+        return y
+
+    def max_curve_difference(self, weights: Array) -> float:
+        """Largest |f_now(x) - f_other(x)| over the input range, output units."""
+        return float(np.max(np.abs(self.curve_values(self.s.w) - self.curve_values(weights))))
+
+    def set_reference(self) -> None:
+        """Accept the current curve as the reference for the tolerance check and l2 pull."""
+        self.s.w_ref = self.s.w.copy()
+        self.s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
+        self.s.max_curve_change = 0.0
+
+    def reset_drift(self) -> None:
+        self.s.reset_detector()
+
+    def _check_tolerance(self) -> None:
+        tol = self.config["drift"]["tolerance"]
+        s = self.s
+        if tol is None or s.w_ref is None:
+            s.tolerance_state = None
+            return
+        change = self.max_curve_difference(s.w_ref)
+        s.max_curve_change = change if np.isfinite(change) else None
+        s.tolerance_state = "ok" if np.isfinite(change) and change <= tol else "out_of_tolerance"
+
+    # summary ------------------------------------------------------------------
+    def summary(self) -> dict[str, Any]:
+        """Counts, rmse (output units) and drift state for ``GET /v1/channels/{id}``."""
+        s = self.s
+        kind = int(self.ip[3])
+        stat = float(detector_statistic(kind, self.dp, s.ds))
+        return {
+            "n_samples": s.n_samples,
+            "n_accepted": int(s.st[6]),
+            "n_rejected": int(s.st[7] + s.st[8]),
+            "rmse": float(np.sqrt(s.st[ST_OMS])) if s.st[ST_ON] > 0 else None,
+            "residual_sd": self.residual_sd(),
+            "drift": {
+                "state": STATES[int(s.ds[4])],
+                "statistic": stat,
+                "warning": self.config["drift"]["warning"],
+                "alarm": self.config["drift"]["alarm"],
+                "tolerance_state": s.tolerance_state,
+                "max_curve_change": s.max_curve_change,
+            },
+            "warmed_up": bool(s.st[ST_RN] >= WARMUP),
+        }
+
+
+def _float_or_none(v: float) -> float | None:
+    return float(v) if np.isfinite(v) else None
+
+
+def _nan_to_none(a: Array) -> list[float | None] | None:
+    if not np.isfinite(a).all():
+        return None
+    return [float(v) for v in a]
