@@ -1,0 +1,315 @@
+"""ChannelModel against published sensor equations and against least squares.
+
+Sources: IEC 60751 (Callendar-Van Dusen constants of Pt100 thermometers) and the
+Steinhart-Hart coefficients of a 10 kohm NTC thermistor, both as numbers in
+tests/data/standards.json (see tests/data/README.md); numpy's least squares.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from service.core import ChannelModel
+
+DATA = json.loads((Path(__file__).parents[1] / "data" / "standards.json").read_text())
+PT = DATA["iec60751_pt100"]
+SH = DATA["steinhart_hart_10k_ntc"]
+
+
+def pt100(t: np.ndarray) -> np.ndarray:
+    """IEC 60751 above 0 degC: R = R0 (1 + A t + B t^2)."""
+    return PT["R0_ohm"] * (1 + PT["A_per_degC"] * t + PT["B_per_degC2"] * t * t)
+
+
+def channel(**over: Any) -> dict[str, Any]:
+    cfg: dict[str, Any] = {"inputs": [{"name": "raw", "min": -5.0, "max": 20.0}],
+                           "basis": {"kind": "poly", "degree": 2}, "outlier_sd": None}
+    cfg.update(over)
+    return cfg
+
+
+def quadratic_stream(seed: int, n: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(-5, 20, n)
+    return x, 1 + 0.3 * x - 0.01 * x**2 + rng.normal(0, 0.05, n)
+
+
+# --- IEC 60751 ---------------------------------------------------------------------
+
+def test_pt100_quadratic_fit_recovers_iec60751_constants() -> None:
+    # source: IEC 60751, A = 3.9083e-3, B = -5.775e-7, R0 = 100 ohm
+    t = np.linspace(PT["t_min_degC"], PT["t_max_degC"], 86)
+    m = ChannelModel.from_config({
+        "inputs": [{"name": "t", "unit": "degC", "min": 0, "max": 850}],
+        "output": {"name": "resistance", "unit": "ohm"},
+        "basis": {"kind": "poly", "degree": 2},
+    })
+    c = m.fit_closed_form(t, pt100(t))["poly_coefficients"]
+    R0 = PT["R0_ohm"]
+    assert c[0] == pytest.approx(R0, rel=1e-9)
+    assert c[1] / R0 == pytest.approx(PT["A_per_degC"], rel=1e-6)
+    assert c[2] / R0 == pytest.approx(PT["B_per_degC2"], rel=1e-6)
+    pts = np.array(PT["check_points"])
+    y, _ = m.predict(pts[:, 0])
+    np.testing.assert_allclose(y, pts[:, 1], atol=1e-9)
+
+
+def test_pt100_inverse_curve_within_0p01_degC() -> None:
+    # temperature from resistance: a degree-5 Chebyshev curve over the IEC 60751 range
+    t = np.linspace(0, 850, 86)
+    m = ChannelModel.from_config({
+        "inputs": [{"name": "r", "unit": "ohm", "min": 100.0, "max": 390.481125}],
+        "output": {"name": "temperature", "unit": "degC"},
+        "basis": {"kind": "poly", "degree": 5},
+    })
+    m.fit_closed_form(pt100(t), t)
+    t_check = np.linspace(0, 850, 1701)
+    y, _ = m.predict(pt100(t_check))
+    assert np.max(np.abs(y - t_check)) < 0.01
+    pts = np.array(PT["check_points"])
+    y, _ = m.predict(pts[:, 1])
+    assert np.max(np.abs(y - pts[:, 0])) < 0.01
+
+
+# --- Steinhart-Hart ------------------------------------------------------------------
+
+def thermistor_channel() -> ChannelModel:
+    return ChannelModel.from_config({
+        "inputs": [{"name": "raw", "unit": "ohm", "min": 300, "max": 40000}],
+        "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
+        "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
+    })
+
+
+def test_steinhart_hart_coefficients_recovered_exactly() -> None:
+    # source: Steinhart-Hart set quoted for 10 kohm NTC thermistors (standards.json)
+    R = np.geomspace(300, 40000, 60)
+    L = np.log(R)
+    t = 1.0 / (SH["A"] + SH["B"] * L + SH["C"] * L**3) - 273.15
+    m = thermistor_channel()
+    report = m.fit_closed_form(R, t)
+    assert report["raw_terms"] == [0, 1, 3]
+    np.testing.assert_allclose(report["raw_coefficients"], [SH["A"], SH["B"], SH["C"]], rtol=1e-9)
+    pts = np.array(SH["check_points_ohm_degC"])
+    y, u = m.predict(pts[:, 0])
+    # check points are rounded to 0.1 ohm or better: 0.002 degC covers that rounding
+    np.testing.assert_allclose(y, pts[:, 1], atol=2e-3)
+    assert np.all(u < 1e-6)
+
+
+# --- learners against the closed form -----------------------------------------------
+
+def test_rls_without_forgetting_equals_closed_form() -> None:
+    x, y = quadratic_stream(3)
+    exact = ChannelModel.from_config(channel())
+    exact.fit_closed_form(x, y)
+    rls = ChannelModel.from_config(channel(learner={"kind": "rls", "forgetting": 1.0,
+                                                    "initial_covariance": 1e8}))
+    rls.learn(x, y)
+    span = np.ptp(exact.curve_values(exact.s.w))
+    assert rls.max_curve_difference(exact.s.w) < 1e-6 * span
+    # and numpy's least squares in raw units agrees with both
+    ref = np.polynomial.polynomial.polyfit(x, y, 2)
+    np.testing.assert_allclose(exact.raw_coefficients()["poly_coefficients"], ref, rtol=1e-9)
+
+
+@pytest.mark.parametrize("schedule", [
+    {"kind": "normalized", "mu": 0.1},
+    {"kind": "inverse_time", "eta0": 0.5, "tau": 100, "power": 0.6},
+    {"kind": "step", "eta0": 0.3, "gamma": 0.5, "every": 2000},
+])
+def test_sgd_converges_to_closed_form_optimum(schedule: dict[str, Any]) -> None:
+    x, y = quadratic_stream(4)
+    exact = ChannelModel.from_config(channel())
+    exact.fit_closed_form(x, y)
+    span = np.ptp(exact.curve_values(exact.s.w))
+    m = ChannelModel.from_config(channel(learner={"kind": "sgd", "schedule": schedule}))
+    rng = np.random.default_rng(5)
+    for _ in range(10):
+        idx = rng.permutation(x.size)
+        m.learn(x[idx], y[idx])
+    assert m.max_curve_difference(exact.s.w) < 0.01 * span
+
+
+@pytest.mark.parametrize("scale", [1e-3, 1e-1, 1.0, 1e3, 1e6])
+def test_normalized_sgd_is_stable_whatever_the_input_units(scale: float) -> None:
+    x, y = quadratic_stream(6)
+    exact = ChannelModel.from_config(channel())
+    exact.fit_closed_form(x, y)
+    span = np.ptp(exact.curve_values(exact.s.w))
+    m = ChannelModel.from_config(channel(
+        inputs=[{"name": "raw", "min": -5.0 * scale, "max": 20.0 * scale}],
+        learner={"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.1}}))
+    rng = np.random.default_rng(7)
+    for _ in range(10):
+        idx = rng.permutation(x.size)
+        result = m.learn(x[idx] * scale, y[idx])
+        assert all(s == "accepted" for s in result.status)
+    assert m.max_curve_difference(exact.s.w) < 0.01 * span
+
+
+def test_sgd_step_matches_plain_lms_recursion() -> None:
+    # an independent plain-numpy LMS loop on the same design matrix
+    x, y = quadratic_stream(8, 300)
+    m = ChannelModel.from_config(channel(learner={"kind": "sgd",
+                                                  "schedule": {"kind": "constant", "eta0": 0.05}}))
+    Phi = m.basis.expand(x.reshape(-1, 1))
+    w = np.zeros(3)
+    for phi, target in zip(Phi, y, strict=True):
+        w = w + 0.05 * (target - w @ phi) * phi
+    m.learn(x, y)
+    np.testing.assert_allclose(m.s.w, w, rtol=1e-12)
+
+
+def test_rls_matches_textbook_recursion_with_forgetting() -> None:
+    x, y = quadratic_stream(9, 300)
+    lam, p0 = 0.98, 100.0
+    m = ChannelModel.from_config(channel(learner={"kind": "rls", "forgetting": lam,
+                                                  "initial_covariance": p0}))
+    Phi = m.basis.expand(x.reshape(-1, 1))
+    w, P = np.zeros(3), np.eye(3) * p0
+    for phi, target in zip(Phi, y, strict=True):
+        k = P @ phi / (lam + phi @ P @ phi)
+        w = w + k * (target - w @ phi)
+        P = (P - np.outer(k, phi @ P)) / lam
+    m.learn(x, y)
+    np.testing.assert_allclose(m.s.w, w, rtol=1e-9)
+    np.testing.assert_allclose(m.s.cov, P, rtol=1e-7, atol=1e-12)
+
+
+# --- uncertainty ------------------------------------------------------------------------
+
+def test_prediction_uncertainty_after_fit_is_the_regression_prediction_interval_term() -> None:
+    # textbook: u^2 = s^2 (1 + x0' (X'X)^-1 x0), computed here in raw units with numpy
+    rng = np.random.default_rng(10)
+    x = rng.uniform(0, 100, 40)
+    y = 2 + 0.5 * x + rng.normal(0, 0.3, 40)
+    m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 100}]})
+    rep = m.fit_closed_form(x, y)
+    X = np.column_stack([np.ones_like(x), x])
+    beta, *_ = np.linalg.lstsq(X, y, rcond=None)
+    s2 = np.sum((y - X @ beta) ** 2) / (40 - 2)
+    x0 = np.array([0.0, 37.0, 100.0, 150.0])
+    X0 = np.column_stack([np.ones_like(x0), x0])
+    expected = np.sqrt(s2 * (1 + np.einsum("ij,jk,ik->i", X0, np.linalg.pinv(X.T @ X), X0)))
+    _, u = m.predict(x0)
+    np.testing.assert_allclose(u, expected, rtol=1e-9)
+    assert rep["residual_sd"] == pytest.approx(np.sqrt(s2), rel=1e-12)
+    assert m.out_of_range(x0).tolist() == [False, False, False, True]
+
+
+def test_transformed_output_uncertainty_is_first_order_propagation() -> None:
+    m = thermistor_channel()
+    rng = np.random.default_rng(11)
+    R = np.geomspace(300, 40000, 80)
+    L = np.log(R)
+    t = 1.0 / (SH["A"] + SH["B"] * L + SH["C"] * L**3) - 273.15 + rng.normal(0, 0.01, R.size)
+    m.fit_closed_form(R, t)
+    y, u = m.predict([5000.0])
+    Phi = m.basis.expand(np.array([[5000.0]]))
+    z = float((Phi @ m.s.w)[0])
+    s = m.residual_sd()
+    assert s is not None
+    uz = s * np.sqrt(1 + Phi[0] @ m.s.cov @ Phi[0])
+    # y = 1/z - 273.15, |dy/dz| = 1/z^2
+    assert u[0] == pytest.approx(uz / z**2, rel=1e-9)
+    assert 0.001 < u[0] < 0.05
+
+
+# --- guards ---------------------------------------------------------------------------
+
+def test_outlier_gate_opens_after_warmup_and_rejects_without_learning() -> None:
+    x, y = quadratic_stream(12, 200)
+    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    early = m.learn([1.0], [1000.0])  # before the warm-up: learned
+    assert early.status == ["accepted"]
+    m2 = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m2.learn(x, y)
+    w = m2.s.w.copy()
+    res = m2.learn([1.0], [1000.0])
+    assert res.status == ["outlier"]
+    assert np.array_equal(m2.s.w, w)
+    assert m2.summary()["n_rejected"] == 1
+    assert m2.summary()["n_samples"] == 201
+
+
+def test_lasting_step_is_flagged_even_though_the_gate_rejects_it() -> None:
+    x, y = quadratic_stream(13, 500)
+    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m.learn(x, y)
+    x2, y2 = quadratic_stream(14, 200)
+    res = m.learn(x2, y2 + 5.0)  # about 100 residual s.d.
+    assert res.status.count("outlier") > 150
+    assert m.summary()["drift"]["state"] == "alarm"
+    assert any(e["kind"] == "drift_alarm" for e in res.events)
+
+
+def test_divergence_guard_halves_an_unstable_step() -> None:
+    x, y = quadratic_stream(15, 400)
+    m = ChannelModel.from_config(channel(learner={"kind": "sgd",
+                                                  "schedule": {"kind": "constant", "eta0": 20.0}}))
+    res = m.learn(x, y)
+    guards = [e for e in res.events if e["kind"] == "guard"]
+    assert guards and np.isfinite(m.s.w).all()
+    assert m.s.st[1] == 0.5 ** len(guards)
+    # once the step is small enough it learns: the last residuals are at the noise level
+    assert np.nanstd(res.residuals[-100:]) < 0.2
+
+
+def test_tolerance_check_against_the_last_calibration() -> None:
+    x, y = quadratic_stream(16, 500)
+    m = ChannelModel.from_config(channel(drift={"detector": "cusum", "tolerance": 0.5}))
+    m.fit_closed_form(x, y)
+    assert m.summary()["drift"]["tolerance_state"] == "ok"
+    res = m.learn(*quadratic_stream(17, 300))
+    assert m.summary()["drift"]["tolerance_state"] == "ok"
+    x3, y3 = quadratic_stream(18, 3000)
+    res = m.learn(x3, y3 + 1.0)
+    assert m.summary()["drift"]["tolerance_state"] == "out_of_tolerance"
+    assert m.summary()["drift"]["max_curve_change"] > 0.5
+    assert [e["kind"] for e in res.events if "tolerance" in e["kind"]] == ["out_of_tolerance"]
+
+
+# --- state ------------------------------------------------------------------------------
+
+def test_state_round_trip_is_bit_for_bit() -> None:
+    x, y = quadratic_stream(19, 600)
+    for learner in ({"kind": "sgd"}, {"kind": "rls", "forgetting": 0.99}):
+        a = ChannelModel.from_config(channel(learner=learner, outlier_sd=6.0))
+        a.learn(x[:300], y[:300])
+        b = ChannelModel.from_state(json.loads(json.dumps(a.to_state())))
+        assert b.to_state() == a.to_state()
+        ra = a.learn(x[300:], y[300:])
+        rb = b.learn(x[300:], y[300:])
+        assert a.s.w.tobytes() == b.s.w.tobytes()
+        assert ra.residuals.tobytes() == rb.residuals.tobytes()
+        assert a.to_state() == b.to_state()
+
+
+def test_batches_split_anywhere_give_the_same_state() -> None:
+    x, y = quadratic_stream(20, 500)
+    whole = ChannelModel.from_config(channel(outlier_sd=6.0))
+    whole.learn(x, y)
+    parts = ChannelModel.from_config(channel(outlier_sd=6.0))
+    for a, b in [(0, 1), (1, 37), (37, 38), (38, 400), (400, 500)]:
+        parts.learn(x[a:b], y[a:b])
+    assert whole.to_state() == parts.to_state()
+
+
+def test_with_settings_keeps_the_learned_curve_and_refuses_the_basis() -> None:
+    from service.core import ConfigError
+
+    x, y = quadratic_stream(21, 300)
+    m = ChannelModel.from_config(channel())
+    m.learn(x, y)
+    m2 = m.with_settings({"learner": {"kind": "rls"}, "drift": {"detector": "ewma"}})
+    assert np.array_equal(m2.s.w, m.s.w)
+    assert m2.config["learner"]["kind"] == "rls" and m2.s.cov is not None
+    with pytest.raises(ConfigError) as err:
+        m.with_settings({"basis": {"kind": "poly", "degree": 3}})
+    assert err.value.field == "immutable"
