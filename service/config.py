@@ -1,0 +1,70 @@
+"""Settings: the one place the environment is read (variables prefixed ``CURVEKEEPER_``).
+
+``Settings.from_env(environ)`` takes any mapping, so tests inject their own.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass, fields, replace
+from typing import Any
+
+PREFIX = "CURVEKEEPER_"
+
+
+def _bool(v: str) -> bool:
+    if v.lower() in ("1", "true", "yes", "on"):
+        return True
+    if v.lower() in ("0", "false", "no", "off", ""):
+        return False
+    raise ValueError(f"not a boolean: {v!r}")
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Service settings; each field's environment variable is ``CURVEKEEPER_<FIELD>``."""
+
+    #: SQLAlchemy URL of the store (SQLite file by default; PostgreSQL for several processes)
+    database_url: str = "sqlite:///curvekeeper.db"
+    #: address and port ``curvekeeper serve`` listens on
+    host: str = "127.0.0.1"
+    port: int = 8000
+    #: when set, an admin key with this secret is made sure to exist at start-up
+    admin_key: str | None = None
+    #: largest request body accepted, bytes (larger: 413)
+    max_body_bytes: int = 8 * 1024 * 1024
+    #: most samples in one request (more: 413)
+    max_batch: int = 10_000
+    #: most values in one predict request and points in one curve
+    max_predict: int = 100_000
+    max_curve_points: int = 10_001
+    #: seconds a writer waits for the store before the request answers 503
+    busy_timeout_s: float = 5.0
+    #: serve /metrics without a key (for a scraper on a private network)
+    metrics_public: bool = False
+    #: log level of the service's own loggers
+    log_level: str = "info"
+
+    @classmethod
+    def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:
+        env = os.environ if environ is None else environ
+        values: dict[str, Any] = {}
+        for f in fields(cls):
+            raw = env.get(PREFIX + f.name.upper())
+            if raw is None:
+                continue
+            kind = str(f.type)
+            if "bool" in kind:
+                values[f.name] = _bool(raw)
+            elif "int" in kind:
+                values[f.name] = int(raw)
+            elif "float" in kind:
+                values[f.name] = float(raw)
+            else:
+                values[f.name] = raw
+        values.update({k: v for k, v in overrides.items() if v is not None})
+        return cls(**values)
+
+    def with_(self, **changes: Any) -> Settings:
+        return replace(self, **changes)

@@ -1,0 +1,51 @@
+"""Engine set-up. SQLite: WAL, synchronous=FULL (an acknowledged sample survives
+power loss), a busy timeout, foreign keys on, and ``BEGIN IMMEDIATE`` for write
+transactions so two writers never interleave a read-modify-write of one channel.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.engine import make_url
+from sqlalchemy.pool import StaticPool
+
+from .tables import Base
+
+
+def is_sqlite(url: str) -> bool:
+    return make_url(url).get_backend_name() == "sqlite"
+
+
+def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
+    """An engine for ``url``; the schema is created when missing."""
+    if is_sqlite(url):
+        u = make_url(url)
+        memory = u.database in (None, "", ":memory:")
+        kwargs: dict[str, Any] = {"poolclass": StaticPool} if memory else {"pool_size": 8, "max_overflow": 16}
+        engine = create_engine(
+            url, connect_args={"check_same_thread": False, "timeout": busy_timeout_s}, **kwargs
+        )
+        _sqlite_events(engine, busy_timeout_s)
+    else:
+        engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10)
+    Base.metadata.create_all(engine)
+    return engine
+
+
+def _sqlite_events(engine: Engine, busy_timeout_s: float) -> None:
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+        dbapi_conn.isolation_level = None  # we issue BEGIN ourselves
+        cur = dbapi_conn.cursor()
+        cur.execute("PRAGMA journal_mode=WAL")
+        cur.execute("PRAGMA synchronous=FULL")
+        cur.execute(f"PRAGMA busy_timeout={int(busy_timeout_s * 1000)}")
+        cur.execute("PRAGMA foreign_keys=ON")
+        cur.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn: Any) -> None:
+        immediate = conn.get_execution_options().get("immediate", False)
+        conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")

@@ -1,0 +1,167 @@
+"""The repository: the only code that issues SQL. It never commits; the caller's
+session scope commits or rolls back the whole request at once."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import Select, func, insert, select, update
+from sqlalchemy.orm import Session
+
+from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
+
+
+class Repository:
+    def __init__(self, session: Session) -> None:
+        self.session = session
+        self.postgres = session.get_bind().dialect.name == "postgresql"
+
+    # channels ---------------------------------------------------------------------
+    def get_channel(self, channel_id: str) -> Channel | None:
+        return self.session.scalars(select(Channel).where(Channel.id == channel_id)).one_or_none()
+
+    def channel_and_state(self, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState] | None:
+        """The channel with its state row; ``lock`` takes the row lock for a write
+        (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""
+        stmt = (select(Channel, ChannelState)
+                .join(ChannelState, ChannelState.channel_pk == Channel.pk)
+                .where(Channel.id == channel_id))
+        if lock and self.postgres:
+            stmt = stmt.with_for_update(of=ChannelState)
+        row = self.session.execute(stmt).one_or_none()
+        return None if row is None else (row[0], row[1])
+
+    def create_channel(self, channel_id: str, config: dict[str, Any], model_state: dict[str, Any],
+                       summary: dict[str, Any]) -> tuple[Channel, ChannelState]:
+        ch = Channel(id=channel_id, config=config, created_at=utcnow())
+        self.session.add(ch)
+        self.session.flush()
+        st = ChannelState(channel_pk=ch.pk, model_state=model_state, version=0, n_samples=0,
+                          n_rejected=0, updated_at=utcnow(), **summary)
+        self.session.add(st)
+        self.session.flush()
+        return ch, st
+
+    def list_channels(self, *, prefix: str | None, state: str | None, after_pk: int | None,
+                      limit: int) -> list[tuple[Channel, ChannelState]]:
+        stmt = (select(Channel, ChannelState)
+                .join(ChannelState, ChannelState.channel_pk == Channel.pk)
+                .order_by(Channel.pk).limit(limit))
+        if prefix:
+            stmt = stmt.where(Channel.id.startswith(prefix, autoescape=True))
+        if state == "out_of_tolerance":
+            stmt = stmt.where(ChannelState.tolerance_state == "out_of_tolerance")
+        elif state:
+            stmt = stmt.where(ChannelState.drift_state == state)
+        if after_pk is not None:
+            stmt = stmt.where(Channel.pk > after_pk)
+        return [(r[0], r[1]) for r in self.session.execute(stmt)]
+
+    def save_state(self, st: ChannelState, **values: Any) -> None:
+        """One UPDATE of the state row."""
+        values["updated_at"] = utcnow()
+        self.session.execute(update(ChannelState).where(ChannelState.channel_pk == st.channel_pk)
+                             .values(**values))
+
+    def save_config(self, ch: Channel, config: dict[str, Any]) -> None:
+        self.session.execute(update(Channel).where(Channel.pk == ch.pk).values(config=config))
+
+    # samples ----------------------------------------------------------------------
+    def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int]) -> set[int]:
+        found: set[int] = set()
+        for i in range(0, len(seqs), 500):
+            chunk = seqs[i:i + 500]
+            found.update(self.session.scalars(
+                select(Sample.source_seq).where(Sample.channel_pk == channel_pk, Sample.source == source,
+                                                Sample.source_seq.in_(chunk))))
+        return found
+
+    def insert_samples(self, rows: list[dict[str, Any]]) -> None:
+        if rows:
+            self.session.execute(insert(Sample), rows)
+
+    def list_samples(self, channel_pk: int, *, after_seq: int | None, limit: int) -> Sequence[Sample]:
+        stmt = select(Sample).where(Sample.channel_pk == channel_pk).order_by(Sample.seq).limit(limit)
+        if after_seq is not None:
+            stmt = stmt.where(Sample.seq > after_seq)
+        return self.session.scalars(stmt).all()
+
+    def history(self, channel_pk: int, *, since: datetime | None, until: datetime | None,
+                last: int | None, limit: int) -> Sequence[Sample]:
+        """Accepted samples for a fit, oldest first; ``last`` keeps only the newest N."""
+        stmt: Select[tuple[Sample]] = select(Sample).where(Sample.channel_pk == channel_pk,
+                                                           Sample.accepted.is_(True))
+        if since is not None:
+            stmt = stmt.where(Sample.t >= since)
+        if until is not None:
+            stmt = stmt.where(Sample.t <= until)
+        if last is not None:
+            rows = list(self.session.scalars(stmt.order_by(Sample.seq.desc()).limit(last)))
+            return rows[::-1]
+        return self.session.scalars(stmt.order_by(Sample.seq).limit(limit)).all()
+
+    # snapshots ----------------------------------------------------------------------
+    def insert_snapshot(self, channel_pk: int, *, reason: str, label: str | None,
+                        model_state: dict[str, Any], version: int, n_samples: int) -> Snapshot:
+        snap = Snapshot(channel_pk=channel_pk, reason=reason, label=label, model_state=model_state,
+                        version=version, n_samples=n_samples, created_at=utcnow())
+        self.session.add(snap)
+        self.session.flush()
+        return snap
+
+    def get_snapshot(self, channel_pk: int, snapshot_pk: int) -> Snapshot | None:
+        return self.session.scalars(select(Snapshot).where(Snapshot.channel_pk == channel_pk,
+                                                           Snapshot.pk == snapshot_pk)).one_or_none()
+
+    def list_snapshots(self, channel_pk: int, *, after_pk: int | None, limit: int) -> Sequence[Snapshot]:
+        stmt = select(Snapshot).where(Snapshot.channel_pk == channel_pk).order_by(Snapshot.pk).limit(limit)
+        if after_pk is not None:
+            stmt = stmt.where(Snapshot.pk > after_pk)
+        return self.session.scalars(stmt).all()
+
+    # events ---------------------------------------------------------------------------
+    def insert_events(self, rows: Iterable[dict[str, Any]]) -> None:
+        rows = [{"at": utcnow(), **r} for r in rows]
+        if rows:
+            self.session.execute(insert(Event), rows)
+
+    def list_events(self, channel_pk: int, *, kind: str | None, after_pk: int | None,
+                    limit: int) -> Sequence[Event]:
+        stmt = select(Event).where(Event.channel_pk == channel_pk).order_by(Event.pk).limit(limit)
+        if kind:
+            stmt = stmt.where(Event.kind == kind)
+        if after_pk is not None:
+            stmt = stmt.where(Event.pk > after_pk)
+        return self.session.scalars(stmt).all()
+
+    # keys -------------------------------------------------------------------------------
+    def insert_key(self, key: ApiKey) -> None:
+        self.session.add(key)
+        self.session.flush()
+
+    def key_by_hash(self, secret_hash: str) -> ApiKey | None:
+        return self.session.scalars(select(ApiKey).where(ApiKey.secret_hash == secret_hash)).one_or_none()
+
+    def get_key(self, key_id: str) -> ApiKey | None:
+        return self.session.get(ApiKey, key_id)
+
+    def list_keys(self, *, after_id: str | None, limit: int) -> Sequence[ApiKey]:
+        stmt = select(ApiKey).order_by(ApiKey.id).limit(limit)
+        if after_id is not None:
+            stmt = stmt.where(ApiKey.id > after_id)
+        return self.session.scalars(stmt).all()
+
+    def revoke_key(self, key_id: str) -> None:
+        self.session.execute(update(ApiKey).where(ApiKey.id == key_id).values(revoked_at=utcnow()))
+
+    def count_rows(self, table: Any, channel_pk: int | None = None) -> int:
+        """Row count of a table (optionally one channel's): used by health checks and tests."""
+        stmt = select(func.count()).select_from(table)
+        if channel_pk is not None:
+            stmt = stmt.where(table.channel_pk == channel_pk)
+        return int(self.session.scalar(stmt) or 0)
+
+    def ping(self) -> None:
+        self.session.execute(select(1))

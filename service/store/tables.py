@@ -1,0 +1,147 @@
+"""Tables (SQLAlchemy 2, typed). Only ``service.store.repository`` queries them.
+
+Timestamps are timezone-aware UTC. The sample log is append-only; a channel's
+model state lives in one row of ``channel_state`` that every write locks.
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from typing import Any
+
+from sqlalchemy import (
+    JSON, BigInteger, Boolean, DateTime, Float, ForeignKey, Index, Integer, MetaData, String,
+    Text, TypeDecorator, UniqueConstraint,
+)
+from sqlalchemy.engine import Dialect
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+NAMING = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+def utcnow() -> datetime:
+    return datetime.now(UTC)
+
+
+class UTCDateTime(TypeDecorator[datetime]):
+    """Stores aware datetimes as UTC; SQLite gives them back naive, this makes them aware."""
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            raise ValueError("naive datetime")
+        return value.astimezone(UTC)
+
+    def process_result_value(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        if value is None:
+            return None
+        return value.replace(tzinfo=UTC) if value.tzinfo is None else value.astimezone(UTC)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING)
+
+
+class Channel(Base):
+    """A channel's identity and configuration (defaults filled in)."""
+
+    __tablename__ = "channel"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    id: Mapped[str] = mapped_column(String(128), unique=True)
+    config: Mapped[dict[str, Any]] = mapped_column(JSON)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class ChannelState(Base):
+    """The channel's current model state and the summary the list routes filter on."""
+
+    __tablename__ = "channel_state"
+
+    channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"), primary_key=True)
+    model_state: Mapped[dict[str, Any]] = mapped_column(JSON)
+    version: Mapped[int] = mapped_column(BigInteger, default=0)
+    n_samples: Mapped[int] = mapped_column(BigInteger, default=0)
+    n_rejected: Mapped[int] = mapped_column(BigInteger, default=0)
+    drift_state: Mapped[str] = mapped_column(String(16), default="ok")
+    tolerance_state: Mapped[str | None] = mapped_column(String(24), nullable=True)
+    rmse: Mapped[float | None] = mapped_column(Float, nullable=True)
+    last_sample_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    updated_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Sample(Base):
+    """One stored sample; ``seq`` is the channel's server sequence number (1, 2, ...)."""
+
+    __tablename__ = "sample"
+    __table_args__ = (
+        UniqueConstraint("channel_pk", "seq", name="uq_sample_channel_seq"),
+        Index("ix_sample_source", "channel_pk", "source", "source_seq", unique=True),
+    )
+
+    pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
+    channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"))
+    seq: Mapped[int] = mapped_column(BigInteger)
+    source: Mapped[str | None] = mapped_column(String(128), nullable=True)
+    source_seq: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
+    t: Mapped[datetime] = mapped_column(UTCDateTime)
+    received_at: Mapped[datetime] = mapped_column(UTCDateTime)
+    x: Mapped[list[float]] = mapped_column(JSON)
+    y: Mapped[float] = mapped_column(Float)
+    residual: Mapped[float | None] = mapped_column(Float, nullable=True)
+    accepted: Mapped[bool] = mapped_column(Boolean)
+    reason: Mapped[str | None] = mapped_column(String(16), nullable=True)
+
+
+class Snapshot(Base):
+    """A stored copy of a channel's full model state."""
+
+    __tablename__ = "snapshot"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"), index=True)
+    reason: Mapped[str] = mapped_column(String(32))
+    label: Mapped[str | None] = mapped_column(String(256), nullable=True)
+    model_state: Mapped[dict[str, Any]] = mapped_column(JSON)
+    version: Mapped[int] = mapped_column(BigInteger)
+    n_samples: Mapped[int] = mapped_column(BigInteger)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Event(Base):
+    """Drift state changes, guards, calibrations, snapshots, rollbacks, settings changes."""
+
+    __tablename__ = "event"
+
+    pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
+    channel_pk: Mapped[int | None] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"),
+                                                   nullable=True, index=True)
+    kind: Mapped[str] = mapped_column(String(32))
+    version: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
+    key_id: Mapped[str | None] = mapped_column(String(40), nullable=True)
+    at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    details: Mapped[dict[str, Any]] = mapped_column(JSON)
+
+
+class ApiKey(Base):
+    """An API key; only the SHA-256 of its secret is stored."""
+
+    __tablename__ = "api_key"
+
+    id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    secret_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    role: Mapped[str] = mapped_column(String(16))
+    prefixes: Mapped[list[str]] = mapped_column(JSON)
+    label: Mapped[str | None] = mapped_column(Text, nullable=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
