@@ -7,7 +7,7 @@ from collections.abc import Iterable, Sequence
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import Select, func, insert, select, update
+from sqlalchemy import Select, func, insert, select
 from sqlalchemy.orm import Session
 
 from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
@@ -60,13 +60,15 @@ class Repository:
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     def save_state(self, st: ChannelState, **values: Any) -> None:
-        """One UPDATE of the state row."""
+        """Set columns of the state row; flushed as one UPDATE."""
         values["updated_at"] = utcnow()
-        self.session.execute(update(ChannelState).where(ChannelState.channel_pk == st.channel_pk)
-                             .values(**values))
+        for name, value in values.items():
+            setattr(st, name, value)
+        self.session.flush()
 
     def save_config(self, ch: Channel, config: dict[str, Any]) -> None:
-        self.session.execute(update(Channel).where(Channel.pk == ch.pk).values(config=config))
+        ch.config = config
+        self.session.flush()
 
     # samples ----------------------------------------------------------------------
     def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int]) -> set[int]:
@@ -153,8 +155,9 @@ class Repository:
             stmt = stmt.where(ApiKey.id > after_id)
         return self.session.scalars(stmt).all()
 
-    def revoke_key(self, key_id: str) -> None:
-        self.session.execute(update(ApiKey).where(ApiKey.id == key_id).values(revoked_at=utcnow()))
+    def revoke_key(self, key: ApiKey) -> None:
+        key.revoked_at = utcnow()
+        self.session.flush()
 
     def count_rows(self, table: Any, channel_pk: int | None = None) -> int:
         """Row count of a table (optionally one channel's): used by health checks and tests."""

@@ -1,0 +1,127 @@
+"""Predict, curve and calibrate."""
+
+from __future__ import annotations
+
+import math
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+
+from ..core import ChannelModel, FitError, InputError
+from ..errors import InvalidRequest, PayloadTooLarge, SnapshotNotFound
+from ..store import Repository
+from .channels import load, summary_columns
+
+HISTORY_LIMIT = 1_000_000
+
+
+def _floats(a: np.ndarray) -> list[float | None]:
+    return [float(v) if math.isfinite(v) else None for v in a.tolist()]
+
+
+def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
+    ch, st = load(repo, channel_id)
+    if snapshot is None:
+        return ChannelModel.from_state(st.model_state), st.version
+    snap = repo.get_snapshot(ch.pk, snapshot)
+    if snap is None:
+        raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
+    return ChannelModel.from_state(snap.model_state), snap.version
+
+
+def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
+    d = len(model.config["inputs"])
+    try:
+        X = np.array(x, dtype=np.float64)
+    except ValueError:
+        X = np.empty((0, 0))
+    if (d == 1 and X.ndim == 2 and X.shape[1] == 1) or (d > 1 and X.ndim == 2 and X.shape[1] == d):
+        return X
+    if d == 1 and X.ndim == 1:
+        return X.reshape(-1, 1)
+    shape = "a list of numbers" if d == 1 else f"a list of [{', '.join(i['name'] for i in model.config['inputs'])}]"
+    raise InvalidRequest(f"x must be {shape}", details={"field": "x"})
+
+
+def predict(repo: Repository, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
+    model, version = _model_for(repo, channel_id, snapshot)
+    X = _inputs(model, x)
+    try:
+        y, u = model.predict(X)
+    except InputError as exc:
+        raise InvalidRequest(exc.message, details={"field": "x", **(exc.details or {})}) from exc
+    return {"y": _floats(y), "u": _floats(u), "k": model.config["coverage_factor"],
+            "out_of_range": model.out_of_range(X).tolist(), "version": version,
+            "unit": model.config["output"]["unit"]}
+
+
+def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
+    ch, st = load(repo, channel_id)
+    model = ChannelModel.from_state(st.model_state)
+    grid = model.scaler.grid(points)
+    y, u = model.predict(grid)
+    k = model.config["coverage_factor"]
+    single = grid.shape[1] == 1
+    pts = []
+    for xi, yi, ui in zip(grid.tolist(), _floats(y), _floats(u), strict=True):
+        band = None if yi is None or ui is None else k * ui
+        pts.append({"x": xi[0] if single else xi, "y": yi, "u": ui,
+                    "lower": None if band is None else yi - band,
+                    "upper": None if band is None else yi + band})
+    summary = model.summary()
+    out: dict[str, Any] = {
+        "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
+        "weights": model.s.w.tolist(), "k": k, "points": pts,
+        "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "version": st.version,
+    }
+    out.update(model.raw_coefficients())
+    return out
+
+
+def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[float], float]],
+              include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
+              label: str | None, key_id: str | None) -> dict[str, Any]:
+    ch, st = load(repo, channel_id, lock=True)
+    model = ChannelModel.from_state(st.model_state)
+    d = len(model.config["inputs"])
+    xs: list[list[float]] = []
+    ys: list[float] = []
+    for i, (x, y) in enumerate(points):
+        if len(x) != d:
+            raise InvalidRequest(f"point {i}: x needs {d} value(s), one per input", details={"index": i})
+        xs.append(x)
+        ys.append(y)
+    history: dict[str, Any] | None = None
+    if include_history:
+        rows = repo.history(ch.pk, since=since, until=until, last=last, limit=HISTORY_LIMIT + 1)
+        if len(rows) > HISTORY_LIMIT:
+            raise PayloadTooLarge(f"more than {HISTORY_LIMIT} stored samples match; narrow the window")
+        xs.extend(r.x for r in rows)
+        ys.extend(r.y for r in rows)
+        history = {"n": len(rows), "seqs": [r.seq for r in rows] if len(rows) <= 100_000 else None,
+                   "since": since.isoformat() if since else None,
+                   "until": until.isoformat() if until else None, "last": last}
+    if not xs:
+        raise InvalidRequest("no points to fit: give points, or include_history with stored samples",
+                             details={"field": "points"})
+    before_state = model.to_state()
+    try:
+        report = model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
+    except (FitError, InputError) as exc:
+        raise InvalidRequest(exc.message, details=exc.details) from exc
+    version = st.version + 1
+    before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, model_state=before_state,
+                                  version=st.version, n_samples=st.n_samples)
+    state = model.to_state()
+    after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, model_state=state,
+                                 version=version, n_samples=st.n_samples)
+    repo.save_state(st, model_state=state, version=version, **summary_columns(model))
+    repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
+                         "details": {"label": label, "points": [[x, y] for x, y in points],
+                                     "history": history, "n": report["n"],
+                                     "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
+                                     "max_curve_change": report["max_curve_change"],
+                                     "snapshot_before": before.pk, "snapshot_after": after.pk}}])
+    report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version})
+    return report

@@ -1,0 +1,211 @@
+"""Ingest: learn from samples in order, store them, snapshot and record events."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+
+from ..core import ChannelModel, InputError, LearnResult
+from ..errors import InvalidRequest
+from ..store import Repository
+from ..store.tables import Channel, ChannelState, utcnow
+from .channels import load, summary_columns
+from .paging import Page, decode_cursor, encode_cursor
+
+
+@dataclass(frozen=True)
+class SampleIn:
+    """x: raw inputs in input order; y: reference; t: measurement time; seq: the source's number."""
+
+    x: list[float]
+    y: float
+    t: datetime | None = None
+    seq: int | None = None
+
+
+@dataclass
+class ChannelOutcome:
+    accepted: int
+    duplicates: int
+    rejected: list[dict[str, Any]]  # index within the channel's part of the request, reason
+    residuals: list[float | None]
+    version: int
+    n_samples: int
+    drift: dict[str, Any]
+    alarms: int = 0
+
+
+def _learn_with_alarm_snapshot(model: ChannelModel, X: np.ndarray, y: np.ndarray
+                               ) -> tuple[ChannelModel, LearnResult, list[tuple[int, dict[str, Any]]]]:
+    """Learn a segment; when it raises a drift alarm, keep the state from just before the
+    sample that raised it (the last curve not yet pulled by the drift)."""
+    pre = model.to_state() if model.summary()["drift"]["state"] != "alarm" else None
+    res = model.learn(X, y)
+    alarm = next((e["index"] for e in res.events if e["kind"] == "drift_alarm"), None)
+    if pre is None or alarm is None:
+        return model, res, []
+    # learning is deterministic and split-invariant: redo the segment in two parts
+    again = ChannelModel.from_state(pre)
+    first = again.learn(X[:alarm], y[:alarm])
+    snap = again.to_state()
+    second = again.learn(X[alarm:], y[alarm:])
+    for e in second.events:
+        e["index"] += alarm
+    merged = LearnResult(
+        np.concatenate([first.residuals, second.residuals]),
+        first.status + second.status,
+        first.drift_state + second.drift_state,
+        np.concatenate([first.drift_statistic, second.drift_statistic]),
+        first.events + second.events,
+    )
+    return again, merged, [(alarm, snap)]
+
+
+def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Sequence[SampleIn],
+                   source: str | None, key_id: str | None) -> ChannelOutcome:
+    """Learn ``samples`` (in order) on a locked channel and write everything for it."""
+    now = utcnow()
+    keep: list[int] = []
+    duplicates = 0
+    if source is not None:
+        seqs = [s.seq for s in samples if s.seq is not None]
+        seen = repo.seen_source_seqs(ch.pk, source, seqs) if seqs else set()
+    else:
+        seen = set()
+    for i, s in enumerate(samples):
+        if source is not None and s.seq is not None:
+            if s.seq in seen:
+                duplicates += 1
+                continue
+            seen.add(s.seq)
+        keep.append(i)
+    model = ChannelModel.from_state(st.model_state)
+    d = len(model.config["inputs"])
+    for i in keep:
+        if len(samples[i].x) != d:
+            raise InvalidRequest(f"sample {i}: x needs {d} value(s), one per input, in the channel's input order",
+                                 details={"index": i, "field": "x"})
+    X = np.array([samples[i].x for i in keep], dtype=np.float64).reshape(len(keep), d)
+    y = np.array([samples[i].y for i in keep], dtype=np.float64)
+    n0, v0 = st.n_samples, st.version
+    every = model.config["snapshot_every"]
+    cuts = [k for k in range(1, len(keep) + 1) if every and (n0 + k) % every == 0]
+    bounds = sorted({0, *cuts, len(keep)})
+    results: list[LearnResult] = []
+    snaps: list[tuple[int, str, dict[str, Any]]] = []
+    try:
+        for a, b in zip(bounds, bounds[1:], strict=False):
+            model, res, alarm_snaps = _learn_with_alarm_snapshot(model, X[a:b], y[a:b])
+            for e in res.events:
+                e["index"] += a
+            results.append(res)
+            snaps.extend((a + k, "drift-alarm", s) for k, s in alarm_snaps)
+            if b in cuts:
+                snaps.append((b, "periodic", model.to_state()))
+    except InputError as exc:
+        idx = exc.details.get("index") if isinstance(exc.details, dict) else None
+        where = keep[idx] if idx is not None and idx < len(keep) else None
+        raise InvalidRequest(exc.message if where is None else f"sample {where}: {exc.message}",
+                             details={"index": where, "field": exc.field}) from exc
+    status = [s for r in results for s in r.status]
+    resid = np.concatenate([r.residuals for r in results]) if results else np.empty(0)
+    events = [e for r in results for e in r.events]
+    alarms = sum(1 for e in events if e["kind"] == "drift_alarm")
+    rows = []
+    for k, i in enumerate(keep):
+        s = samples[i]
+        r = float(resid[k])
+        rows.append({
+            "channel_pk": ch.pk, "seq": n0 + k + 1, "source": source,
+            "source_seq": s.seq if source is not None else None, "t": s.t or now, "received_at": now,
+            "x": samples[i].x, "y": s.y, "residual": r if math.isfinite(r) else None,
+            "accepted": status[k] == "accepted", "reason": None if status[k] == "accepted" else status[k],
+        })
+    repo.insert_samples(rows)
+    event_rows = []
+    for k, kind, state in snaps:
+        snap = repo.insert_snapshot(ch.pk, reason=kind, label=None, model_state=state, version=v0 + k,
+                                    n_samples=n0 + k)
+        if kind == "drift-alarm":
+            event_rows.append({"channel_pk": ch.pk, "kind": "snapshot", "version": v0 + k, "key_id": key_id,
+                               "details": {"snapshot": snap.pk, "reason": kind}})
+    for e in events:
+        k = e.pop("index")
+        kind = e.pop("kind")
+        event_rows.append({"channel_pk": ch.pk, "kind": kind, "version": v0 + k + 1, "key_id": key_id,
+                           "details": {"sample_seq": n0 + k + 1, **e}})
+    repo.insert_events(event_rows)
+    n_kept = len(keep)
+    rejected = [{"index": i, "reason": status[k]} for k, i in enumerate(keep) if status[k] != "accepted"]
+    summary = model.summary()
+    values: dict[str, Any] = {"model_state": model.to_state(), "version": v0 + n_kept,
+                              "n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected),
+                              **summary_columns(model)}
+    if rows:
+        latest = max(r["t"] for r in rows)
+        values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
+    repo.save_state(st, **values)
+    per_request: list[float | None] = [None] * len(samples)
+    for k, i in enumerate(keep):
+        r = float(resid[k])
+        per_request[i] = r if math.isfinite(r) else None
+    return ChannelOutcome(
+        accepted=n_kept - len(rejected), duplicates=duplicates, rejected=rejected, residuals=per_request,
+        version=v0 + n_kept, n_samples=n0 + n_kept, alarms=alarms,
+        drift={"state": summary["drift"]["state"], "statistic": summary["drift"]["statistic"],
+               "tolerance_state": summary["drift"]["tolerance_state"]},
+    )
+
+
+def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleIn], source: str | None,
+           key_id: str | None) -> ChannelOutcome:
+    ch, st = load(repo, channel_id, lock=True)
+    return ingest_channel(repo, ch, st, samples, source, key_id)
+
+
+def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleIn]], source: str | None,
+                   key_id: str | None) -> dict[str, Any]:
+    """A gateway batch across channels: each channel's samples in request order, channels
+    locked in id order, all in one transaction."""
+    groups: dict[str, list[int]] = {}
+    for i, (cid, _) in enumerate(items):
+        groups.setdefault(cid, []).append(i)
+    residuals: list[float | None] = [None] * len(items)
+    rejected: list[dict[str, Any]] = []
+    channels: dict[str, Any] = {}
+    accepted = duplicates = alarms = 0
+    for cid in sorted(groups):
+        idx = groups[cid]
+        ch, st = load(repo, cid, lock=True)
+        try:
+            out = ingest_channel(repo, ch, st, [items[i][1] for i in idx], source, key_id)
+        except InvalidRequest as exc:
+            local = exc.details.get("index") if isinstance(exc.details, dict) else None
+            where = idx[local] if local is not None else None
+            raise InvalidRequest(f"channel {cid}: {exc.message}",
+                                 details={"index": where, "channel": cid}) from exc
+        accepted += out.accepted
+        duplicates += out.duplicates
+        alarms += out.alarms
+        for k, r in enumerate(out.residuals):
+            residuals[idx[k]] = r
+        rejected.extend({"index": idx[r["index"]], "channel": cid, "reason": r["reason"]} for r in out.rejected)
+        channels[cid] = {"version": out.version, "n_samples": out.n_samples, "drift": out.drift}
+    rejected.sort(key=lambda r: r["index"])
+    return {"accepted": accepted, "duplicates": duplicates, "rejected": rejected, "residuals": residuals,
+            "channels": channels, "alarms": alarms}
+
+
+def export(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) -> Page:
+    ch, _ = load(repo, channel_id)
+    after = decode_cursor(cursor)
+    rows = repo.list_samples(ch.pk, after_seq=after, limit=limit + 1)
+    items = [{"seq": r.seq, "t": r.t, "received_at": r.received_at, "source": r.source,
+              "source_seq": r.source_seq, "x": r.x, "y": r.y, "residual": r.residual,
+              "accepted": r.accepted, "reason": r.reason} for r in rows[:limit]]
+    return Page(items, encode_cursor(rows[limit - 1].seq) if len(rows) > limit else None)

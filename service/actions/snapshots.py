@@ -1,0 +1,78 @@
+"""Snapshots and rollback."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from ..core import ChannelModel
+from ..errors import SnapshotNotFound
+from ..store import Repository
+from ..store.tables import Snapshot
+from .channels import load, summary_columns, view
+from .paging import Page, decode_cursor, encode_cursor
+
+
+def _item(snap: Snapshot) -> dict[str, Any]:
+    return {"id": snap.pk, "reason": snap.reason, "label": snap.label, "version": snap.version,
+            "n_samples": snap.n_samples, "created_at": snap.created_at}
+
+
+def take(repo: Repository, channel_id: str, label: str | None, key_id: str | None) -> dict[str, Any]:
+    ch, st = load(repo, channel_id, lock=True)
+    snap = repo.insert_snapshot(ch.pk, reason="manual", label=label, model_state=st.model_state,
+                                version=st.version, n_samples=st.n_samples)
+    repo.insert_events([{"channel_pk": ch.pk, "kind": "snapshot", "version": st.version, "key_id": key_id,
+                         "details": {"snapshot": snap.pk, "reason": "manual", "label": label}}])
+    return _item(snap)
+
+
+def list_(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) -> Page:
+    ch, _ = load(repo, channel_id)
+    rows = repo.list_snapshots(ch.pk, after_pk=decode_cursor(cursor), limit=limit + 1)
+    return Page([_item(s) for s in rows[:limit]],
+                encode_cursor(rows[limit - 1].pk) if len(rows) > limit else None)
+
+
+def get(repo: Repository, channel_id: str, snapshot_id: int) -> dict[str, Any]:
+    ch, st = load(repo, channel_id)
+    snap = repo.get_snapshot(ch.pk, snapshot_id)
+    if snap is None:
+        raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
+    current = ChannelModel.from_state(st.model_state)
+    old = ChannelModel.from_state(snap.model_state)
+    summary = old.summary()
+    out = _item(snap)
+    out.update({
+        "weights": old.s.w.tolist(), "basis": old.config["basis"], "rmse": summary["rmse"],
+        "drift": summary["drift"], "config": old.config,
+        "max_difference_from_current": current.max_curve_difference(np.asarray(old.s.w))
+        if old.s.w.shape == current.s.w.shape else None,
+    })
+    out.update(old.raw_coefficients())
+    return out
+
+
+def rollback(repo: Repository, channel_id: str, snapshot_id: int, key_id: str | None) -> dict[str, Any]:
+    """Restore a snapshot's state; the current state is snapshotted first. The restored
+    curve becomes the reference for the tolerance check and the drift watch restarts."""
+    ch, st = load(repo, channel_id, lock=True)
+    snap = repo.get_snapshot(ch.pk, snapshot_id)
+    if snap is None:
+        raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
+    before = repo.insert_snapshot(ch.pk, reason="before-rollback", label=f"before rollback to {snapshot_id}",
+                                  model_state=st.model_state, version=st.version, n_samples=st.n_samples)
+    model = ChannelModel.from_state(snap.model_state)
+    model.set_reference()
+    model.reset_drift()
+    version = st.version + 1
+    state = model.to_state()
+    repo.save_config(ch, model.config)
+    repo.save_state(st, model_state=state, version=version, **summary_columns(model))
+    repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
+                         "details": {"snapshot": snapshot_id, "snapshot_before": before.pk}}])
+    out = view(ch, st, model)
+    out["snapshot_before"] = before.pk
+    out["restored_snapshot"] = snapshot_id
+    return out

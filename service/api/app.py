@@ -1,0 +1,49 @@
+"""The app factory: settings in, a FastAPI app out; its lifespan owns the store."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+
+from .. import __version__, auth
+from ..config import Settings
+from ..metrics import Metrics
+from ..store import Store
+from . import errors
+from .deps import AppContext, KeyCache
+from .middleware import BodyLimit, RequestMetrics
+from .routes import channels, curves, health, keys, samples, snapshots
+
+DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
+readings arrive. Send `Authorization: Bearer <api key>` on every route except
+`/healthz` and `/readyz`. The service supports, and does not replace, traceable
+accredited calibration and the rules that apply where the sensors are used."""
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or Settings.from_env()
+    logging.getLogger("curvekeeper").setLevel(settings.log_level.upper())
+    metrics = Metrics()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
+        if settings.admin_key:
+            with store.transaction(write=True) as repo:
+                auth.ensure_admin_key(repo, settings.admin_key)
+        app.state.ctx = AppContext(settings, store, metrics, KeyCache())
+        try:
+            yield
+        finally:
+            store.dispose()
+
+    app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan)
+    errors.install(app)
+    for module in (health, channels, samples, curves, snapshots, keys):
+        app.include_router(module.router)
+    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
+    app.add_middleware(RequestMetrics, metrics=metrics)
+    return app

@@ -1,0 +1,83 @@
+"""Dependencies: the app context, and the caller's key (checked before the body)."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from threading import Lock
+from typing import Annotated
+
+from fastapi import Depends, Header, Request
+
+from ..auth import Principal, authenticate, hash_secret
+from ..config import Settings
+from ..errors import PayloadTooLarge
+from ..metrics import Metrics
+from ..store import Store
+
+
+@dataclass
+class KeyCache:
+    """Keys recently checked, by secret hash, for ``ttl`` seconds (a revocation made
+    through this process takes effect at once; through another, within ``ttl``)."""
+
+    ttl: float = 5.0
+    _items: dict[str, tuple[Principal, float]] = field(default_factory=dict)
+    _lock: Lock = field(default_factory=Lock)
+
+    def get(self, digest: str) -> Principal | None:
+        with self._lock:
+            hit = self._items.get(digest)
+            if hit is None or hit[1] < time.monotonic():
+                return None
+            return hit[0]
+
+    def put(self, digest: str, who: Principal) -> None:
+        with self._lock:
+            if len(self._items) > 10_000:
+                self._items.clear()
+            self._items[digest] = (who, time.monotonic() + self.ttl)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+
+
+@dataclass
+class AppContext:
+    settings: Settings
+    store: Store
+    metrics: Metrics
+    keys: KeyCache
+
+
+def context(request: Request) -> AppContext:
+    ctx: AppContext = request.app.state.ctx
+    return ctx
+
+
+Ctx = Annotated[AppContext, Depends(context)]
+
+
+def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
+    digest = None
+    if authorization:
+        _, _, secret = authorization.partition(" ")
+        digest = hash_secret(secret.strip())
+        hit = ctx.keys.get(digest)
+        if hit is not None:
+            return hit
+    with ctx.store.transaction(write=False) as repo:
+        who = authenticate(repo, authorization)
+    if digest is not None:
+        ctx.keys.put(digest, who)
+    return who
+
+
+Who = Annotated[Principal, Depends(principal)]
+
+
+def check_batch(n: int, settings: Settings) -> None:
+    if n > settings.max_batch:
+        raise PayloadTooLarge(f"{n} samples in one request; at most {settings.max_batch} are accepted",
+                              details={"max_batch": settings.max_batch})

@@ -1,0 +1,70 @@
+"""One place that turns errors into the contract's body:
+``{"error": {"code": ..., "message": ..., "details": ...}}``."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException
+
+from ..core import CoreError
+from ..errors import ServiceError, StoreBusy
+
+log = logging.getLogger("curvekeeper.api")
+
+HTTP_CODES = {404: "not_found", 405: "method_not_allowed", 413: "payload_too_large", 401: "unauthorized",
+              403: "forbidden", 400: "bad_request", 429: "rate_limited"}
+
+
+def error_body(code: str, message: str, details: Any = None) -> dict[str, Any]:
+    return {"error": {"code": code, "message": message, "details": details}}
+
+
+def error_response(status: int, code: str, message: str, details: Any = None,
+                   headers: dict[str, str] | None = None) -> JSONResponse:
+    return JSONResponse(error_body(code, message, details), status_code=status, headers=headers)
+
+
+def _clean(errors: list[Any]) -> list[dict[str, Any]]:
+    out = []
+    for e in errors:
+        out.append({"loc": [str(p) for p in e.get("loc", ())], "msg": str(e.get("msg", "")),
+                    "type": str(e.get("type", ""))})
+    return out
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(ServiceError)
+    async def _service(_: Request, exc: ServiceError) -> JSONResponse:
+        headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy) else None
+        if isinstance(exc, StoreBusy):
+            log.warning("store busy: %s", exc.details)
+        return error_response(exc.status, exc.code, exc.message, exc.details, headers)
+
+    @app.exception_handler(CoreError)
+    async def _core(_: Request, exc: CoreError) -> JSONResponse:
+        return error_response(422, exc.code, exc.message, {"field": exc.field})
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(_: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = _clean(list(exc.errors()))
+        if any(e["type"] == "json_invalid" for e in errors):
+            return error_response(400, "malformed_json", "the request body is not valid JSON", errors)
+        first = errors[0] if errors else {"loc": [], "msg": "invalid request"}
+        where = ".".join(p for p in first["loc"] if p != "body") or "request"
+        return error_response(422, "validation_error", f"{where}: {first['msg']}", errors)
+
+    @app.exception_handler(HTTPException)
+    async def _http(_: Request, exc: HTTPException) -> JSONResponse:
+        code = HTTP_CODES.get(exc.status_code, "http_error")
+        message = exc.detail if isinstance(exc.detail, str) else code.replace("_", " ")
+        return error_response(exc.status_code, code, message, None, getattr(exc, "headers", None))
+
+    @app.exception_handler(Exception)
+    async def _unexpected(_: Request, exc: Exception) -> JSONResponse:
+        log.exception("unexpected error")
+        return error_response(500, "internal_error", "an unexpected error occurred; it has been logged")

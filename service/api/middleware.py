@@ -1,0 +1,97 @@
+"""ASGI middleware: request body size limit, and request metrics."""
+
+from __future__ import annotations
+
+import json
+import time
+from typing import Any
+
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from ..metrics import Metrics
+from .errors import error_body
+
+
+class BodyLimit:
+    """Answers 413 with the error body when a request body exceeds ``max_bytes``."""
+
+    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+        self.app = app
+        self.max_bytes = max_bytes
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        for name, value in scope.get("headers", []):
+            if name == b"content-length":
+                try:
+                    too_big = int(value) > self.max_bytes
+                except ValueError:
+                    too_big = False
+                if too_big:
+                    await self._reject(send)
+                    return
+        seen = 0
+        started = False
+
+        async def limited() -> Message:
+            nonlocal seen
+            message = await receive()
+            if message["type"] == "http.request":
+                seen += len(message.get("body", b""))
+                if seen > self.max_bytes:
+                    raise _TooLarge
+            return message
+
+        async def tracking_send(message: Message) -> None:
+            nonlocal started
+            if message["type"] == "http.response.start":
+                started = True
+            await send(message)
+
+        try:
+            await self.app(scope, limited, tracking_send)
+        except _TooLarge:
+            if not started:
+                await self._reject(send)
+
+    async def _reject(self, send: Send) -> None:
+        body = json.dumps(error_body("payload_too_large",
+                                     f"the request body is larger than {self.max_bytes} bytes")).encode()
+        await send({"type": "http.response.start", "status": 413,
+                    "headers": [(b"content-type", b"application/json"),
+                                (b"content-length", str(len(body)).encode())]})
+        await send({"type": "http.response.body", "body": body})
+
+
+class _TooLarge(Exception):
+    pass
+
+
+class RequestMetrics:
+    """Counts requests and their latency by route template and status."""
+
+    def __init__(self, app: ASGIApp, metrics: Metrics) -> None:
+        self.app = app
+        self.metrics = metrics
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        start = time.perf_counter()
+        status = {"code": 500}
+
+        async def send_status(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                status["code"] = message["status"]
+            await send(message)
+
+        try:
+            await self.app(scope, receive, send_status)
+        finally:
+            route: Any = scope.get("route")
+            path = getattr(route, "path", "unmatched")
+            self.metrics.observe_request(scope.get("method", ""), path, status["code"],
+                                         time.perf_counter() - start)

@@ -1,0 +1,47 @@
+"""Channels: create, list, read, change settings."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Path, Query
+
+from ...actions import channels
+from ..deps import Ctx, Who
+from ..schemas.channels import ChannelCreate, ChannelUpdate
+
+router = APIRouter(prefix="/v1/channels", tags=["channels"])
+
+ChannelPath = Annotated[str, Path(pattern=r"^[a-z0-9._-]{1,128}$")]
+Limit = Annotated[int, Query(ge=1, le=1000)]
+
+
+@router.post("", status_code=201, summary="Create a channel")
+def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require("technician")
+    with ctx.store.transaction(write=True) as repo:
+        return channels.create(repo, body.model_dump(exclude_unset=True), who.key_id)
+
+
+@router.get("", summary="List channels")
+def list_channels(ctx: Ctx, who: Who, prefix: Annotated[str | None, Query(max_length=128)] = None,
+                  state: Annotated[str | None, Query(description="ok, warning, alarm or out_of_tolerance")] = None,
+                  limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
+    who.require("technician")
+    with ctx.store.transaction(write=False) as repo:
+        page = channels.list_(repo, prefix=prefix, state=state, cursor=cursor, limit=limit)
+    return {"items": page.items, "next_cursor": page.next_cursor}
+
+
+@router.get("/{channel_id}", summary="A channel's configuration and summary")
+def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require_channel(channel_id, "technician")
+    with ctx.store.transaction(write=False) as repo:
+        return channels.get(repo, channel_id)
+
+
+@router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings")
+def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require_channel(channel_id, "technician")
+    with ctx.store.transaction(write=True) as repo:
+        return channels.patch(repo, channel_id, body.model_dump(exclude_unset=True), who.key_id)

@@ -1,0 +1,43 @@
+"""Predict, curve, calibrate."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query
+
+from ...actions import curves
+from ...errors import PayloadTooLarge
+from ..deps import Ctx, Who
+from ..schemas.curves import CalibrateIn, PredictIn
+from .channels import ChannelPath
+
+router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"])
+
+
+@router.post("/predict", summary="Calibrated values with standard uncertainty")
+def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require_channel(channel_id, "device")
+    if len(body.x) > ctx.settings.max_predict:
+        raise PayloadTooLarge(f"at most {ctx.settings.max_predict} values per request")
+    with ctx.store.transaction(write=False) as repo:
+        return curves.predict(repo, channel_id, body.x, body.snapshot)
+
+
+@router.get("/curve", summary="Coefficients and the curve sampled over the input range")
+def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
+          points: Annotated[int, Query(ge=2)] = 101) -> dict[str, Any]:
+    who.require_channel(channel_id, "technician")
+    if points > ctx.settings.max_curve_points:
+        raise PayloadTooLarge(f"at most {ctx.settings.max_curve_points} points")
+    with ctx.store.transaction(write=False) as repo:
+        return curves.curve(repo, channel_id, points)
+
+
+@router.post("/calibrate", summary="Closed-form least-squares calibration")
+def calibrate(channel_id: ChannelPath, body: CalibrateIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require_channel(channel_id, "technician")
+    with ctx.store.transaction(write=True) as repo:
+        return curves.calibrate(repo, channel_id, points=[(p.inputs(), p.y) for p in body.points],
+                                include_history=body.include_history, since=body.since, until=body.until,
+                                last=body.last, label=body.label, key_id=who.key_id)

@@ -1,0 +1,67 @@
+"""Samples: learn (one channel, or a gateway batch), and export."""
+
+from __future__ import annotations
+
+import csv
+import io
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query, Response
+
+from ...actions import samples
+from ..deps import Ctx, Who, check_batch
+from ..schemas.samples import GatewayIn, SamplesIn
+from .channels import ChannelPath, Limit
+
+router = APIRouter(tags=["samples"])
+
+
+@router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
+def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+    who.require_channel(channel_id, "device")
+    check_batch(len(body.samples), ctx.settings)
+    items = [samples.SampleIn(s.inputs(), s.y, s.t, s.seq) for s in body.samples]
+    with ctx.store.transaction(write=True) as repo:
+        out = samples.ingest(repo, channel_id, items, body.source, who.key_id)
+    ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
+    return {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
+            "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples,
+            "drift": out.drift}
+
+
+@router.post("/v1/samples", summary="Gateway batch across channels")
+def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+    check_batch(len(body.samples), ctx.settings)
+    for cid in {s.channel for s in body.samples}:
+        who.require_channel(cid, "device")
+    items = [(s.channel, samples.SampleIn(s.inputs(), s.y, s.t, s.seq)) for s in body.samples]
+    with ctx.store.transaction(write=True) as repo:
+        out = samples.ingest_gateway(repo, items, body.source, who.key_id)
+    ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
+    return out
+
+
+CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "accepted", "reason"]
+
+
+@router.get("/v1/channels/{channel_id}/samples", summary="Stored samples, paged (JSON or CSV)",
+            response_model=None)
+def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
+                format: Annotated[str, Query(pattern="^(json|csv)$")] = "json") -> dict[str, Any] | Response:
+    who.require_channel(channel_id, "technician")
+    with ctx.store.transaction(write=False) as repo:
+        page = samples.export(repo, channel_id, cursor=cursor, limit=limit)
+    if format == "json":
+        return {"items": page.items, "next_cursor": page.next_cursor}
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(CSV_FIELDS)
+    for it in page.items:
+        x = it["x"]
+        writer.writerow([it["seq"], it["t"].isoformat(), it["received_at"].isoformat(), it["source"] or "",
+                         "" if it["source_seq"] is None else it["source_seq"],
+                         x[0] if len(x) == 1 else ";".join(repr(v) for v in x), repr(it["y"]),
+                         "" if it["residual"] is None else repr(it["residual"]),
+                         "true" if it["accepted"] else "false", it["reason"] or ""])
+    headers = {"X-Next-Cursor": page.next_cursor} if page.next_cursor else {}
+    return Response(buf.getvalue(), media_type="text/csv; charset=utf-8", headers=headers)

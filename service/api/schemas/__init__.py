@@ -1,0 +1,1 @@
+"""Request schemas by resource; the core checks channel configurations itself."""

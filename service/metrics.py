@@ -1,0 +1,33 @@
+"""Prometheus metrics, one registry per app (so tests can run several apps)."""
+
+from __future__ import annotations
+
+from prometheus_client import CollectorRegistry, Counter, Histogram, generate_latest
+
+
+class Metrics:
+    def __init__(self) -> None:
+        self.registry = CollectorRegistry()
+        self.requests = Counter("curvekeeper_http_requests_total", "HTTP requests by route and status",
+                                ["method", "route", "status"], registry=self.registry)
+        self.latency = Histogram("curvekeeper_http_request_seconds", "HTTP request latency by route",
+                                 ["method", "route"], registry=self.registry,
+                                 buckets=(0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5))
+        self.samples = Counter("curvekeeper_samples_total", "Samples by outcome", ["outcome"],
+                               registry=self.registry)
+        self.drift_alarms = Counter("curvekeeper_drift_alarms_total", "Drift alarms raised",
+                                    registry=self.registry)
+
+    def observe_request(self, method: str, route: str, status: int, seconds: float) -> None:
+        self.requests.labels(method, route, str(status)).inc()
+        self.latency.labels(method, route).observe(seconds)
+
+    def observe_samples(self, accepted: int, rejected: int, duplicates: int, alarms: int) -> None:
+        self.samples.labels("accepted").inc(accepted)
+        self.samples.labels("rejected").inc(rejected)
+        self.samples.labels("duplicate").inc(duplicates)
+        if alarms:
+            self.drift_alarms.inc(alarms)
+
+    def render(self) -> bytes:
+        return generate_latest(self.registry)

@@ -1,0 +1,594 @@
+"""Drift detectors (service/core/drift.py) against sources outside the project.
+
+Every reference value here is either quoted from the statistical quality control
+literature (named next to the check, quoted from memory) or computed in this file
+by code that does not use the project: Siegmund's approximation for the CUSUM,
+the Brook and Evans Markov chain for the EWMA, and the quasi-static average of
+Siegmund's hazard for Page-Hinkley. The detectors are measured by seeded Monte
+Carlo through the compiled ``run_lengths`` / ``first_reach`` / ``detector_update``.
+
+ARL convention: the number of samples up to and including the first one whose
+state reaches the level (alarm: statistic > alarm threshold; warning: > warning).
+Run lengths are zero-state (statistics at 0) unless a test says "steady state".
+
+Measured on this seeding (run ``pytest tests/core/test_drift.py -s`` to see them
+printed; each test's docstring repeats its own figures):
+
+====================================  ===========  =========================  ==========
+quantity                              measured     reference                  rel. s.e.
+====================================  ===========  =========================  ==========
+CUSUM k .5 h 5, in control            471.6        465 table; 469.1 Siegmund  1.0 %
+CUSUM k .5 h 5, +1 s.d.               10.40        10.4 table; 10.34 Siegm.   0.4 %
+CUSUM k .5 h 5, -1 s.d.               10.41        10.4 table; 10.34 Siegm.   0.4 %
+EWMA lam .1 L 2.814, in control       498.5        ~500 table; 499.1 Markov   1.0 %
+EWMA lam .1 L 2.814, +1 s.d.          10.31        10.3 table; 10.33 Markov   0.4 %
+PH defaults, warning (h 6), in ctrl   1,300        1,254 quasi-static          0.8 %
+PH defaults, alarm (h 11), in ctrl    see fleet    173,687 quasi-static       --
+PH defaults, +1 s.d. (zero state)     22.49        22.33 Siegmund k = delta   0.5 %
+PH defaults, -1 s.d. (zero state)     22.46        22.33 Siegmund k = delta   0.5 %
+fleet cusum alarm, in control         see below    192,131 Siegmund           ~4.5 %
+fleet page_hinkley alarm, in control  see below    173,687 quasi-static       ~4.5 %
+fleet ewma alarm, in control          see below    203,660 Markov (201 st.)   ~4.5 %
+====================================  ===========  =========================  ==========
+
+(The fleet figures are in ``test_fleet_defaults_in_control``'s docstring.)
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from typing import Any
+
+import numpy as np
+import pytest
+from scipy import integrate
+from scipy.stats import norm
+
+from service.core import drift
+from service.core.config import normalize_config
+
+CHUNK = 10**7  # normals generated per chunk (80 MB of float64)
+
+
+# --------------------------------------------------------------------------------------
+# helpers: project side
+# --------------------------------------------------------------------------------------
+
+
+def params(detector: str, **kw: Any) -> tuple[int, np.ndarray]:
+    return drift.detector_params({"detector": detector, **kw})
+
+
+def fleet_cfg(detector: str) -> dict[str, Any]:
+    """The drift config a channel gets when it only names the detector."""
+    body = {"inputs": [{"name": "x", "min": 0.0, "max": 1.0}], "drift": {"detector": detector}}
+    return normalize_config(body)["drift"]
+
+
+def fleet_params(detector: str) -> tuple[int, np.ndarray]:
+    return drift.detector_params(fleet_cfg(detector))
+
+
+def mc_arl(
+    kind: int, dp: np.ndarray, level: int, n_samples: int, seed: int, shift: float = 0.0
+) -> tuple[float, int, float, np.ndarray]:
+    """ARL by restart-after-event streams (``run_lengths``), generated in chunks.
+
+    Returns (ARL, number of events, relative s.e., the completed run lengths).
+    ARL = samples consumed / events: the exponential (geometric) MLE when the
+    unfinished tail of each chunk is a censored run. Samples consumed are counted
+    from what ``run_lengths`` reports (completed runs + tail), not len(z).
+    """
+    rng = np.random.default_rng(seed)
+    consumed = 0
+    done = 0
+    runs = []
+    while done < n_samples:
+        m = min(CHUNK, n_samples - done)
+        z = rng.standard_normal(m)
+        if shift:
+            z += shift
+        r, tail = drift.run_lengths(kind, dp, z, level, m)
+        consumed += int(r.sum()) + int(tail)
+        runs.append(r)
+        done += m
+    lengths = np.concatenate(runs)
+    n = lengths.size
+    assert n > 0, "no event in the whole stream"
+    return consumed / n, n, 1.0 / math.sqrt(n), lengths
+
+
+def report(label: str, measured: float, reference: str, rel_se: float | None = None) -> None:
+    se = "" if rel_se is None else f"  (rel. s.e. {100 * rel_se:.1f} %)"
+    print(f"\n[drift ARL] {label}: measured {measured:,.2f}; reference {reference}{se}")
+
+
+# --------------------------------------------------------------------------------------
+# helpers: independent reference computations (no project code)
+# --------------------------------------------------------------------------------------
+
+
+def siegmund_one_sided(D: float | np.ndarray, b: float) -> np.ndarray:
+    """Siegmund's approximation of a one-sided CUSUM ARL: drift D = shift - k,
+    b = h + 1.166. ARL = (exp(-2 D b) + 2 D b - 1) / (2 D^2); b^2 at D = 0."""
+    D = np.asarray(D, dtype=float)
+    small = np.abs(D) < 1e-9
+    Ds = np.where(small, 1.0, D)
+    val = (np.exp(-2.0 * Ds * b) + 2.0 * Ds * b - 1.0) / (2.0 * Ds * Ds)
+    return np.where(small, b * b, val)
+
+
+def siegmund_two_sided(shift: float | np.ndarray, k: float, h: float) -> np.ndarray:
+    """1/ARL = 1/ARL+ + 1/ARL-; the lower side sees the drift -shift - k."""
+    b = h + 1.166
+    return 1.0 / (1.0 / siegmund_one_sided(shift - k, b) + 1.0 / siegmund_one_sided(-shift - k, b))
+
+
+def ewma_arl_markov(lam: float, L: float, mu: float, m: int = 201) -> float:
+    """Brook & Evans (1972): EWMA ARL from a Markov chain on the in-control region.
+
+    e_t = lam z_t + (1 - lam) e_{t-1}, z ~ N(mu, 1), alarm when |e| > L sigma_e with
+    the asymptotic sigma_e = sqrt(lam / (2 - lam)). The region (-UCL, UCL) is cut into
+    m intervals (m odd so e = 0 is a midpoint); P[i, j] = P(e_t in interval j |
+    e_{t-1} = midpoint i); ARL from (I - P) ARL = 1, read at the start e_0 = 0.
+    """
+    ucl = L * math.sqrt(lam / (2.0 - lam))
+    w = 2.0 * ucl / m
+    c = -ucl + w * (np.arange(m) + 0.5)
+    base = (1.0 - lam) * c[:, None]
+    upper = (c[None, :] + w / 2.0 - base) / lam - mu
+    lower = (c[None, :] - w / 2.0 - base) / lam - mu
+    P = norm.cdf(upper) - norm.cdf(lower)
+    arl = np.linalg.solve(np.eye(m) - P, np.ones(m))
+    return float(arl[m // 2])
+
+
+def page_hinkley_quasi_static(delta: float, h: float, window: int) -> float:
+    """1/ARL = E_e[1/ARL_cusum(k = delta, shift = e)], e ~ N(0, a / (2 - a)), a = 1/window
+    (the error of an exponentially weighted mean with weight a), by quadrature."""
+    a = 1.0 / window
+    s = math.sqrt(a / (2.0 - a))
+    hazard, _ = integrate.quad(
+        lambda e: norm.pdf(e, scale=s) / float(siegmund_two_sided(e, delta, h)), -12 * s, 12 * s
+    )
+    return 1.0 / hazard
+
+
+# sanity of the independent reference code itself (fast)
+
+
+def test_reference_code_reproduces_known_values() -> None:
+    """Siegmund: 469.1 / 10.34 for k = .5, h = 5 (the drift.py docstring quotes 469 / 10.3).
+    Markov chain: 499.1 / 10.33 for lam .1, L 2.814 (Montgomery's table: 500 / 10.3)."""
+    assert float(siegmund_two_sided(0.0, 0.5, 5.0)) == pytest.approx(469.1, rel=1e-3)
+    assert float(siegmund_two_sided(1.0, 0.5, 5.0)) == pytest.approx(10.34, rel=1e-3)
+    # D -> 0 limit is continuous
+    assert float(siegmund_one_sided(1e-6, 3.0)) == pytest.approx(9.0, rel=1e-4)
+    assert ewma_arl_markov(0.1, 2.814, 0.0) == pytest.approx(500.0, rel=0.01)
+    assert ewma_arl_markov(0.1, 2.814, 1.0) == pytest.approx(10.3, rel=0.01)
+    # discretisation: 201 vs 401 states agree to 0.1 % at ARL 500
+    assert ewma_arl_markov(0.1, 2.814, 0.0, m=401) == pytest.approx(
+        ewma_arl_markov(0.1, 2.814, 0.0), rel=2e-3
+    )
+
+
+# --------------------------------------------------------------------------------------
+# 1. CUSUM k = 0.5, h = 5
+# --------------------------------------------------------------------------------------
+
+CUSUM_H5 = {"k": 0.5, "warning": 4.0, "alarm": 5.0, "clip": 0.0}
+
+
+def test_cusum_alarm_is_strictly_greater_than_h() -> None:
+    """The tabular CUSUM signals when S > h (Montgomery, Introduction to Statistical
+    Quality Control, sec. 9.1); detector_update compares ``stat > alarm`` (and
+    ``stat > warning``), so a statistic exactly at a threshold does not signal."""
+    kind, dp = params("cusum", **CUSUM_H5)
+    ds = drift.new_detector_state()
+    assert drift.detector_update(kind, dp, ds, 4.5) == 4.0  # exactly the warning level
+    assert ds[4] == 0
+    ds = drift.new_detector_state()
+    assert drift.detector_update(kind, dp, ds, 5.5) == 5.0  # exactly h
+    assert ds[4] == 1
+    assert drift.detector_update(kind, dp, ds, 0.5) == 5.0  # still exactly h
+    assert ds[4] == 1
+    assert drift.detector_update(kind, dp, ds, 0.5 + 1e-9) > 5.0
+    assert ds[4] == 2
+    # the lower side, the same way
+    ds = drift.new_detector_state()
+    assert drift.detector_update(kind, dp, ds, -5.5) == 5.0
+    assert ds[4] == 1
+    drift.detector_update(kind, dp, ds, -0.5 - 1e-9)
+    assert ds[4] == 2
+
+
+@pytest.mark.parametrize(
+    ("shift", "n_samples", "table", "seed"),
+    [(0.0, 5 * 10**6, 465.0, 101), (1.0, 2 * 10**5, 10.4, 102), (-1.0, 2 * 10**5, 10.4, 103)],
+    ids=["in-control", "+1sd", "-1sd"],
+)
+def test_cusum_h5_arl(shift: float, n_samples: int, table: float, seed: int) -> None:
+    """Two-sided tabular CUSUM, k = 0.5, h = 5, no clipping, zero-state ARL.
+
+    References: (a) the tabular-CUSUM ARL table of the SQC handbooks (Montgomery,
+    Introduction to Statistical Quality Control, table "ARL performance of the tabular
+    CUSUM with k = 1/2", h = 5 row; values QUOTED FROM MEMORY): 465 in control (two-
+    sided), 10.4 for a 1 s.d. shift. (b) Siegmund's approximation computed here
+    (469.1 and 10.34). Tolerance 10 %; Monte Carlo rel. s.e. about 1 % / 0.4 %.
+
+    Measured: in control 471.6 (10,6xx alarms); +1 s.d. 10.40; -1 s.d. 10.41.
+    """
+    kind, dp = params("cusum", **CUSUM_H5)
+    arl, n, rse, _ = mc_arl(kind, dp, 2, n_samples, seed, shift)
+    sieg = float(siegmund_two_sided(shift, 0.5, 5.0))
+    report(f"CUSUM k .5 h 5 shift {shift:+.0f}", arl, f"table {table} (memory), Siegmund {sieg:.2f}", rse)
+    assert rse < 0.02
+    assert arl == pytest.approx(table, rel=0.10)  # SQC handbook table, from memory
+    assert arl == pytest.approx(sieg, rel=0.10)  # Siegmund (1985), computed above
+
+
+# --------------------------------------------------------------------------------------
+# 2. EWMA, lambda = 0.1, L = 2.814
+# --------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("shift", "n_samples", "seed"),
+    [(0.0, 5 * 10**6, 201), (1.0, 2 * 10**5, 202), (-1.0, 2 * 10**5, 203)],
+    ids=["in-control", "+1sd", "-1sd"],
+)
+def test_ewma_arl_markov_chain(shift: float, n_samples: int, seed: int) -> None:
+    """EWMA lam = 0.1, L = 2.814, asymptotic limits, e_0 = 0, no clipping.
+
+    Reference: Brook & Evans (Biometrika 1972) Markov chain, implemented above with
+    201 states: 499.1 in control, 10.33 for a 1 s.d. shift. (The textbook design,
+    Lucas & Saccucci 1990 / Montgomery's EWMA table, gives ARL0 about 500 and 10.3 at
+    1 s.d.; quoted from memory.) Tolerance 10 %; MC rel. s.e. about 1 % / 0.4 %.
+
+    Measured: in control 498.5; +1 s.d. 10.31; -1 s.d. 10.31.
+    """
+    kind, dp = params("ewma", **{"lambda": 0.1, "warning": 2.0, "alarm": 2.814, "clip": 0.0})
+    arl, n, rse, _ = mc_arl(kind, dp, 2, n_samples, seed, shift)
+    ref = ewma_arl_markov(0.1, 2.814, shift)
+    report(f"EWMA lam .1 L 2.814 shift {shift:+.0f}", arl, f"Markov chain {ref:.2f}", rse)
+    assert rse < 0.02
+    assert arl == pytest.approx(ref, rel=0.10)
+    assert arl == pytest.approx(500.0 if shift == 0.0 else 10.3, rel=0.10)  # textbook, memory
+
+
+# --------------------------------------------------------------------------------------
+# fleet in-control stream, shared by the Page-Hinkley and fleet tests
+# --------------------------------------------------------------------------------------
+
+FLEET = ("page_hinkley", "cusum", "ewma")
+FLEET_SAMPLES = 10**8  # ~190 k design ARL -> ~500 alarms each, rel. s.e. ~4.5 %
+FLEET_WARNING_SAMPLES = 2 * 10**7  # ~1.3 k warning ARL -> ~15 k warnings, rel. s.e. < 1 %
+FLEET_SEED = 20240601
+
+
+@functools.cache
+def fleet_in_control() -> dict[str, dict[str, float]]:
+    """One long N(0, 1) stream, generated in chunks, fed to every fleet-default detector.
+
+    For each detector: alarm ARL over FLEET_SAMPLES, warning ARL over the first
+    FLEET_WARNING_SAMPLES, by restart-after-event streams. ``run_lengths`` starts each
+    chunk from a fresh state (Page-Hinkley's mean re-settles within ~2,000 samples of
+    a 10^7 chunk); the unfinished run at the end of a chunk is censored.
+    """
+    det = {d: fleet_params(d) for d in FLEET}
+    rng = np.random.default_rng(FLEET_SEED)
+    samples = {(d, lv): 0 for d in FLEET for lv in (1, 2)}
+    events = {(d, lv): 0 for d in FLEET for lv in (1, 2)}
+    done = 0
+    while done < FLEET_SAMPLES:
+        z = rng.standard_normal(CHUNK)
+        levels = (1, 2) if done < FLEET_WARNING_SAMPLES else (2,)
+        for d, (kind, dp) in det.items():
+            for lv in levels:
+                r, tail = drift.run_lengths(kind, dp, z, lv, CHUNK)
+                samples[d, lv] += int(r.sum()) + int(tail)
+                events[d, lv] += r.size
+        done += CHUNK
+    out: dict[str, dict[str, float]] = {}
+    for d in FLEET:
+        out[d] = {
+            "alarm_arl": samples[d, 2] / max(events[d, 2], 1),
+            "alarms": events[d, 2],
+            "warning_arl": samples[d, 1] / max(events[d, 1], 1),
+            "warnings": events[d, 1],
+        }
+    return out
+
+
+# --------------------------------------------------------------------------------------
+# 3. Page-Hinkley against the quasi-static derivation and Siegmund
+# --------------------------------------------------------------------------------------
+
+
+@pytest.mark.slow
+def test_page_hinkley_warning_arl_quasi_static() -> None:
+    """Fleet-default Page-Hinkley (delta .5, window 1000, clip 4), warning level h = 6.
+
+    Reference: the quasi-static derivation of the drift.py docstring, computed here
+    independently (Siegmund's two-sided hazard averaged over e ~ N(0, a/(2-a)),
+    a = 1/1000): 1,254. Tolerance 10 %: the MC rel. s.e. is < 1 %, and the
+    approximation neglects that the running mean absorbs part of each excursion,
+    which lengthens the ARL by a few per cent at h = 6 (growing with h; see the
+    alarm-level test). Clipping at 4 s.d. changes the ARL by far less than 1 %.
+
+    Measured: 1,300 (about 15,400 warnings in 2e7 samples), +3.7 % over 1,254.
+    """
+    res = fleet_in_control()["page_hinkley"]
+    ref = page_hinkley_quasi_static(0.5, 6.0, 1000)
+    rse = 1.0 / math.sqrt(res["warnings"])
+    report("PH defaults warning ARL", res["warning_arl"], f"quasi-static {ref:,.0f}", rse)
+    assert ref == pytest.approx(1254, rel=0.01)  # the docstring's figure
+    assert res["warning_arl"] == pytest.approx(ref, rel=0.10)
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(
+    strict=True,
+    reason=(
+        "drift.py docstring: Page-Hinkley default in-control alarm ARL 174,000 (quasi-static) "
+        "is ~21 % below simulation (~2.1e5): the derivation ignores that the running mean "
+        "follows each excursion; conservative for the fleet requirement"
+    ),
+)
+def test_page_hinkley_alarm_arl_quasi_static() -> None:
+    """Fleet-default Page-Hinkley alarm level h = 11 against the same quasi-static value
+    (173,687, the docstring's 174,000) with a 15 % tolerance (MC rel. s.e. ~4.5 %).
+
+    EXPECTED TO FAIL (strict xfail): measured about 2.1e5 here and 210,700 +- 1.5 % over
+    1e9 samples (4 seeds, outside this suite), i.e. ~21 % above the derivation. The gap
+    grows with h (h 6: +4 %, 7: +6 %, 8: +8 %, 9: +12 %, each +-1-2 %); a variant whose
+    mean sees only samples >= 200 steps old matches the quasi-static value within 1 %
+    at h 6-9, so the gap is the mean absorbing part of each excursion.
+    """
+    res = fleet_in_control()["page_hinkley"]
+    ref = page_hinkley_quasi_static(0.5, 11.0, 1000)
+    report("PH defaults alarm ARL", res["alarm_arl"], f"quasi-static {ref:,.0f}", 1 / math.sqrt(res["alarms"]))
+    assert res["alarm_arl"] == pytest.approx(ref, rel=0.15)
+
+
+def delays_after_burn_in(
+    kind: int,
+    dp: np.ndarray,
+    shift: float,
+    n_rep: int,
+    burn_in: int,
+    seed: int,
+    clear: bool,
+    horizon: int = 400,
+) -> tuple[np.ndarray, int]:
+    """Samples from the start of a sustained shift to the alarm, one fresh detector per
+    replicate after ``burn_in`` in-control samples.
+
+    clear=True: statistics and state cleared after the burn-in (as ``run_lengths``
+    restarts: running mean kept) -> zero-state ARL with a settled mean.
+    clear=False: steady state; replicates that alarm during the burn-in are dropped
+    (returned count).
+    """
+    rng = np.random.default_rng(seed)
+    out = []
+    dropped = 0
+    for _ in range(n_rep):
+        ds = drift.new_detector_state()
+        hit = drift.first_reach(kind, dp, ds, rng.standard_normal(burn_in), 2)
+        if clear:
+            ds[0] = ds[1] = ds[4] = 0.0
+        elif hit >= 0:
+            dropped += 1
+            continue
+        i = drift.first_reach(kind, dp, ds, rng.standard_normal(horizon) + shift, 2)
+        assert i >= 0, "no alarm within the horizon"
+        out.append(i + 1)
+    return np.asarray(out, dtype=float), dropped
+
+
+@pytest.mark.parametrize("shift", [1.0, -1.0], ids=["+1sd", "-1sd"])
+def test_page_hinkley_shift_arl_siegmund(shift: float) -> None:
+    """Fleet-default Page-Hinkley (delta .5, h 11, window 1000, clip 4): a sustained
+    1 s.d. shift after 3,000 in-control samples (running mean settled), statistics
+    cleared at the shift. Reference: Siegmund's two-sided ARL with k = delta, h = 11:
+    22.33. Tolerance 10 %: MC rel. s.e. ~0.5 %; the running mean starts following the
+    shift (1/1000 per sample), which slows detection by ~1-2 %.
+
+    Measured: +1 s.d. 22.49; -1 s.d. 22.46 (2,000 replicates each).
+    """
+    kind, dp = fleet_params("page_hinkley")
+    d, _ = delays_after_burn_in(kind, dp, shift, 2000, 3000, 301 if shift > 0 else 302, clear=True)
+    ref = float(siegmund_two_sided(1.0, 0.5, 11.0))
+    rse = d.std() / math.sqrt(d.size) / d.mean()
+    report(f"PH defaults shift {shift:+.0f} (zero state)", d.mean(), f"Siegmund k=delta {ref:.2f}", rse)
+    assert ref == pytest.approx(22.33, rel=1e-3)
+    assert d.mean() == pytest.approx(ref, rel=0.10)
+
+
+# --------------------------------------------------------------------------------------
+# 4. fleet defaults
+# --------------------------------------------------------------------------------------
+
+
+def test_fleet_defaults_are_the_documented_ones() -> None:
+    """normalize_config fills in DETECTOR_DEFAULTS, clip 4, page_hinkley by default."""
+    body = {"inputs": [{"name": "x", "min": 0.0, "max": 1.0}]}
+    assert normalize_config(body)["drift"]["detector"] == "page_hinkley"
+    for d in FLEET:
+        cfg = fleet_cfg(d)
+        for key, value in drift.DETECTOR_DEFAULTS[d].items():
+            assert cfg[key] == value
+        assert cfg["clip"] == 4.0
+    assert fleet_cfg("cusum")["k"] == 0.5
+    assert (fleet_cfg("cusum")["warning"], fleet_cfg("cusum")["alarm"]) == (6.0, 11.0)
+    assert fleet_cfg("page_hinkley")["mean_window"] == 1000
+    assert (fleet_cfg("ewma")["lambda"], fleet_cfg("ewma")["alarm"]) == (0.05, 4.4)
+
+
+def fleet_reference(detector: str, level: int) -> float:
+    h = {"page_hinkley": (6.0, 11.0), "cusum": (6.0, 11.0), "ewma": (3.0, 4.4)}[detector][level - 1]
+    if detector == "cusum":
+        return float(siegmund_two_sided(0.0, 0.5, h))
+    if detector == "ewma":
+        return ewma_arl_markov(0.05, h, 0.0)
+    return page_hinkley_quasi_static(0.5, h, 1000)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("detector", FLEET)
+def test_fleet_defaults_in_control(detector: str) -> None:
+    """Fleet defaults, in control: alarm ARL >= 100,000 and warning ARL >= 1,000.
+
+    One seeded stream of 1e8 N(0,1) samples (chunks of 1e7) through restart-after-alarm
+    streams; ARL = samples / alarms (exponential MLE with censored tails). About 500
+    alarms per detector, so the relative s.e. is ~4.5 % (asserted < 8 %); the design
+    values (drift.py: 1.7e5-2e5) sit ~8-10 s.e. (log scale) above 100,000.
+
+    Measured (alarm ARL, alarms; warning ARL over 2e7 samples) vs references:
+      cusum         alarm 185,185 (540)    Siegmund 192,131   warning 1,271  Siegmund 1,286
+      page_hinkley  alarm 208,333 (480)    quasi-st 173,687   warning 1,300  quasi-st 1,254
+      ewma          alarm 204,082 (490)    Markov   203,660   warning 1,374  Markov   1,376
+    (Long run outside the suite, 1e9 samples: cusum 192,400, page_hinkley 210,700,
+    ewma 205,000, each +-1.5 %.)
+    """
+    res = fleet_in_control()[detector]
+    rse = 1.0 / math.sqrt(res["alarms"])
+    ref_alarm = fleet_reference(detector, 2)
+    ref_warn = fleet_reference(detector, 1)
+    report(f"fleet {detector} alarm ARL ({res['alarms']} alarms)", res["alarm_arl"], f"{ref_alarm:,.0f}", rse)
+    report(
+        f"fleet {detector} warning ARL ({res['warnings']} warnings)",
+        res["warning_arl"],
+        f"{ref_warn:,.0f}",
+        1.0 / math.sqrt(res["warnings"]),
+    )
+    assert rse < 0.08
+    assert res["alarm_arl"] >= 100_000
+    assert res["warning_arl"] >= 1_000
+    if detector != "page_hinkley":  # PH: see test_page_hinkley_alarm_arl_quasi_static
+        # consistency with the independent references, ~4 s.e. of slack
+        assert res["alarm_arl"] == pytest.approx(ref_alarm, rel=0.20)
+    assert res["warning_arl"] == pytest.approx(ref_warn, rel=0.10)
+
+
+@pytest.mark.parametrize("detector", FLEET)
+@pytest.mark.parametrize("shift", [1.0, -1.0], ids=["+1sd", "-1sd"])
+def test_fleet_defaults_detect_one_sd_shift(detector: str, shift: float) -> None:
+    """Fleet defaults: a sustained 1 s.d. shift raises the alarm within 30 samples on
+    average, from the steady state after 3,000 in-control samples (replicates that
+    alarm in the burn-in are dropped) and from the zero state (statistics cleared).
+
+    Measured mean delays, steady state / zero state (1,000 replicates each):
+      cusum         +1: 21.6 / 22.0    -1: 21.6 / 22.0     (Siegmund 22.33)
+      page_hinkley  +1: 22.0 / 22.5    -1: 22.1 / 22.5     (Siegmund 22.33)
+      ewma          +1: 23.9 / 23.9    -1: 23.8 / 23.8     (Markov   23.82)
+    """
+    kind, dp = fleet_params(detector)
+    seed = 400 + 10 * FLEET.index(detector) + (0 if shift > 0 else 5)
+    steady, dropped = delays_after_burn_in(kind, dp, shift, 1000, 3000, seed, clear=False)
+    zero, _ = delays_after_burn_in(kind, dp, shift, 1000, 3000, seed + 1, clear=True)
+    report(f"fleet {detector} shift {shift:+.0f} steady state", steady.mean(), "<= 30")
+    report(f"fleet {detector} shift {shift:+.0f} zero state", zero.mean(), "<= 30")
+    assert dropped < 100
+    assert steady.mean() <= 30.0
+    assert zero.mean() <= 30.0
+
+
+# --------------------------------------------------------------------------------------
+# 5. behaviour
+# --------------------------------------------------------------------------------------
+
+
+def feed(kind: int, dp: np.ndarray, ds: np.ndarray, values: Any) -> None:
+    for v in np.atleast_1d(np.asarray(values, dtype=float)):
+        drift.detector_update(kind, dp, ds, float(v))
+
+
+def settled_state(kind: int, dp: np.ndarray) -> np.ndarray:
+    """A state after 2,000 exact zeros: statistics 0, Page-Hinkley mean 0 and settled."""
+    ds = drift.new_detector_state()
+    drift.first_reach(kind, dp, ds, np.zeros(2000), 3)  # level 3 is never reached
+    assert ds[4] == 0
+    return ds
+
+
+@pytest.mark.parametrize("detector", FLEET)
+@pytest.mark.parametrize("sign", [1.0, -1.0], ids=["up", "down"])
+def test_alarm_latches(detector: str, sign: float) -> None:
+    """An alarm stays latched after the statistic falls back below both thresholds."""
+    kind, dp = fleet_params(detector)
+    ds = settled_state(kind, dp)
+    i = drift.first_reach(kind, dp, ds, np.full(200, 3.0 * sign), 2)
+    assert i >= 0 and ds[4] == 2
+    feed(kind, dp, ds, np.zeros(500))
+    assert drift.detector_statistic(kind, dp, ds) < dp[1]  # below the warning level
+    assert ds[4] == 2
+
+
+@pytest.mark.parametrize("detector", FLEET)
+@pytest.mark.parametrize("sign", [1.0, -1.0], ids=["up", "down"])
+def test_warning_follows_the_statistic(detector: str, sign: float) -> None:
+    """A warning is raised when the statistic passes the warning level and cleared as
+    soon as it is back at or below it (no latching), as long as no alarm was raised."""
+    kind, dp = fleet_params(detector)
+    ds = settled_state(kind, dp)
+    i = drift.first_reach(kind, dp, ds, np.full(200, 2.0 * sign), 1)
+    assert i >= 0
+    assert ds[4] == 1
+    stat = drift.detector_statistic(kind, dp, ds)
+    assert dp[1] < stat <= dp[2]
+    n = 0
+    while drift.detector_statistic(kind, dp, ds) > dp[1]:
+        assert ds[4] == 1
+        feed(kind, dp, ds, 0.0)
+        n += 1
+        assert n < 1000
+    assert ds[4] == 0
+
+
+@pytest.mark.parametrize("detector", FLEET)
+def test_single_outlier_clipped(detector: str) -> None:
+    """One 50 s.d. reading from any in-control state (state ok) does not raise an alarm
+    with the default clip of 4 s.d.; with clip 0 it does. Checked at 150 points of a
+    seeded in-control stream, both signs."""
+    kind, dp = fleet_params(detector)
+    dp0 = dp.copy()
+    dp0[3] = 0.0
+    z = np.random.default_rng(501 + FLEET.index(detector)).standard_normal(30_000)
+    for p, label in ((dp, "clip 4"), (dp0, "clip 0")):
+        ds = drift.new_detector_state()
+        checked = 0
+        for start in range(0, z.size, 200):
+            drift.first_reach(kind, p, ds, z[start : start + 200], 3)
+            if ds[4] == 2:  # an in-control false alarm: restart like run_lengths
+                ds[0] = ds[1] = ds[4] = 0.0
+            if ds[4] != 0:
+                continue
+            for outlier in (50.0, -50.0):
+                trial = ds.copy()
+                drift.detector_update(kind, p, trial, outlier)
+                if label == "clip 4":
+                    assert trial[4] < 2, (detector, start, outlier)
+                else:
+                    assert trial[4] == 2, (detector, start, outlier)
+            checked += 1
+        assert checked >= 100, label
+
+
+@pytest.mark.parametrize("detector", FLEET)
+def test_deterministic_for_a_seed(detector: str) -> None:
+    """Same seed -> identical run lengths and statistic paths; another seed differs."""
+    kind, dp = fleet_params(detector)
+
+    def run(seed: int) -> tuple[np.ndarray, int, np.ndarray]:
+        z = np.random.default_rng(seed).standard_normal(200_000)
+        r, tail = drift.run_lengths(kind, dp, z, 1, 10_000)
+        ds = drift.new_detector_state()
+        path = np.array([drift.detector_update(kind, dp, ds, float(v)) for v in z[:2000]])
+        return r, tail, path
+
+    a, b, c = run(7), run(7), run(8)
+    assert np.array_equal(a[0], b[0]) and a[1] == b[1] and np.array_equal(a[2], b[2])
+    assert a[0].size > 50
+    assert not np.array_equal(a[2], c[2])
