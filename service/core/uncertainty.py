@@ -22,5 +22,5 @@ def standard_uncertainty(Phi: Array, s2: float, P: Array | None) -> Array:
         return np.full(n, np.nan)
     if P is None:
         return np.full(n, np.sqrt(s2))
-    quad = np.einsum("ij,jk,ik->i", Phi, P, Phi)
+    quad = ((Phi @ P) * Phi).sum(axis=1)
     return np.asarray(np.sqrt(s2 * (1.0 + np.maximum(quad, 0.0))))
