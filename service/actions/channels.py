@@ -10,16 +10,10 @@ from ..core import ChannelModel, ConfigError
 from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidRequest
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
+from .models import read_model, save_model, summary_columns, write_model
 from .paging import Page, decode_cursor, encode_cursor
 
 STATES = {"ok", "warning", "alarm", "out_of_tolerance"}
-
-
-def summary_columns(model: ChannelModel) -> dict[str, Any]:
-    """The denormalised summary the list filters use, from a model."""
-    s = model.summary()
-    return {"drift_state": s["drift"]["state"], "tolerance_state": s["drift"]["tolerance_state"],
-            "rmse": s["rmse"]}
 
 
 def load(repo: Repository, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState]:
@@ -29,9 +23,8 @@ def load(repo: Repository, channel_id: str, *, lock: bool = False) -> tuple[Chan
     return found
 
 
-def view(ch: Channel, st: ChannelState, model: ChannelModel | None = None) -> dict[str, Any]:
+def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
     """Config plus summary, as ``GET /v1/channels/{id}`` answers it."""
-    model = model or ChannelModel.from_state(st.model_state)
     s = model.summary()
     out = dict(ch.config)
     out.update({
@@ -70,7 +63,7 @@ def create(repo: Repository, body: dict[str, Any], key_id: str) -> dict[str, Any
 
 def get(repo: Repository, channel_id: str) -> dict[str, Any]:
     ch, st = load(repo, channel_id)
-    return view(ch, st)
+    return view(ch, st, read_model(repo, st))
 
 
 def list_(repo: Repository, *, prefix: str | None, state: str | None, cursor: str | None,
@@ -79,14 +72,14 @@ def list_(repo: Repository, *, prefix: str | None, state: str | None, cursor: st
         raise InvalidRequest(f"state must be one of {', '.join(sorted(STATES))}", details={"field": "state"})
     after = decode_cursor(cursor)
     rows = repo.list_channels(prefix=prefix, state=state, after_pk=after, limit=limit + 1)
-    items = [view(ch, st) for ch, st in rows[:limit]]
+    items = [view(ch, st, read_model(repo, st)) for ch, st in rows[:limit]]
     nxt = encode_cursor(rows[limit - 1][0].pk) if len(rows) > limit else None
     return Page(items, nxt)
 
 
 def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: str) -> dict[str, Any]:
     ch, st = load(repo, channel_id, lock=True)
-    model = ChannelModel.from_state(st.model_state)
+    model = write_model(repo, st)
     merged = dict(changes)
     for section, kind_key in (("learner", "kind"), ("drift", "detector")):
         if isinstance(changes.get(section), dict):
@@ -102,9 +95,8 @@ def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: st
             raise ImmutableField(exc.message) from exc
         raise InvalidRequest(exc.message, details={"field": exc.field}) from exc
     version = st.version + 1
-    state = updated.to_state()
     repo.save_config(ch, updated.config)
-    repo.save_state(st, model_state=state, version=version, **summary_columns(updated))
+    save_model(repo, st, updated, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes}}])
     return view(ch, st, updated)

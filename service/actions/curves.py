@@ -11,7 +11,8 @@ import numpy as np
 from ..core import ChannelModel, FitError, InputError
 from ..errors import InvalidRequest, PayloadTooLarge, SnapshotNotFound
 from ..store import Repository
-from .channels import load, summary_columns
+from .channels import load
+from .models import read_model, save_model, write_model
 
 HISTORY_LIMIT = 1_000_000
 
@@ -23,7 +24,7 @@ def _floats(a: np.ndarray) -> list[float | None]:
 def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
     ch, st = load(repo, channel_id)
     if snapshot is None:
-        return ChannelModel.from_state(st.model_state), st.version
+        return read_model(repo, st), st.version
     snap = repo.get_snapshot(ch.pk, snapshot)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
@@ -58,7 +59,7 @@ def predict(repo: Repository, channel_id: str, x: list[Any], snapshot: int | Non
 
 def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
     ch, st = load(repo, channel_id)
-    model = ChannelModel.from_state(st.model_state)
+    model = read_model(repo, st)
     grid = model.scaler.grid(points)
     y, u = model.predict(grid)
     k = model.config["coverage_factor"]
@@ -83,7 +84,7 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None) -> dict[str, Any]:
     ch, st = load(repo, channel_id, lock=True)
-    model = ChannelModel.from_state(st.model_state)
+    model = write_model(repo, st)
     d = len(model.config["inputs"])
     xs: list[list[float]] = []
     ys: list[float] = []
@@ -116,7 +117,7 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
     state = model.to_state()
     after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, model_state=state,
                                  version=version, n_samples=st.n_samples)
-    repo.save_state(st, model_state=state, version=version, **summary_columns(model))
+    save_model(repo, st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
                          "details": {"label": label, "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],

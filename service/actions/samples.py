@@ -14,7 +14,8 @@ from ..core import ChannelModel, InputError, LearnResult
 from ..errors import InvalidRequest
 from ..store import Repository
 from ..store.tables import Channel, ChannelState, utcnow
-from .channels import load, summary_columns
+from .channels import load
+from .models import save_model, write_model
 from .paging import Page, decode_cursor, encode_cursor
 
 
@@ -44,13 +45,13 @@ def _learn_with_alarm_snapshot(model: ChannelModel, X: np.ndarray, y: np.ndarray
                                ) -> tuple[ChannelModel, LearnResult, list[tuple[int, dict[str, Any]]]]:
     """Learn a segment; when it raises a drift alarm, keep the state from just before the
     sample that raised it (the last curve not yet pulled by the drift)."""
-    pre = model.to_state() if model.summary()["drift"]["state"] != "alarm" else None
+    pre = model.copy() if model.s.ds[4] < 2 else None
     res = model.learn(X, y)
     alarm = next((e["index"] for e in res.events if e["kind"] == "drift_alarm"), None)
     if pre is None or alarm is None:
         return model, res, []
     # learning is deterministic and split-invariant: redo the segment in two parts
-    again = ChannelModel.from_state(pre)
+    again = pre
     first = again.learn(X[:alarm], y[:alarm])
     snap = again.to_state()
     second = again.learn(X[alarm:], y[alarm:])
@@ -84,7 +85,7 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
                 continue
             seen.add(s.seq)
         keep.append(i)
-    model = ChannelModel.from_state(st.model_state)
+    model = write_model(repo, st)
     d = len(model.config["inputs"])
     for i in keep:
         if len(samples[i].x) != d:
@@ -143,13 +144,11 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     n_kept = len(keep)
     rejected = [{"index": i, "reason": status[k]} for k, i in enumerate(keep) if status[k] != "accepted"]
     summary = model.summary()
-    values: dict[str, Any] = {"model_state": model.to_state(), "version": v0 + n_kept,
-                              "n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected),
-                              **summary_columns(model)}
+    values: dict[str, Any] = {"n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected)}
     if rows:
         latest = max(r["t"] for r in rows)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
-    repo.save_state(st, **values)
+    save_model(repo, st, model, v0 + n_kept, **values)
     per_request: list[float | None] = [None] * len(samples)
     for k, i in enumerate(keep):
         r = float(resid[k])

@@ -10,7 +10,8 @@ from ..core import ChannelModel
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
-from .channels import load, summary_columns, view
+from .channels import load, view
+from .models import read_model, save_model
 from .paging import Page, decode_cursor, encode_cursor
 
 
@@ -21,7 +22,7 @@ def _item(snap: Snapshot) -> dict[str, Any]:
 
 def take(repo: Repository, channel_id: str, label: str | None, key_id: str | None) -> dict[str, Any]:
     ch, st = load(repo, channel_id, lock=True)
-    snap = repo.insert_snapshot(ch.pk, reason="manual", label=label, model_state=st.model_state,
+    snap = repo.insert_snapshot(ch.pk, reason="manual", label=label, model_state=repo.model_state(ch.pk),
                                 version=st.version, n_samples=st.n_samples)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "snapshot", "version": st.version, "key_id": key_id,
                          "details": {"snapshot": snap.pk, "reason": "manual", "label": label}}])
@@ -40,7 +41,7 @@ def get(repo: Repository, channel_id: str, snapshot_id: int) -> dict[str, Any]:
     snap = repo.get_snapshot(ch.pk, snapshot_id)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
-    current = ChannelModel.from_state(st.model_state)
+    current = read_model(repo, st)
     old = ChannelModel.from_state(snap.model_state)
     summary = old.summary()
     out = _item(snap)
@@ -62,14 +63,14 @@ def rollback(repo: Repository, channel_id: str, snapshot_id: int, key_id: str | 
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
     before = repo.insert_snapshot(ch.pk, reason="before-rollback", label=f"before rollback to {snapshot_id}",
-                                  model_state=st.model_state, version=st.version, n_samples=st.n_samples)
+                                  model_state=repo.model_state(ch.pk), version=st.version,
+                                  n_samples=st.n_samples)
     model = ChannelModel.from_state(snap.model_state)
     model.set_reference()
     model.reset_drift()
     version = st.version + 1
-    state = model.to_state()
     repo.save_config(ch, model.config)
-    repo.save_state(st, model_state=state, version=version, **summary_columns(model))
+    save_model(repo, st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk}}])
     out = view(ch, st, model)

@@ -8,6 +8,7 @@ from threading import Lock
 from typing import Annotated
 
 from fastapi import Depends, Header, Request
+from starlette.concurrency import run_in_threadpool
 
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
@@ -51,7 +52,7 @@ class AppContext:
     keys: KeyCache
 
 
-def context(request: Request) -> AppContext:
+async def context(request: Request) -> AppContext:
     ctx: AppContext = request.app.state.ctx
     return ctx
 
@@ -59,7 +60,8 @@ def context(request: Request) -> AppContext:
 Ctx = Annotated[AppContext, Depends(context)]
 
 
-def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
+def lookup_key(ctx: AppContext, authorization: str | None) -> Principal:
+    """The caller's key, from the cache or the store; raises ``Unauthorized``."""
     digest = None
     if authorization:
         _, _, secret = authorization.partition(" ")
@@ -72,6 +74,16 @@ def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -
     if digest is not None:
         ctx.keys.put(digest, who)
     return who
+
+
+async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
+    # async, so a cached key costs no trip through the thread pool
+    if authorization:
+        _, _, secret = authorization.partition(" ")
+        hit = ctx.keys.get(hash_secret(secret.strip()))
+        if hit is not None:
+            return hit
+    return await run_in_threadpool(lookup_key, ctx, authorization)
 
 
 Who = Annotated[Principal, Depends(principal)]

@@ -9,10 +9,12 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 
 from ..core import CoreError
 from ..errors import ServiceError, StoreBusy
+from .deps import lookup_key
 
 log = logging.getLogger("curvekeeper.api")
 
@@ -50,7 +52,13 @@ def install(app: FastAPI) -> None:
         return error_response(422, exc.code, exc.message, {"field": exc.field})
 
     @app.exception_handler(RequestValidationError)
-    async def _validation(_: Request, exc: RequestValidationError) -> JSONResponse:
+    async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
+        # a caller without a valid key learns nothing about the body: 401 comes first
+        if request.url.path.startswith("/v1/"):
+            try:
+                await run_in_threadpool(lookup_key, request.app.state.ctx, request.headers.get("authorization"))
+            except ServiceError as denied:
+                return error_response(denied.status, denied.code, denied.message, denied.details)
         errors = _clean(list(exc.errors()))
         if any(e["type"] == "json_invalid" for e in errors):
             return error_response(400, "malformed_json", "the request body is not valid JSON", errors)

@@ -93,6 +93,13 @@ class ChannelModel:
         ms = ModelState.from_dict(state)
         return cls(normalize_config(state.get("config")), ms)
 
+    def copy(self) -> ChannelModel:
+        """An independent copy of the learned state sharing the (immutable) settings."""
+        other = object.__new__(ChannelModel)
+        other.__dict__.update(self.__dict__)
+        other.s = self.s.copy()
+        return other
+
     def to_state(self) -> dict[str, Any]:
         """The whole model as JSON-safe plain types (config included)."""
         return self.s.to_dict(self.config)

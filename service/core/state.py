@@ -47,6 +47,11 @@ class ModelState:
         st[ST_SCALE] = 1.0
         return cls(np.zeros(size), None, None, st, np.zeros(DS_SIZE), 0, None, None)
 
+    def copy(self) -> ModelState:
+        return ModelState(self.w.copy(), None if self.w_ref is None else self.w_ref.copy(),
+                          None if self.cov is None else self.cov.copy(), self.st.copy(), self.ds.copy(),
+                          self.n_samples, self.tolerance_state, self.max_curve_change)
+
     def w_ref_or_zero(self) -> Array:
         return self.w_ref if self.w_ref is not None else np.zeros_like(self.w)
 

@@ -9,6 +9,7 @@ from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
 from ..errors import StoreBusy
+from .cache import VersionCache
 from .engine import make_engine
 from .repository import Repository
 
@@ -25,12 +26,14 @@ class Store:
         self.engine = make_engine(url, busy_timeout_s=busy_timeout_s)
         self._read = sessionmaker(self.engine, expire_on_commit=False)
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
+        self.models = VersionCache()
 
     @contextmanager
     def transaction(self, *, write: bool) -> Iterator[Repository]:
         session = (self._write if write else self._read)()
         try:
-            yield Repository(session)
+            repo = Repository(session, self.models)
+            yield repo
             session.commit()
         except OperationalError as exc:
             session.rollback()
@@ -42,6 +45,8 @@ class Store:
             raise
         finally:
             session.close()
+        for fn in repo.committed:
+            fn()
 
     def dispose(self) -> None:
         self.engine.dispose()

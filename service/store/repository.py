@@ -3,20 +3,27 @@ session scope commits or rolls back the whole request at once."""
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import Select, func, insert, select
-from sqlalchemy.orm import Session
+from sqlalchemy import Select, func, insert, select, update
+from sqlalchemy.orm import Session, defer
+from sqlalchemy.orm.attributes import set_committed_value
 
+from .cache import VersionCache
 from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
 
 
 class Repository:
-    def __init__(self, session: Session) -> None:
+    """SQL for one transaction. ``cache`` holds decoded model states by (channel, version);
+    functions in ``committed`` run once the transaction has committed."""
+
+    def __init__(self, session: Session, cache: VersionCache | None = None) -> None:
         self.session = session
         self.postgres = session.get_bind().dialect.name == "postgresql"
+        self.cache = cache if cache is not None else VersionCache(0)
+        self.committed: list[Callable[[], None]] = []
 
     # channels ---------------------------------------------------------------------
     def get_channel(self, channel_id: str) -> Channel | None:
@@ -27,11 +34,18 @@ class Repository:
         (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""
         stmt = (select(Channel, ChannelState)
                 .join(ChannelState, ChannelState.channel_pk == Channel.pk)
-                .where(Channel.id == channel_id))
+                .where(Channel.id == channel_id)
+                .options(defer(ChannelState.model_state, raiseload=True)))
         if lock and self.postgres:
             stmt = stmt.with_for_update(of=ChannelState)
         row = self.session.execute(stmt).one_or_none()
         return None if row is None else (row[0], row[1])
+
+    def model_state(self, channel_pk: int) -> dict[str, Any]:
+        """The stored model state of a channel (not loaded with the channel row)."""
+        state: dict[str, Any] = self.session.scalars(
+            select(ChannelState.model_state).where(ChannelState.channel_pk == channel_pk)).one()
+        return state
 
     def create_channel(self, channel_id: str, config: dict[str, Any], model_state: dict[str, Any],
                        summary: dict[str, Any]) -> tuple[Channel, ChannelState]:
@@ -48,6 +62,7 @@ class Repository:
                       limit: int) -> list[tuple[Channel, ChannelState]]:
         stmt = (select(Channel, ChannelState)
                 .join(ChannelState, ChannelState.channel_pk == Channel.pk)
+                .options(defer(ChannelState.model_state, raiseload=True))
                 .order_by(Channel.pk).limit(limit))
         if prefix:
             stmt = stmt.where(Channel.id.startswith(prefix, autoescape=True))
@@ -60,11 +75,13 @@ class Repository:
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     def save_state(self, st: ChannelState, **values: Any) -> None:
-        """Set columns of the state row; flushed as one UPDATE."""
+        """One UPDATE of the state row; ``st`` shows the new values afterwards."""
         values["updated_at"] = utcnow()
+        table = ChannelState.__table__
+        self.session.connection().execute(
+            update(table).where(table.c.channel_pk == st.channel_pk).values(**values))
         for name, value in values.items():
-            setattr(st, name, value)
-        self.session.flush()
+            set_committed_value(st, name, value)
 
     def save_config(self, ch: Channel, config: dict[str, Any]) -> None:
         ch.config = config
@@ -82,7 +99,7 @@ class Repository:
 
     def insert_samples(self, rows: list[dict[str, Any]]) -> None:
         if rows:
-            self.session.execute(insert(Sample), rows)
+            self.session.connection().execute(insert(Sample.__table__), rows)
 
     def list_samples(self, channel_pk: int, *, after_seq: int | None, limit: int) -> Sequence[Sample]:
         stmt = select(Sample).where(Sample.channel_pk == channel_pk).order_by(Sample.seq).limit(limit)
@@ -127,7 +144,7 @@ class Repository:
     def insert_events(self, rows: Iterable[dict[str, Any]]) -> None:
         rows = [{"at": utcnow(), **r} for r in rows]
         if rows:
-            self.session.execute(insert(Event), rows)
+            self.session.connection().execute(insert(Event.__table__), rows)
 
     def list_events(self, channel_pk: int, *, kind: str | None, after_pk: int | None,
                     limit: int) -> Sequence[Event]:

@@ -7,7 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Header, Response
 
 from ...errors import StoreBusy
-from ..deps import Ctx, principal
+from ..deps import Ctx, lookup_key
 
 router = APIRouter(tags=["health"])
 
@@ -32,5 +32,5 @@ def readyz(ctx: Ctx) -> dict[str, str]:
 @router.get("/metrics", summary="Prometheus metrics", response_class=Response)
 def metrics(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Response:
     if not ctx.settings.metrics_public:
-        principal(ctx, authorization).require("technician")
+        lookup_key(ctx, authorization).require("technician")
     return Response(ctx.metrics.render(), media_type="text/plain; version=0.0.4; charset=utf-8")
