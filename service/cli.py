@@ -54,6 +54,9 @@ def cmd_keys_create(args: argparse.Namespace) -> int:
     from . import auth
     from .store import Store
 
+    if args.prefix and args.role != "device":
+        print("--prefix limits device keys only", file=sys.stderr)
+        return 2
     store = Store(_settings(args).database_url)
     try:
         with store.transaction(write=True) as repo:

@@ -94,6 +94,9 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
         xs.append(x)
         ys.append(y)
     history: dict[str, Any] | None = None
+    if not include_history and (since is not None or until is not None or last is not None):
+        raise InvalidRequest("since, until and last select stored samples: set include_history to true",
+                             details={"field": "include_history"})
     if include_history:
         rows = repo.history(ch.pk, since=since, until=until, last=last, limit=HISTORY_LIMIT + 1)
         if len(rows) > HISTORY_LIMIT:

@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from .. import auth
-from ..errors import KeyNotFound
+from ..errors import InvalidRequest, KeyNotFound
 from ..store import Repository
 from ..store.tables import ApiKey
 from .paging import Page, decode_text_cursor, encode_cursor
@@ -18,6 +18,9 @@ def _item(k: ApiKey) -> dict[str, Any]:
 
 def create(repo: Repository, *, role: str, prefixes: list[str], label: str | None, key_id: str | None
            ) -> dict[str, Any]:
+    if prefixes and role != "device":
+        raise InvalidRequest("prefixes limit device keys only; a technician or admin key has no prefixes",
+                             details={"field": "prefixes"})
     key, secret = auth.create_key(repo, role=role, prefixes=prefixes, label=label)
     repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": key_id,
                          "details": {"id": key.id, "role": role, "prefixes": prefixes, "label": label}}])

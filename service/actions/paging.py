@@ -22,7 +22,7 @@ def encode_cursor(value: int | str) -> str:
 def decode_cursor(cursor: str | None) -> int | None:
     if cursor is None:
         return None
-    raw = decode_text_cursor(cursor)
+    raw = decode_text_cursor(cursor) or ""
     try:
         return int(raw)
     except ValueError:

@@ -117,7 +117,7 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     resid = np.concatenate([r.residuals for r in results]) if results else np.empty(0)
     events = [e for r in results for e in r.events]
     alarms = sum(1 for e in events if e["kind"] == "drift_alarm")
-    rows = []
+    rows: list[dict[str, Any]] = []
     for k, i in enumerate(keep):
         s = samples[i]
         r = float(resid[k])

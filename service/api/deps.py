@@ -60,12 +60,21 @@ async def context(request: Request) -> AppContext:
 Ctx = Annotated[AppContext, Depends(context)]
 
 
+def _bearer_digest(authorization: str | None) -> str | None:
+    """The hash of a well-formed bearer secret, or None (then ``authenticate`` says why)."""
+    if not authorization:
+        return None
+    scheme, _, secret = authorization.partition(" ")
+    secret = secret.strip()
+    if scheme.lower() != "bearer" or not secret:
+        return None
+    return hash_secret(secret)
+
+
 def lookup_key(ctx: AppContext, authorization: str | None) -> Principal:
     """The caller's key, from the cache or the store; raises ``Unauthorized``."""
-    digest = None
-    if authorization:
-        _, _, secret = authorization.partition(" ")
-        digest = hash_secret(secret.strip())
+    digest = _bearer_digest(authorization)
+    if digest is not None:
         hit = ctx.keys.get(digest)
         if hit is not None:
             return hit
@@ -78,9 +87,9 @@ def lookup_key(ctx: AppContext, authorization: str | None) -> Principal:
 
 async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
     # async, so a cached key costs no trip through the thread pool
-    if authorization:
-        _, _, secret = authorization.partition(" ")
-        hit = ctx.keys.get(hash_secret(secret.strip()))
+    digest = _bearer_digest(authorization)
+    if digest is not None:
+        hit = ctx.keys.get(digest)
         if hit is not None:
             return hit
     return await run_in_threadpool(lookup_key, ctx, authorization)

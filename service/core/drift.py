@@ -99,7 +99,7 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
         b = ds[1] - z - k
         ds[0] = a if a > 0.0 else 0.0
         ds[1] = b if b > 0.0 else 0.0
-        stat = ds[0] if ds[0] > ds[1] else ds[1]
+        stat = float(ds[0] if ds[0] > ds[1] else ds[1])
     elif kind == 0:
         delta = dp[0]
         dev = z - ds[2]
@@ -111,11 +111,11 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
         if alpha < dp[4]:
             alpha = dp[4]
         ds[2] += alpha * (z - ds[2])
-        stat = ds[0] if ds[0] > ds[1] else ds[1]
+        stat = float(ds[0] if ds[0] > ds[1] else ds[1])
     else:
         lam = dp[0]
         ds[0] = lam * z + (1.0 - lam) * ds[0]
-        stat = abs(ds[0]) / np.sqrt(lam / (2.0 - lam))
+        stat = float(abs(ds[0]) / np.sqrt(lam / (2.0 - lam)))
     if ds[4] < 2.0:
         if stat > dp[2]:
             ds[4] = 2.0
@@ -130,8 +130,8 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
 def detector_statistic(kind: int, dp: Any, ds: Any) -> float:
     """The current statistic of a detector state, without an update."""
     if kind == 2:
-        return abs(ds[0]) / np.sqrt(dp[0] / (2.0 - dp[0]))
-    return ds[0] if ds[0] > ds[1] else ds[1]
+        return float(abs(ds[0]) / np.sqrt(dp[0] / (2.0 - dp[0])))
+    return float(ds[0] if ds[0] > ds[1] else ds[1])
 
 
 @njit(cache=True)

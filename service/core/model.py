@@ -22,8 +22,25 @@ from .config import normalize_config
 from .drift import STATES, detector_params, detector_statistic
 from .errors import ConfigError, InputError
 from .learners import (
-    ACCEPTED, GUARD, IP_SIZE, LEARNERS, LP_ALPHA, LP_FORGET, LP_HUBER, LP_L2, LP_OFFSET,
-    LP_OUTLIER, LP_P0, LP_SIZE, LP_WARMUP, ST_OMS, ST_ON, ST_RN, ST_RVAR, ST_SCALE, ST_T,
+    ACCEPTED,
+    GUARD,
+    IP_SIZE,
+    LEARNERS,
+    LP_ALPHA,
+    LP_FORGET,
+    LP_HUBER,
+    LP_L2,
+    LP_OFFSET,
+    LP_OUTLIER,
+    LP_P0,
+    LP_SIZE,
+    LP_WARMUP,
+    ST_OMS,
+    ST_ON,
+    ST_RN,
+    ST_RVAR,
+    ST_SCALE,
+    ST_T,
     learn_batch,
 )
 from .lstsq import fit_least_squares

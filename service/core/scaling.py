@@ -62,11 +62,12 @@ class InputScaler:
 
     def scale(self, X: Array) -> Array:
         """Scaled inputs, (n, d); values outside the range fall outside [-1, 1]."""
-        return X * self.a + self.b
+        return np.asarray(X * self.a + self.b, dtype=np.float64)
 
     def out_of_range(self, X: Array) -> NDArray[np.bool_]:
         """(n,) True where any input lies outside its declared [min, max]."""
-        return ((X < self.lo) | (X > self.hi)).any(axis=1)
+        flags: NDArray[np.bool_] = np.asarray(((self.lo > X) | (self.hi < X)).any(axis=1), dtype=np.bool_)
+        return flags
 
     def grid(self, points: int) -> Array:
         """A grid over the declared ranges, (g, d): ``points`` per input for one input,

@@ -43,9 +43,9 @@ def schedule_params(cfg: dict[str, Any]) -> tuple[int, NDArray[np.float64]]:
 def eta_at(kind: int, sp: Any, t: float, nrm2: float) -> float:
     """Learning rate for step number t (0-based) with |phi|^2 = nrm2."""
     if kind == 0:
-        return sp[SP_ETA0]
+        return float(sp[SP_ETA0])
     if kind == 1:
-        return sp[SP_ETA0] / (1.0 + t / sp[SP_TAU]) ** sp[SP_POWER]
+        return float(sp[SP_ETA0] / (1.0 + t / sp[SP_TAU]) ** sp[SP_POWER])
     if kind == 2:
-        return sp[SP_ETA0] * sp[SP_GAMMA] ** math.floor(t / sp[SP_EVERY])
-    return sp[SP_MU] / (sp[SP_EPS] + nrm2)
+        return float(sp[SP_ETA0] * sp[SP_GAMMA] ** math.floor(t / sp[SP_EVERY]))
+    return float(sp[SP_MU] / (sp[SP_EPS] + nrm2))

@@ -5,14 +5,18 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Sequence
 from datetime import datetime
-from typing import Any
+from typing import Any, cast
 
-from sqlalchemy import Select, func, insert, select, update
+from sqlalchemy import Table, func, insert, select, update
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
 from .cache import VersionCache
 from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
+
+STATE_T = cast(Table, ChannelState.__table__)
+SAMPLE_T = cast(Table, Sample.__table__)
+EVENT_T = cast(Table, Event.__table__)
 
 
 class Repository:
@@ -77,9 +81,8 @@ class Repository:
     def save_state(self, st: ChannelState, **values: Any) -> None:
         """One UPDATE of the state row; ``st`` shows the new values afterwards."""
         values["updated_at"] = utcnow()
-        table = ChannelState.__table__
         self.session.connection().execute(
-            update(table).where(table.c.channel_pk == st.channel_pk).values(**values))
+            update(STATE_T).where(STATE_T.c.channel_pk == st.channel_pk).values(**values))
         for name, value in values.items():
             set_committed_value(st, name, value)
 
@@ -99,7 +102,7 @@ class Repository:
 
     def insert_samples(self, rows: list[dict[str, Any]]) -> None:
         if rows:
-            self.session.connection().execute(insert(Sample.__table__), rows)
+            self.session.connection().execute(insert(SAMPLE_T), rows)
 
     def list_samples(self, channel_pk: int, *, after_seq: int | None, limit: int) -> Sequence[Sample]:
         stmt = select(Sample).where(Sample.channel_pk == channel_pk).order_by(Sample.seq).limit(limit)
@@ -110,16 +113,15 @@ class Repository:
     def history(self, channel_pk: int, *, since: datetime | None, until: datetime | None,
                 last: int | None, limit: int) -> Sequence[Sample]:
         """Accepted samples for a fit, oldest first; ``last`` keeps only the newest N."""
-        stmt: Select[tuple[Sample]] = select(Sample).where(Sample.channel_pk == channel_pk,
-                                                           Sample.accepted.is_(True))
+        stmt = select(Sample).where(Sample.channel_pk == channel_pk, Sample.accepted.is_(True))
         if since is not None:
             stmt = stmt.where(Sample.t >= since)
         if until is not None:
             stmt = stmt.where(Sample.t <= until)
         if last is not None:
-            rows = list(self.session.scalars(stmt.order_by(Sample.seq.desc()).limit(last)))
-            return rows[::-1]
-        return self.session.scalars(stmt.order_by(Sample.seq).limit(limit)).all()
+            newest = list(self.session.scalars(stmt.order_by(Sample.seq.desc()).limit(last)))
+            return newest[::-1]
+        return list(self.session.scalars(stmt.order_by(Sample.seq).limit(limit)))
 
     # snapshots ----------------------------------------------------------------------
     def insert_snapshot(self, channel_pk: int, *, reason: str, label: str | None,
@@ -144,7 +146,7 @@ class Repository:
     def insert_events(self, rows: Iterable[dict[str, Any]]) -> None:
         rows = [{"at": utcnow(), **r} for r in rows]
         if rows:
-            self.session.connection().execute(insert(Event.__table__), rows)
+            self.session.connection().execute(insert(EVENT_T), rows)
 
     def list_events(self, channel_pk: int, *, kind: str | None, after_pk: int | None,
                     limit: int) -> Sequence[Event]:

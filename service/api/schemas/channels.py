@@ -3,13 +3,13 @@ which names the field and says why a value is wrong."""
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, cast
 
 from pydantic import BaseModel, ConfigDict, Field
 
 from .common import ChannelId, Label
 
-EXAMPLE = {
+EXAMPLE: dict[str, Any] = {
     "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
     "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
     "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
@@ -21,7 +21,7 @@ EXAMPLE = {
 
 
 class ChannelCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [EXAMPLE]})
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [cast(Any, EXAMPLE)]})
 
     id: ChannelId
     description: Label | None = None
