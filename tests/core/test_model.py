@@ -313,3 +313,15 @@ def test_with_settings_keeps_the_learned_curve_and_refuses_the_basis() -> None:
     with pytest.raises(ConfigError) as err:
         m.with_settings({"basis": {"kind": "poly", "degree": 3}})
     assert err.value.field == "immutable"
+
+
+def test_detectors_and_gate_wait_for_the_warmup() -> None:
+    # the residual s.d. estimate needs 30 accepted samples before it standardises anything
+    x, y = quadratic_stream(22, 60)
+    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    res = m.learn(x[:29], y[:29])
+    assert np.all(res.drift_statistic == 0.0)
+    assert not m.summary()["warmed_up"]
+    res = m.learn(x[29:], y[29:])
+    assert m.summary()["warmed_up"]
+    assert res.drift_statistic[0] == 0.0 and np.any(res.drift_statistic[2:] > 0.0)
