@@ -98,5 +98,5 @@ def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: st
     repo.save_config(ch, updated.config)
     save_model(repo, st, updated, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
-                         "key_id": key_id, "details": {"changes": changes}}])
+                         "key_id": key_id, "details": {"changes": changes, "config": updated.config}}])
     return view(ch, st, updated)

@@ -98,12 +98,13 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
         raise InvalidRequest("since, until and last select stored samples: set include_history to true",
                              details={"field": "include_history"})
     if include_history:
-        rows = repo.history(ch.pk, since=since, until=until, last=last, limit=HISTORY_LIMIT + 1)
+        rows = repo.history(ch.pk, since=since, until=until, last=last, max_seq=st.n_samples,
+                            limit=HISTORY_LIMIT + 1)
         if len(rows) > HISTORY_LIMIT:
             raise PayloadTooLarge(f"more than {HISTORY_LIMIT} stored samples match; narrow the window")
         xs.extend(r.x for r in rows)
         ys.extend(r.y for r in rows)
-        history = {"n": len(rows), "seqs": [r.seq for r in rows] if len(rows) <= 100_000 else None,
+        history = {"n": len(rows), "max_seq": st.n_samples,
                    "since": since.isoformat() if since else None,
                    "until": until.isoformat() if until else None, "last": last}
     if not xs:

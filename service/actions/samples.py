@@ -122,7 +122,7 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
         s = samples[i]
         r = float(resid[k])
         rows.append({
-            "channel_pk": ch.pk, "seq": n0 + k + 1, "source": source,
+            "channel_pk": ch.pk, "seq": n0 + k + 1, "version": v0 + k + 1, "source": source,
             "source_seq": s.seq if source is not None else None, "t": s.t or now, "received_at": now,
             "x": samples[i].x, "y": s.y, "residual": r if math.isfinite(r) else None,
             "accepted": status[k] == "accepted", "reason": None if status[k] == "accepted" else status[k],

@@ -111,9 +111,11 @@ class Repository:
         return self.session.scalars(stmt).all()
 
     def history(self, channel_pk: int, *, since: datetime | None, until: datetime | None,
-                last: int | None, limit: int) -> Sequence[Sample]:
-        """Accepted samples for a fit, oldest first; ``last`` keeps only the newest N."""
-        stmt = select(Sample).where(Sample.channel_pk == channel_pk, Sample.accepted.is_(True))
+                last: int | None, max_seq: int, limit: int) -> Sequence[Sample]:
+        """Accepted samples up to ``max_seq`` for a fit, oldest first; ``last`` keeps only
+        the newest N. Samples are append-only, so the same arguments give the same rows."""
+        stmt = select(Sample).where(Sample.channel_pk == channel_pk, Sample.accepted.is_(True),
+                                    Sample.seq <= max_seq)
         if since is not None:
             stmt = stmt.where(Sample.t >= since)
         if until is not None:

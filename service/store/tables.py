@@ -92,7 +92,8 @@ class ChannelState(Base):
 
 
 class Sample(Base):
-    """One stored sample; ``seq`` is the channel's server sequence number (1, 2, ...)."""
+    """One stored sample; ``seq`` is the channel's server sequence number (1, 2, ...) and
+    ``version`` the channel's version once the sample was learned (for replay)."""
 
     __tablename__ = "sample"
     __table_args__ = (
@@ -103,6 +104,7 @@ class Sample(Base):
     pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
     channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"))
     seq: Mapped[int] = mapped_column(BigInteger)
+    version: Mapped[int] = mapped_column(BigInteger)
     source: Mapped[str | None] = mapped_column(String(128), nullable=True)
     source_seq: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
     t: Mapped[datetime] = mapped_column(UTCDateTime)

@@ -790,7 +790,7 @@ def test_calibrate_with_history(client: TestClient, keys: Keys, make_channel: An
     ).json()
     hist = [e["details"]["history"] for e in events["items"]]
     assert [h["n"] for h in hist] == [40, 15, 10]
-    assert hist[2]["seqs"] == list(range(31, 41)) and hist[2]["last"] == 10
+    assert hist[2]["max_seq"] == 40 and hist[2]["last"] == 10
 
 
 def test_calibrate_with_history_in_a_time_window(

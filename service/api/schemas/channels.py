@@ -30,9 +30,10 @@ class ChannelCreate(BaseModel):
     basis: dict[str, Any] | None = None
     learner: dict[str, Any] | None = None
     drift: dict[str, Any] | None = None
-    outlier_sd: float | None = 6.0
-    snapshot_every: int | None = 1000
-    coverage_factor: float = 2.0
+    # numbers are checked by the core, which refuses booleans and says why
+    outlier_sd: Any = Field(6.0, description="residual s.d. beyond which a sample is not learned; null: off")
+    snapshot_every: Any = Field(1000, description="take a snapshot every N samples; null: off")
+    coverage_factor: Any = Field(2.0, description="k of the expanded uncertainty k*u")
 
 
 class ChannelUpdate(BaseModel):
@@ -44,9 +45,9 @@ class ChannelUpdate(BaseModel):
     description: Label | None = None
     learner: dict[str, Any] | None = None
     drift: dict[str, Any] | None = None
-    outlier_sd: float | None = None
-    snapshot_every: int | None = None
-    coverage_factor: float | None = None
+    outlier_sd: Any = None
+    snapshot_every: Any = None
+    coverage_factor: Any = None
     inputs: Any = None
     output: Any = None
     basis: Any = None
