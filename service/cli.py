@@ -71,6 +71,82 @@ def cmd_keys_create(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_db_upgrade(args: argparse.Namespace) -> int:
+    from .store import migrate
+    from .store.engine import make_engine
+
+    engine = make_engine(_settings(args).database_url)
+    try:
+        before = migrate.current_revision(engine)
+        migrate.upgrade(engine)
+        print(f"schema at revision {migrate.current_revision(engine)} (was {before or 'empty'})")
+    finally:
+        engine.dispose()
+    return 0
+
+
+def cmd_db_backup(args: argparse.Namespace) -> int:
+    import sqlite3
+    from pathlib import Path
+
+    from sqlalchemy.engine import make_url
+
+    url = make_url(_settings(args).database_url)
+    if url.get_backend_name() != "sqlite" or not url.database:
+        print("db backup copies SQLite stores; back up PostgreSQL with pg_dump (see the README)", file=sys.stderr)
+        return 2
+    target = Path(args.path)
+    if target.exists():
+        print(f"{target} exists; choose a new path", file=sys.stderr)
+        return 2
+    src = sqlite3.connect(f"file:{url.database}?mode=ro", uri=True)
+    dst = sqlite3.connect(target)
+    try:
+        # SQLite's online backup: a consistent copy while the service keeps writing
+        src.backup(dst, pages=1024)
+        ok = dst.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        dst.close()
+        src.close()
+    print(f"backup of {url.database} written to {target} (integrity: {ok})")
+    return 0 if ok == "ok" else 1
+
+
+def cmd_replay(args: argparse.Namespace) -> int:
+    from tqdm import tqdm
+
+    from .actions.replay import replay
+    from .errors import ServiceError
+    from .store import Store
+
+    store = Store(_settings(args).database_url)
+    try:
+        with store.transaction(write=False) as repo, tqdm(unit="sample", desc=args.channel,
+                                                          disable=args.quiet or None) as bar:
+            report = replay(repo, args.channel, from_snapshot=args.from_snapshot, check=args.check,
+                            progress=bar.update)
+    except ServiceError as exc:
+        print(f"replay: {exc.message}", file=sys.stderr)
+        return 2
+    finally:
+        store.dispose()
+    print(f"{report.channel}: replayed {report.replayed_samples} samples and {report.replayed_events} "
+          f"state changes from version {report.start_version} to {report.version}")
+    if args.check:
+        if report.matches:
+            print("check: the replayed state equals the stored state, bit for bit")
+            return 0
+        print("check: MISMATCH", file=sys.stderr)
+        for line in report.mismatches:
+            print(f"  {line}", file=sys.stderr)
+        return 1
+    if args.output:
+        from pathlib import Path
+
+        Path(args.output).write_text(json.dumps(report.state))
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="curvekeeper", description="Online calibration service for sensor fleets.")
     sub = p.add_subparsers(dest="command", required=True)
@@ -90,6 +166,25 @@ def build_parser() -> argparse.ArgumentParser:
     create.add_argument("--label", help="what the key is for")
     create.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
     create.set_defaults(func=cmd_keys_create)
+
+    db = sub.add_parser("db", help="store maintenance")
+    db_sub = db.add_subparsers(dest="db_command", required=True)
+    up = db_sub.add_parser("upgrade", help="bring the store's schema to this version (migrations)")
+    up.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
+    up.set_defaults(func=cmd_db_upgrade)
+    backup = db_sub.add_parser("backup", help="consistent online copy of a SQLite store")
+    backup.add_argument("path", help="file to write (must not exist)")
+    backup.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
+    backup.set_defaults(func=cmd_db_backup)
+
+    rp = sub.add_parser("replay", help="rebuild a channel's state from its log; --check compares it")
+    rp.add_argument("channel")
+    rp.add_argument("--from-snapshot", type=int, help="start from this snapshot instead of the creation")
+    rp.add_argument("--check", action="store_true", help="compare with the stored state; exit 1 on a mismatch")
+    rp.add_argument("--output", help="write the replayed state (JSON) to this file")
+    rp.add_argument("--quiet", action="store_true", help="no progress bar")
+    rp.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
+    rp.set_defaults(func=cmd_replay)
     return p
 
 

@@ -1,25 +1,79 @@
-"""Shared fixtures: a fresh SQLite store per test, an app with an admin key, keys by role."""
+"""Shared fixtures: a fresh store per test (SQLite, and PostgreSQL when
+``CURVEKEEPER_TEST_DATABASE_URL`` names a server), an app with an admin key, keys by role."""
 
 from __future__ import annotations
 
+import os
+import shutil
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 from fastapi.testclient import TestClient
-from sqlalchemy import func, select
+from sqlalchemy import create_engine, func, select, text
 
 from service.api import create_app
 from service.config import Settings
-from service.store.tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot
+from service.store import migrate
+from service.store.engine import make_engine
+from service.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
 
 ADMIN_SECRET = "ck_test-admin-secret-0123456789abcdef"
+PG_URL = os.environ.get("CURVEKEEPER_TEST_DATABASE_URL")
+NO_PG = ("PostgreSQL tests need CURVEKEEPER_TEST_DATABASE_URL pointing at a server "
+         "(.ci/run starts the local one and sets it)")
+
+
+@pytest.fixture(scope="session")
+def sqlite_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """An empty store made by the migrations once; each test gets a copy."""
+    path = tmp_path_factory.mktemp("template") / "store.db"
+    engine = make_engine(f"sqlite:///{path}")
+    migrate.upgrade(engine)
+    with engine.connect() as conn:
+        conn.exec_driver_sql("PRAGMA wal_checkpoint(TRUNCATE)")
+    engine.dispose()
+    return path
+
+
+@pytest.fixture(scope="session")
+def postgres_url() -> Iterator[str]:
+    """The test server's database, emptied and migrated once per session."""
+    if not PG_URL:
+        pytest.skip(NO_PG)
+    engine = create_engine(PG_URL)
+    with engine.begin() as conn:
+        conn.execute(text("DROP SCHEMA public CASCADE"))
+        conn.execute(text("CREATE SCHEMA public"))
+    migrate.upgrade(engine)
+    engine.dispose()
+    yield PG_URL
+
+
+def empty_postgres(url: str) -> None:
+    engine = create_engine(url)
+    with engine.begin() as conn:
+        names = ", ".join(t.name for t in Base.metadata.sorted_tables)
+        conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+    engine.dispose()
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def database_url(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template: Path) -> str:
+    """A fresh, migrated store for one test, on each backend."""
+    if request.param == "sqlite":
+        path = tmp_path / "store.db"
+        shutil.copyfile(sqlite_template, path)
+        return f"sqlite:///{path}"
+    url: str = request.getfixturevalue("postgres_url")
+    empty_postgres(url)
+    return url
 
 
 @pytest.fixture
-def settings(tmp_path: Path) -> Settings:
-    return Settings(database_url=f"sqlite:///{tmp_path / 'store.db'}", admin_key=ADMIN_SECRET)
+def settings(database_url: str) -> Settings:
+    return Settings(database_url=database_url, admin_key=ADMIN_SECRET)
 
 
 @pytest.fixture

@@ -31,9 +31,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
-        if settings.admin_key:
-            with store.transaction(write=True) as repo:
-                auth.ensure_admin_key(repo, settings.admin_key)
+        try:
+            if settings.admin_key:
+                with store.transaction(write=True) as repo:
+                    auth.ensure_admin_key(repo, settings.admin_key)
+        except BaseException:
+            store.dispose()
+            raise
         app.state.ctx = AppContext(settings, store, metrics, KeyCache())
         try:
             yield

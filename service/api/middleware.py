@@ -6,6 +6,7 @@ import json
 import time
 from typing import Any
 
+from starlette.exceptions import HTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from ..metrics import Metrics
@@ -41,7 +42,8 @@ class BodyLimit:
             if message["type"] == "http.request":
                 seen += len(message.get("body", b""))
                 if seen > self.max_bytes:
-                    raise _TooLarge
+                    # an HTTPException passes through FastAPI's body reader to the error handler
+                    raise HTTPException(413, f"the request body is larger than {self.max_bytes} bytes")
             return message
 
         async def tracking_send(message: Message) -> None:
@@ -52,7 +54,7 @@ class BodyLimit:
 
         try:
             await self.app(scope, limited, tracking_send)
-        except _TooLarge:
+        except HTTPException:
             if not started:
                 await self._reject(send)
 
@@ -63,10 +65,6 @@ class BodyLimit:
                     "headers": [(b"content-type", b"application/json"),
                                 (b"content-length", str(len(body)).encode())]})
         await send({"type": "http.response.body", "body": body})
-
-
-class _TooLarge(Exception):
-    pass
 
 
 class RequestMetrics:

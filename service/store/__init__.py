@@ -9,6 +9,7 @@ from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
 from ..errors import StoreBusy
+from . import migrate
 from .cache import VersionCache
 from .engine import make_engine
 from .repository import Repository
@@ -21,9 +22,11 @@ class Store:
     (SQLite ``BEGIN IMMEDIATE``; row locks on PostgreSQL), commits on success and
     rolls back on any error; a locked or unreachable database raises ``StoreBusy``."""
 
-    def __init__(self, url: str, *, busy_timeout_s: float = 5.0) -> None:
+    def __init__(self, url: str, *, busy_timeout_s: float = 5.0, prepare_schema: bool = True) -> None:
         self.url = url
         self.engine = make_engine(url, busy_timeout_s=busy_timeout_s)
+        if prepare_schema:
+            migrate.prepare(self.engine)
         self._read = sessionmaker(self.engine, expire_on_commit=False)
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
         self.models = VersionCache()

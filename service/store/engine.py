@@ -11,7 +11,6 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
 from sqlalchemy.pool import StaticPool
 
-from .tables import Base
 
 
 def is_sqlite(url: str) -> bool:
@@ -19,7 +18,7 @@ def is_sqlite(url: str) -> bool:
 
 
 def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
-    """An engine for ``url``; the schema is created when missing."""
+    """An engine for ``url`` (the schema is the migrations' business: ``service.store.migrate``)."""
     if is_sqlite(url):
         u = make_url(url)
         memory = u.database in (None, "", ":memory:")
@@ -30,7 +29,6 @@ def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
         _sqlite_events(engine, busy_timeout_s)
     else:
         engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10)
-    Base.metadata.create_all(engine)
     return engine
 
 

@@ -144,7 +144,23 @@ class Repository:
             stmt = stmt.where(Snapshot.pk > after_pk)
         return self.session.scalars(stmt).all()
 
+    def samples_after_version(self, channel_pk: int, *, after_version: int, limit: int) -> list[Sample]:
+        """Stored samples learned after ``after_version``, in order (for replay)."""
+        stmt = (select(Sample).where(Sample.channel_pk == channel_pk, Sample.version > after_version)
+                .order_by(Sample.version).limit(limit))
+        return list(self.session.scalars(stmt))
+
     # events ---------------------------------------------------------------------------
+    def first_event(self, channel_pk: int, kind: str) -> Event | None:
+        return self.session.scalars(select(Event).where(Event.channel_pk == channel_pk, Event.kind == kind)
+                                    .order_by(Event.pk).limit(1)).one_or_none()
+
+    def state_events(self, channel_pk: int, *, after_version: int, kinds: Sequence[str]) -> list[Event]:
+        """Events of the given kinds after a version, in version order (for replay)."""
+        stmt = (select(Event).where(Event.channel_pk == channel_pk, Event.kind.in_(kinds),
+                                    Event.version > after_version).order_by(Event.version, Event.pk))
+        return list(self.session.scalars(stmt))
+
     def insert_events(self, rows: Iterable[dict[str, Any]]) -> None:
         rows = [{"at": utcnow(), **r} for r in rows]
         if rows:

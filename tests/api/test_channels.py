@@ -1,0 +1,700 @@
+"""Channel routes: ``POST /v1/channels``, ``GET /v1/channels``, ``GET /v1/channels/{id}``,
+``PATCH /v1/channels/{id}``.
+
+Grouped per route; in each group the unauthorised cases come first, then bad input,
+then success. Every failed request must leave the store exactly as it was
+(``store_fingerprint``). Set-up goes through the public HTTP API.
+"""
+
+from __future__ import annotations
+
+import copy
+from collections.abc import Iterator
+from contextlib import contextmanager
+from datetime import datetime
+from typing import Any
+
+import httpx
+import numpy as np
+import pytest
+from fastapi.testclient import TestClient
+from sqlalchemy import select
+
+from service.core import ChannelModel
+from service.store.tables import Channel, ChannelState
+from tests.conftest import LINEAR, store_fingerprint
+
+Headers = dict[str, str]
+Keys = dict[str, Headers]
+
+CHANNELS = "/v1/channels"
+
+# the body of DESIGN.md's "Create a channel" example
+DESIGN_EXAMPLE: dict[str, Any] = {
+    "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
+    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
+    "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
+    "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
+    "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
+    "drift": {"detector": "page_hinkley", "tolerance": 0.3},
+    "outlier_sd": 6.0,
+    "snapshot_every": 1000,
+}
+
+
+def send_text(client: TestClient, method: str, url: str, text: str, headers: Headers) -> httpx.Response:
+    """A request whose body is the given text, sent as JSON (for NaN, Infinity, broken JSON)."""
+    r: httpx.Response = client.request(method, url, content=text.encode(),
+                                       headers={**headers, "Content-Type": "application/json"})
+    return r
+
+
+def assert_error(r: httpx.Response, status: int, code: str | set[str]) -> dict[str, Any]:
+    """The contract's error body, with this status and code (or one of these codes);
+    returns ``error``."""
+    assert r.status_code == status, r.text
+    body = r.json()
+    assert set(body) == {"error"}, body
+    err: dict[str, Any] = body["error"]
+    assert err["code"] in ({code} if isinstance(code, str) else code), err
+    assert isinstance(err["message"], str) and err["message"], err
+    assert "details" in err
+    return err
+
+
+def in_control(n: int, seed: int) -> list[dict[str, Any]]:
+    """n samples of y = 2 x + noise (s.d. 0.5), x uniform over the LINEAR range [0, 100]."""
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(0.0, 100.0, n)
+    y = 2.0 * x + rng.normal(0.0, 0.5, n)
+    return [{"x": float(a), "y": float(b)} for a, b in zip(x, y, strict=True)]
+
+
+def post_samples(client: TestClient, channel_id: str, samples: list[dict[str, Any]],
+                 headers: Headers) -> dict[str, Any]:
+    r = client.post(f"{CHANNELS}/{channel_id}/samples", json={"samples": samples}, headers=headers)
+    assert r.status_code == 200, r.text
+    out: dict[str, Any] = r.json()
+    return out
+
+
+def drive_into_alarm(client: TestClient, channel_id: str, headers: Headers) -> None:
+    """200 in-control samples, then a sustained offset of +1000: the outlier gate stores the
+    offset samples as rejected, and the detector (which sees every residual) alarms."""
+    assert post_samples(client, channel_id, in_control(200, seed=11), headers)["drift"]["state"] == "ok"
+    offset = [{"x": s["x"], "y": s["y"] + 1000.0} for s in in_control(20, seed=12)]
+    assert post_samples(client, channel_id, offset, headers)["drift"]["state"] == "alarm"
+
+
+def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
+    """The channel's model state as stored (read straight from the store)."""
+    store = client.app.state.ctx.store  # type: ignore[attr-defined]
+    with store.transaction(write=False) as repo:
+        state: dict[str, Any] = repo.session.scalars(
+            select(ChannelState.model_state).join(Channel, Channel.pk == ChannelState.channel_pk)
+            .where(Channel.id == channel_id)).one()
+    return state
+
+
+class Cases:
+    """Many small cases in one test (one store, one set-up); every failing case is
+    reported by name, not just the first."""
+
+    def __init__(self) -> None:
+        self.failed: list[str] = []
+
+    @contextmanager
+    def case(self, name: str) -> Iterator[None]:
+        try:
+            yield
+        except AssertionError as exc:
+            self.failed.append(f"[{name}] {exc}")
+
+    def done(self) -> None:
+        assert not self.failed, f"{len(self.failed)} case(s) failed:\n" + "\n".join(self.failed)
+
+
+def headers_for(keys: Keys, who: str | None) -> Headers:
+    """Headers for a role in ``keys``; ``None``: no key; ``bad``: a key that does not exist."""
+    if who is None:
+        return {}
+    if who == "bad":
+        return {"Authorization": "Bearer ck_not-a-real-key"}
+    return keys[who]
+
+
+#: callers a technician route refuses: (who, status, code)
+#: the codes of a 422: refused by the request schema, or by the rules below it (the core's
+#: config rules, the cursor); which of the two does it is not part of the contract
+CODES_422 = {"validation_error", "invalid_request"}
+
+NOT_TECHNICIANS = [(None, 401, "unauthorized"), ("bad", 401, "unauthorized"), ("revoked", 401, "unauthorized"),
+                   ("device", 403, "forbidden"), ("other_device", 403, "forbidden")]
+
+
+# --------------------------------------------------------------------------------------
+# POST /v1/channels
+# --------------------------------------------------------------------------------------
+
+def test_create_refuses_callers_that_are_not_technicians(client: TestClient, keys: Keys) -> None:
+    """No key, an unknown key, a malformed header, a revoked key: 401; a device key,
+    even one whose prefix would cover the id: 403."""
+    cases = Cases()
+    callers: list[tuple[str, Headers, int, str]] = [
+        (str(who), headers_for(keys, who), status, code) for who, status, code in NOT_TECHNICIANS]
+    callers += [(f"header {h!r}", {"Authorization": h}, 401, "unauthorized") for h in
+                ["Bearer ", "Basic dXNlcjpwYXNz", "ck_test-admin-secret-0123456789abcdef",
+                 "Bearer " + "x" * 600]]
+    for name, headers, status, code in callers:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            assert_error(client.post(CHANNELS, json={"id": "site-a.p1", **LINEAR}, headers=headers), status, code)
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_create_without_key_and_broken_json_is_401(client: TestClient, keys: Keys) -> None:
+    """The key is checked before the body: a caller without a key learns nothing about
+    how its body would be read."""
+    before = store_fingerprint(client)
+    r = send_text(client, "POST", CHANNELS, '{"id": "site-a.p1", "inputs": [', {})
+    assert_error(r, 401, "unauthorized")
+    assert store_fingerprint(client) == before
+
+
+def _with(**changes: Any) -> dict[str, Any]:
+    body: dict[str, Any] = {"id": "site-a.bad", **copy.deepcopy(LINEAR)}
+    for k, v in changes.items():
+        if v is _DROP:
+            del body[k]
+        else:
+            body[k] = v
+    return body
+
+
+_DROP = object()
+
+BAD_CONFIGS = [
+    # (case, body, code, field the message must name)
+    ("unknown basis kind", _with(basis={"kind": "spline"}), "invalid_request", "basis.kind"),
+    ("degree 16", _with(basis={"kind": "poly", "degree": 16}), "invalid_request", "basis.degree"),
+    ("mu 2", _with(learner={"kind": "sgd", "schedule": {"kind": "normalized", "mu": 2}}),
+     "invalid_request", "learner.schedule.mu"),
+    ("mu 0", _with(learner={"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0}}),
+     "invalid_request", "learner.schedule.mu"),
+    ("min equal to max", _with(inputs=[{"name": "raw", "min": 5, "max": 5}]), "invalid_request", "inputs[0]"),
+    ("min above max", _with(inputs=[{"name": "raw", "min": 10, "max": 1}]), "invalid_request", "inputs[0]"),
+    ("input without max", _with(inputs=[{"name": "raw", "min": 0}]), "invalid_request", "inputs[0]"),
+    ("min is a string", _with(inputs=[{"name": "raw", "min": "0", "max": 1}]),
+     "invalid_request", "inputs[0].min"),
+    ("min is a boolean", _with(inputs=[{"name": "raw", "min": False, "max": 1}]),
+     "invalid_request", "inputs[0].min"),
+    ("missing inputs", _with(inputs=_DROP), "validation_error", "inputs"),
+    ("empty inputs", _with(inputs=[]), "validation_error", "inputs"),
+    ("extra field", _with(colour="blue"), "validation_error", "colour"),
+    ("unknown field in basis", _with(basis={"kind": "poly", "degree": 1, "knots": [1]}),
+     "invalid_request", "basis"),
+    ("unknown learner", _with(learner={"kind": "adam"}), "invalid_request", "learner.kind"),
+    ("unknown detector", _with(drift={"detector": "magic"}), "invalid_request", "drift.detector"),
+    ("negative tolerance", _with(drift={"tolerance": -0.1}), "invalid_request", "drift.tolerance"),
+    ("unknown transform", _with(output={"transform": "sqrt"}), "invalid_request", "output.transform"),
+    ("outlier_sd 0", _with(outlier_sd=0), "invalid_request", "outlier_sd"),
+    ("snapshot_every 0", _with(snapshot_every=0), "invalid_request", "snapshot_every"),
+    ("id with capitals", _with(id="Site-A.P1"), "validation_error", "id"),
+    ("id too long", _with(id="a" * 129), "validation_error", "id"),
+]
+
+
+def test_create_with_a_bad_config_is_422_naming_the_field(client: TestClient, keys: Keys) -> None:
+    cases = Cases()
+    for name, body, code, field in BAD_CONFIGS:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            err = assert_error(client.post(CHANNELS, json=body, headers=keys["technician"]), 422, code)
+            assert field in err["message"], err
+            if code == "invalid_request":
+                assert err["details"] == {"field": field}, err
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_create_log_poly_over_a_range_through_zero_is_422(client: TestClient, keys: Keys) -> None:
+    """ln x needs x > 0: the range's lower end is the field at fault."""
+    before = store_fingerprint(client)
+    r = client.post(CHANNELS, json=_with(basis={"kind": "log_poly", "powers": [0, 1]}), headers=keys["technician"])
+    err = assert_error(r, 422, "invalid_request")
+    assert err["details"] == {"field": "inputs[0].min"}
+    assert "log_poly" in err["message"] and "above zero" in err["message"]
+    assert store_fingerprint(client) == before
+
+
+NON_FINITE_CONFIGS = [
+    ("min NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": NaN, "max": 1}]}', "inputs[0].min"),
+    ("max Infinity", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": Infinity}]}',
+     "inputs[0].max"),
+    ("min -1e400", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": -1e400, "max": 1}]}', "inputs[0].min"),
+    ("outlier_sd NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], "outlier_sd": NaN}',
+     "outlier_sd"),
+    ("tolerance NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], '
+     '"drift": {"tolerance": NaN}}', "drift.tolerance"),
+    ("coverage_factor NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], '
+     '"coverage_factor": NaN}', "coverage_factor"),
+]
+
+
+def test_create_with_a_non_finite_number_is_422(client: TestClient, keys: Keys) -> None:
+    """NaN, Infinity and 1e400 sent as raw JSON text."""
+    cases = Cases()
+    for name, text, field in NON_FINITE_CONFIGS:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            err = assert_error(send_text(client, "POST", CHANNELS, text, keys["technician"]), 422,
+                               "invalid_request")
+            assert field in err["message"], err
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_create_with_malformed_json_is_400(client: TestClient, keys: Keys) -> None:
+    cases = Cases()
+    for text in ['{"id": "site-a.p1", "inputs": [', "not json", '{"id": }', "{'id': 'site-a.p1'}"]:
+        with cases.case(text):
+            before = store_fingerprint(client)
+            assert_error(send_text(client, "POST", CHANNELS, text, keys["technician"]), 400, "malformed_json")
+            assert store_fingerprint(client) == before
+    with cases.case("empty body"):  # a missing body, not broken JSON
+        assert_error(send_text(client, "POST", CHANNELS, "", keys["technician"]), 422, "validation_error")
+    cases.done()
+
+
+def test_create_booleans_and_text_are_not_numbers(client: TestClient, keys: Keys) -> None:
+    """true or "6" where a number belongs is refused, as the core's rules refuse it for
+    ``inputs[0].min`` (not read as 1 / 6: ``"outlier_sd": true`` would gate at 1 s.d.,
+    ``"snapshot_every": true`` would snapshot on every sample)."""
+    cases = Cases()
+    for name, body, field in [("outlier_sd true", _with(outlier_sd=True), "outlier_sd"),
+                              ("snapshot_every true", _with(snapshot_every=True), "snapshot_every"),
+                              ("coverage_factor true", _with(coverage_factor=True), "coverage_factor"),
+                              ("outlier_sd text", _with(outlier_sd="6"), "outlier_sd"),
+                              ("snapshot_every text", _with(snapshot_every="50"), "snapshot_every")]:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            err = assert_error(client.post(CHANNELS, json=body, headers=keys["technician"]), 422, CODES_422)
+            assert field in err["message"], err
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_create_with_an_existing_id_is_409(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    before = store_fingerprint(client)
+    other = {"id": "site-a.p1", "inputs": [{"name": "v", "min": -1, "max": 1}]}
+    r = client.post(CHANNELS, json=other, headers=keys["technician"])
+    assert_error(r, 409, "channel_exists")
+    assert store_fingerprint(client) == before
+    assert client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()["inputs"][0]["name"] == "raw"
+
+
+def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> None:
+    body = {"id": "site-a.p1", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}]}
+    r = client.post(CHANNELS, json=body, headers=keys["technician"])
+    assert r.status_code == 201, r.text
+    ch = r.json()
+    assert ch["id"] == "site-a.p1"
+    assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}]
+    # DESIGN.md, "Defaults when a field is left out"
+    assert ch["basis"]["kind"] == "poly" and ch["basis"]["degree"] == 1
+    assert ch["learner"]["kind"] == "sgd"
+    assert ch["learner"]["schedule"]["kind"] == "normalized"
+    assert ch["learner"]["schedule"]["mu"] == 0.1
+    assert ch["drift"]["detector"] == "page_hinkley"
+    assert ch["drift"]["tolerance"] is None  # no tolerance check
+    assert ch["outlier_sd"] == 6.0
+    assert ch["snapshot_every"] == 1000
+    assert ch["output"]["transform"] == "none"  # "default none"
+    assert ch["coverage_factor"] == 2.0  # "k (2 by default)"
+    # the summary of a new channel
+    assert ch["n_samples"] == 0
+    assert ch["n_rejected"] == 0
+    assert ch["version"] == 0
+    assert ch["rmse"] is None
+    assert ch["last_sample_at"] is None
+    assert ch["drift"]["state"] == "ok"
+    assert "statistic" in ch["drift"] and "tolerance_state" in ch["drift"]
+    # what was answered is what is stored
+    got = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"])
+    assert got.status_code == 200
+    assert got.json() == ch
+
+
+def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
+    r = client.post(CHANNELS, json=DESIGN_EXAMPLE, headers=keys["technician"])
+    assert r.status_code == 201, r.text
+    ch = r.json()
+    assert ch["id"] == "coldroom2.probe07"
+    assert ch["description"] == "thermistor probe, rack 2"
+    assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0}]
+    assert ch["output"] == {"name": "temperature", "unit": "degC", "transform": "reciprocal",
+                            "offset": 273.15}
+    assert ch["basis"] == {"kind": "log_poly", "powers": [0, 1, 3]}
+    assert ch["learner"]["schedule"]["mu"] == 0.2
+    assert ch["drift"]["tolerance"] == 0.3
+    assert ch["outlier_sd"] == 6.0 and ch["snapshot_every"] == 1000
+    # the stored model is the core's model for that body
+    assert stored_state(client, "coldroom2.probe07") == ChannelModel.from_config(DESIGN_EXAMPLE).to_state()
+
+
+def test_create_with_null_turns_the_gate_and_periodic_snapshots_off(client: TestClient, keys: Keys) -> None:
+    body = {"id": "site-a.p1", **LINEAR, "outlier_sd": None, "snapshot_every": None}
+    r = client.post(CHANNELS, json=body, headers=keys["admin"])
+    assert r.status_code == 201, r.text
+    assert r.json()["outlier_sd"] is None
+    assert r.json()["snapshot_every"] is None
+    got = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
+    assert got["outlier_sd"] is None and got["snapshot_every"] is None
+
+
+# --------------------------------------------------------------------------------------
+# GET /v1/channels
+# --------------------------------------------------------------------------------------
+
+def test_list_needs_a_technician_key(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    cases = Cases()
+    for who, status, code in NOT_TECHNICIANS:
+        with cases.case(str(who)):
+            assert_error(client.get(CHANNELS, headers=headers_for(keys, who)), status, code)
+            assert_error(client.get(f"{CHANNELS}?prefix=site-a.", headers=headers_for(keys, who)), status, code)
+    cases.done()
+
+
+def test_list_with_bad_query_is_422(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    cases = Cases()
+    for query in ["limit=0", "limit=1001", "limit=-1", "limit=ten", "cursor=not-a-cursor",
+                  "cursor=djE6YWJj",  # base64 of "v1:abc"
+                  "cursor=" + "A" * 300, "state=broken", "prefix=" + "a" * 129]:
+        with cases.case(query[:40]):
+            r = client.get(f"{CHANNELS}?{query}", headers=keys["technician"])
+            assert r.status_code == 422, r.text
+            assert r.json()["error"]["code"] in CODES_422
+    cases.done()
+
+
+def test_list_filters_by_prefix(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    for cid in ["site-a.p1", "site-a.p2", "site-b.p1", "site_a.p1", "sitexa.p1"]:
+        make_channel(cid)
+    tech = keys["technician"]
+
+    def ids(query: str) -> list[str]:
+        r = client.get(f"{CHANNELS}?{query}", headers=tech)
+        assert r.status_code == 200, r.text
+        assert r.json()["next_cursor"] is None
+        return [c["id"] for c in r.json()["items"]]
+
+    assert ids("") == ["site-a.p1", "site-a.p2", "site-b.p1", "site_a.p1", "sitexa.p1"]
+    assert ids("prefix=site-a.") == ["site-a.p1", "site-a.p2"]
+    assert ids("prefix=site-b.") == ["site-b.p1"]
+    # '_' and '.' are literal characters of an id, not wildcards
+    assert ids("prefix=site_") == ["site_a.p1"]
+    assert ids("prefix=site-a.p2") == ["site-a.p2"]
+    assert ids("prefix=nothing") == []
+
+
+def test_list_items_are_the_channel_views(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    item = client.get(CHANNELS, headers=keys["technician"]).json()["items"][0]
+    assert item == client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
+
+
+def test_list_filters_by_drift_state(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    for cid in ["site-a.p1", "site-a.p2", "site-b.p3"]:
+        make_channel(cid)
+    drive_into_alarm(client, "site-a.p2", keys["device"])
+    post_samples(client, "site-a.p1", in_control(50, seed=3), keys["device"])
+    tech = keys["technician"]
+
+    def ids(query: str) -> list[str]:
+        r = client.get(f"{CHANNELS}?{query}", headers=tech)
+        assert r.status_code == 200, r.text
+        return [c["id"] for c in r.json()["items"]]
+
+    assert ids("state=alarm") == ["site-a.p2"]
+    assert ids("state=ok") == ["site-a.p1", "site-b.p3"]
+    assert ids("state=warning") == []
+    assert ids("state=alarm&prefix=site-b.") == []
+    assert ids("state=alarm&prefix=site-a.") == ["site-a.p2"]
+    alarmed = client.get(f"{CHANNELS}?state=alarm", headers=tech).json()["items"][0]
+    assert alarmed["drift"]["state"] == "alarm"
+
+
+def test_list_pages_through_everything_with_next_cursor(client: TestClient, keys: Keys,
+                                                        make_channel: Any) -> None:
+    created = [f"site-a.c{i}" for i in range(5)]
+    for cid in created:
+        make_channel(cid)
+    make_channel("site-b.other")
+    seen: list[str] = []
+    pages: list[int] = []
+    cursor: str | None = None
+    while True:
+        url = f"{CHANNELS}?prefix=site-a.&limit=2" + (f"&cursor={cursor}" if cursor else "")
+        r = client.get(url, headers=keys["technician"])
+        assert r.status_code == 200, r.text
+        page = r.json()
+        assert set(page) == {"items", "next_cursor"}
+        pages.append(len(page["items"]))
+        seen.extend(c["id"] for c in page["items"])
+        cursor = page["next_cursor"]
+        if cursor is None:
+            break
+        assert len(pages) < 10
+    assert pages == [2, 2, 1]
+    assert seen == created
+
+
+def test_list_last_full_page_has_no_next_cursor(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    for i in range(4):
+        make_channel(f"site-a.c{i}")
+    first = client.get(f"{CHANNELS}?limit=2", headers=keys["technician"]).json()
+    second = client.get(f"{CHANNELS}?limit=2&cursor={first['next_cursor']}", headers=keys["technician"]).json()
+    assert [c["id"] for c in second["items"]] == ["site-a.c2", "site-a.c3"]
+    assert second["next_cursor"] is None
+
+
+def test_list_default_and_largest_limit(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    for q in ["", "?limit=1000", "?limit=1"]:
+        r = client.get(CHANNELS + q, headers=keys["technician"])
+        assert r.status_code == 200, r.text
+        assert [c["id"] for c in r.json()["items"]] == ["site-a.p1"]
+        assert r.json()["next_cursor"] is None
+
+
+# --------------------------------------------------------------------------------------
+# GET /v1/channels/{id}
+# --------------------------------------------------------------------------------------
+
+def test_get_needs_a_technician_key(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    """Even a device key whose prefix matches may not read the channel's configuration."""
+    make_channel("site-a.p1")
+    cases = Cases()
+    for who, status, code in NOT_TECHNICIANS:
+        with cases.case(str(who)):
+            assert_error(client.get(f"{CHANNELS}/site-a.p1", headers=headers_for(keys, who)), status, code)
+    cases.done()
+
+
+def test_get_an_unknown_channel_is_404(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    err = assert_error(client.get(f"{CHANNELS}/site-a.p9", headers=keys["technician"]), 404,
+                       "channel_not_found")
+    assert "site-a.p9" in err["message"]
+
+
+def test_get_with_an_invalid_id_is_422(client: TestClient, keys: Keys) -> None:
+    r = client.get(f"{CHANNELS}/Site-A.P1", headers=keys["technician"])
+    assert_error(r, 422, "validation_error")
+
+
+def test_get_summarises_the_samples(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    warm = in_control(200, seed=5)
+    for s, minute in zip(warm, range(200), strict=True):
+        s["t"] = f"2026-12-01T10:{minute // 60:02d}:{minute % 60:02d}Z"
+    a = post_samples(client, "site-a.p1", warm, keys["device"])
+    wild = {"x": 50.0, "y": 100.0 + 1000.0, "t": "2026-12-01T09:00:00Z"}  # older than the rest
+    tail = in_control(9, seed=6)
+    for s in tail:
+        s["t"] = "2026-12-01T12:30:00+02:00"  # 10:30 UTC, the latest
+    b = post_samples(client, "site-a.p1", [wild, *tail], keys["device"])
+    assert [r["reason"] for r in b["rejected"]] == ["outlier"]
+
+    ch = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
+    assert ch["n_samples"] == 210
+    assert ch["n_rejected"] == 1
+    assert ch["version"] == 210
+    assert datetime.fromisoformat(ch["last_sample_at"]) == datetime.fromisoformat("2026-12-01T10:30:00+00:00")
+    # rmse: the core's figure for the same stream, and (n <= 500, equal weights) the
+    # root mean square of the accepted samples' prior residuals
+    direct = ChannelModel.from_config({"id": "site-a.p1", **LINEAR})
+    stream = warm + [wild] + tail
+    direct.learn([[s["x"]] for s in stream], [s["y"] for s in stream])
+    assert ch["rmse"] == direct.summary()["rmse"]
+    accepted = np.array(a["residuals"] + [r for i, r in enumerate(b["residuals"]) if i != 0])
+    assert ch["rmse"] == pytest.approx(float(np.sqrt(np.mean(accepted**2))), rel=1e-9)
+    assert ch["drift"]["state"] == direct.summary()["drift"]["state"]
+    assert ch["drift"]["statistic"] == direct.summary()["drift"]["statistic"]
+
+
+# --------------------------------------------------------------------------------------
+# PATCH /v1/channels/{id}
+# --------------------------------------------------------------------------------------
+
+def test_patch_needs_a_technician_key(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    cases = Cases()
+    for who, status, code in NOT_TECHNICIANS:
+        with cases.case(str(who)):
+            before = store_fingerprint(client)
+            r = client.patch(f"{CHANNELS}/site-a.p1", json={"drift": {"tolerance": 0.5}},
+                             headers=headers_for(keys, who))
+            assert_error(r, status, code)
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_patch_an_unknown_channel_is_404(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    before = store_fingerprint(client)
+    r = client.patch(f"{CHANNELS}/site-a.p9", json={"drift": {"tolerance": 0.5}}, headers=keys["technician"])
+    assert_error(r, 404, "channel_not_found")
+    assert store_fingerprint(client) == before
+
+
+IMMUTABLE_CHANGES = [
+    ("basis", {"basis": {"kind": "poly", "degree": 2}}),
+    ("same basis", {"basis": {"kind": "poly", "degree": 1}}),
+    ("inputs", {"inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 200}]}),
+    ("output", {"output": {"name": "pressure", "unit": "Pa"}}),
+    ("basis with a tolerance", {"basis": {"kind": "poly", "degree": 2}, "drift": {"tolerance": 0.5}}),
+]
+
+
+def test_patch_an_immutable_field_is_409_and_changes_nothing(client: TestClient, keys: Keys,
+                                                             make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    post_samples(client, "site-a.p1", in_control(10, seed=1), keys["device"])
+    cases = Cases()
+    for name, change in IMMUTABLE_CHANGES:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            r = client.patch(f"{CHANNELS}/site-a.p1", json=change, headers=keys["technician"])
+            assert_error(r, 409, "immutable_field")
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+BAD_CHANGES: list[tuple[str, dict[str, Any], str | set[str], str]] = [
+    ("tolerance 0", {"drift": {"tolerance": 0}}, "invalid_request", "drift.tolerance"),
+    ("tolerance -1", {"drift": {"tolerance": -1}}, "invalid_request", "drift.tolerance"),
+    ("tolerance text", {"drift": {"tolerance": "wide"}}, "invalid_request", "drift.tolerance"),
+    ("detector", {"drift": {"detector": "magic"}}, "invalid_request", "drift.detector"),
+    ("warning above alarm", {"drift": {"warning": 20}}, "invalid_request", "drift.alarm"),
+    ("learner", {"learner": {"kind": "adam"}}, "invalid_request", "learner.kind"),
+    ("forgetting 1.5", {"learner": {"kind": "rls", "forgetting": 1.5}}, "invalid_request", "learner.forgetting"),
+    ("mu 2", {"learner": {"schedule": {"kind": "normalized", "mu": 2}}}, "invalid_request",
+     "learner.schedule.mu"),
+    ("outlier_sd -1", {"outlier_sd": -1}, "invalid_request", "outlier_sd"),
+    ("outlier_sd text", {"outlier_sd": "six"}, CODES_422, "outlier_sd"),
+    ("snapshot_every 0", {"snapshot_every": 0}, "invalid_request", "snapshot_every"),
+    ("snapshot_every 2.5", {"snapshot_every": 2.5}, CODES_422, "snapshot_every"),
+    ("extra field", {"colour": "blue"}, "validation_error", "colour"),
+    ("id", {"id": "site-a.p2"}, "validation_error", "id"),
+]
+
+BROKEN_CHANGES = [
+    ("tolerance NaN", '{"drift": {"tolerance": NaN}}', 422, "invalid_request"),
+    ("tolerance Infinity", '{"drift": {"tolerance": Infinity}}', 422, "invalid_request"),
+    ("outlier_sd NaN", '{"outlier_sd": NaN}', 422, "invalid_request"),
+    ("unclosed", '{"drift": {"tolerance": 0.5}', 400, "malformed_json"),
+    ("not json", "tolerance=0.5", 400, "malformed_json"),
+]
+
+
+def test_patch_with_bad_values_is_422_and_changes_nothing(client: TestClient, keys: Keys,
+                                                          make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    post_samples(client, "site-a.p1", in_control(10, seed=1), keys["device"])
+    cases = Cases()
+    for name, change, code, field in BAD_CHANGES:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            r = client.patch(f"{CHANNELS}/site-a.p1", json=change, headers=keys["technician"])
+            err = assert_error(r, 422, code)
+            assert field in err["message"], err
+            assert store_fingerprint(client) == before
+    for name, text, status, code in BROKEN_CHANGES:
+        with cases.case(name):
+            before = store_fingerprint(client)
+            assert_error(send_text(client, "PATCH", f"{CHANNELS}/site-a.p1", text, keys["technician"]),
+                         status, code)
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_patch_booleans_are_not_numbers(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    cases = Cases()
+    for field in ["outlier_sd", "snapshot_every", "coverage_factor"]:
+        with cases.case(f"{field} true"):
+            before = store_fingerprint(client)
+            r = client.patch(f"{CHANNELS}/site-a.p1", json={field: True}, headers=keys["technician"])
+            err = assert_error(r, 422, CODES_422)
+            assert field in err["message"], err
+            assert store_fingerprint(client) == before
+    cases.done()
+
+
+def test_patch_changes_tolerance_and_learner(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1", drift={"detector": "cusum", "k": 0.7})
+    first = in_control(40, seed=21)
+    post_samples(client, "site-a.p1", first, keys["device"])
+    old = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
+    old_state = stored_state(client, "site-a.p1")
+    assert old["version"] == 40
+
+    change = {"drift": {"tolerance": 0.5}, "learner": {"kind": "rls", "forgetting": 0.99}}
+    r = client.patch(f"{CHANNELS}/site-a.p1", json=change, headers=keys["technician"])
+    assert r.status_code == 200, r.text
+    ch = r.json()
+    assert ch["version"] == old["version"] + 1
+    assert ch["n_samples"] == 40
+    assert ch["drift"]["tolerance"] == 0.5
+    assert ch["drift"]["detector"] == "cusum" and ch["drift"]["k"] == 0.7  # the rest of drift is kept
+    assert ch["learner"] == {"kind": "rls", "forgetting": 0.99, "initial_covariance": 1000.0}
+    for same in ("inputs", "output", "basis", "outlier_sd", "snapshot_every", "description"):
+        assert ch[same] == old[same]
+    assert client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json() == ch
+    # the learned weights stay; only settings change
+    assert stored_state(client, "site-a.p1")["weights"] == old_state["weights"]
+
+    events = client.get(f"{CHANNELS}/site-a.p1/events?kind=settings_changed",
+                        headers=keys["technician"]).json()["items"]
+    assert len(events) == 1
+    assert events[0]["version"] == ch["version"]
+    assert events[0]["details"]["changes"] == change
+
+    # what is learned next follows the new settings: same as the core with those settings
+    direct = ChannelModel.from_config({"id": "site-a.p1", **LINEAR, "drift": {"detector": "cusum", "k": 0.7}})
+    direct.learn([[s["x"]] for s in first], [s["y"] for s in first])
+    direct = direct.with_settings({"drift": {**direct.config["drift"], "tolerance": 0.5},
+                                   "learner": {"kind": "rls", "forgetting": 0.99}})
+    assert stored_state(client, "site-a.p1") == direct.to_state()
+    second = in_control(20, seed=22)
+    out = post_samples(client, "site-a.p1", second, keys["device"])
+    res = direct.learn([[s["x"]] for s in second], [s["y"] for s in second])
+    assert out["residuals"] == res.residuals.tolist()
+    assert out["version"] == 61 and out["n_samples"] == 60
+    assert stored_state(client, "site-a.p1") == direct.to_state()
+
+
+def test_patch_a_schedule_keeps_the_other_learner_settings(client: TestClient, keys: Keys,
+                                                           make_channel: Any) -> None:
+    make_channel("site-a.p1", learner={"kind": "sgd", "l2": 0.01, "schedule": {"kind": "constant", "eta0": 0.02}})
+    r = client.patch(f"{CHANNELS}/site-a.p1", json={"learner": {"schedule": {"kind": "normalized", "mu": 0.5}}},
+                     headers=keys["technician"])
+    assert r.status_code == 200, r.text
+    assert r.json()["learner"] == {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.5, "eps": 1e-6},
+                                   "l2": 0.01, "huber": None}
+    assert r.json()["version"] == 1
+
+
+def test_patch_guard_settings(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel("site-a.p1")
+    r = client.patch(f"{CHANNELS}/site-a.p1", json={"outlier_sd": None, "snapshot_every": 50,
+                                                    "description": "bench"}, headers=keys["admin"])
+    assert r.status_code == 200, r.text
+    ch = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
+    assert ch["outlier_sd"] is None and ch["snapshot_every"] == 50 and ch["description"] == "bench"
+    assert ch["version"] == 1
