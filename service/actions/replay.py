@@ -156,5 +156,6 @@ def _differences(stored: dict[str, Any], replayed: dict[str, Any]) -> list[str]:
                 a, b = np.array(stored[key]), np.array(replayed[key])
                 out.append(f"weights differ: largest difference {np.max(np.abs(a - b)):.3e}")
             else:
-                out.append(f"{key} differs: stored {str(stored.get(key))[:120]}, replayed {str(replayed.get(key))[:120]}")
+                was, now = str(stored.get(key))[:120], str(replayed.get(key))[:120]
+                out.append(f"{key} differs: stored {was}, replayed {now}")
     return out

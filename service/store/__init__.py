@@ -26,7 +26,11 @@ class Store:
         self.url = url
         self.engine = make_engine(url, busy_timeout_s=busy_timeout_s)
         if prepare_schema:
-            migrate.prepare(self.engine)
+            try:
+                migrate.prepare(self.engine)
+            except BaseException:
+                self.engine.dispose()
+                raise
         self._read = sessionmaker(self.engine, expire_on_commit=False)
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
         self.models = VersionCache()

@@ -12,7 +12,6 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.pool import StaticPool
 
 
-
 def is_sqlite(url: str) -> bool:
     return make_url(url).get_backend_name() == "sqlite"
 
