@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from alembic import context
+from sqlalchemy.engine import Connection
 
 from service.store.tables import Base
 
@@ -23,7 +24,7 @@ def run_migrations_online() -> None:
         _run(connection)
 
 
-def _run(connection: object) -> None:
+def _run(connection: Connection) -> None:
     context.configure(connection=connection, target_metadata=target_metadata,
                       render_as_batch=True, compare_type=True)
     with context.begin_transaction():
