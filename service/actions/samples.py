@@ -6,7 +6,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 
@@ -19,11 +19,25 @@ from .models import save_model, write_model
 from .paging import Page, decode_cursor, encode_cursor
 
 
+class SampleLike(Protocol):
+    """A sample as the routes parse it: x a number or a list (input order), y the reference,
+    t the measurement time, seq the source's number."""
+
+    @property
+    def x(self) -> float | list[float]: ...
+    @property
+    def y(self) -> float: ...
+    @property
+    def t(self) -> datetime | None: ...
+    @property
+    def seq(self) -> int | None: ...
+
+
 @dataclass(frozen=True)
 class SampleIn:
     """x: raw inputs in input order; y: reference; t: measurement time; seq: the source's number."""
 
-    x: list[float]
+    x: float | list[float]
     y: float
     t: datetime | None = None
     seq: int | None = None
@@ -67,7 +81,7 @@ def _learn_with_alarm_snapshot(model: ChannelModel, X: np.ndarray, y: np.ndarray
     return again, merged, [(alarm, snap)]
 
 
-def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Sequence[SampleIn],
+def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Sequence[SampleLike],
                    source: str | None, key_id: str | None) -> ChannelOutcome:
     """Learn ``samples`` (in order) on a locked channel and write everything for it."""
     now = utcnow()
@@ -87,11 +101,15 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
         keep.append(i)
     model = write_model(repo, st)
     d = len(model.config["inputs"])
+    xs: list[list[float]] = []
     for i in keep:
-        if len(samples[i].x) != d:
+        x = samples[i].x
+        xi = x if isinstance(x, list) else [x]
+        if len(xi) != d:
             raise InvalidRequest(f"sample {i}: x needs {d} value(s), one per input, in the channel's input order",
                                  details={"index": i, "field": "x"})
-    X = np.array([samples[i].x for i in keep], dtype=np.float64).reshape(len(keep), d)
+        xs.append(xi)
+    X = np.array(xs, dtype=np.float64).reshape(len(keep), d)
     y = np.array([samples[i].y for i in keep], dtype=np.float64)
     n0, v0 = st.n_samples, st.version
     every = model.config["snapshot_every"]
@@ -117,16 +135,12 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     resid = np.concatenate([r.residuals for r in results]) if results else np.empty(0)
     events = [e for r in results for e in r.events]
     alarms = sum(1 for e in events if e["kind"] == "drift_alarm")
-    rows: list[dict[str, Any]] = []
-    for k, i in enumerate(keep):
-        s = samples[i]
-        r = float(resid[k])
-        rows.append({
-            "channel_pk": ch.pk, "seq": n0 + k + 1, "version": v0 + k + 1, "source": source,
-            "source_seq": s.seq if source is not None else None, "t": s.t or now, "received_at": now,
-            "x": samples[i].x, "y": s.y, "residual": r if math.isfinite(r) else None,
-            "accepted": status[k] == "accepted", "reason": None if status[k] == "accepted" else status[k],
-        })
+    resid_list = [r if math.isfinite(r) else None for r in resid.tolist()]
+    pk = ch.pk
+    rows = [(pk, n0 + k + 1, v0 + k + 1, source, samples[i].seq if source is not None else None,
+             samples[i].t or now, now, xs[k], samples[i].y, resid_list[k], status[k] == "accepted",
+             None if status[k] == "accepted" else status[k])
+            for k, i in enumerate(keep)]
     repo.insert_samples(rows)
     event_rows = []
     for k, kind, state in snaps:
@@ -146,13 +160,12 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     summary = model.summary()
     values: dict[str, Any] = {"n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected)}
     if rows:
-        latest = max(r["t"] for r in rows)
+        latest = max(r[5] for r in rows)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
     save_model(repo, st, model, v0 + n_kept, **values)
     per_request: list[float | None] = [None] * len(samples)
     for k, i in enumerate(keep):
-        r = float(resid[k])
-        per_request[i] = r if math.isfinite(r) else None
+        per_request[i] = resid_list[k]
     return ChannelOutcome(
         accepted=n_kept - len(rejected), duplicates=duplicates, rejected=rejected, residuals=per_request,
         version=v0 + n_kept, n_samples=n0 + n_kept, alarms=alarms,
@@ -161,13 +174,13 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     )
 
 
-def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleIn], source: str | None,
+def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleLike], source: str | None,
            key_id: str | None) -> ChannelOutcome:
     ch, st = load(repo, channel_id, lock=True)
     return ingest_channel(repo, ch, st, samples, source, key_id)
 
 
-def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleIn]], source: str | None,
+def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], source: str | None,
                    key_id: str | None) -> dict[str, Any]:
     """A gateway batch across channels: each channel's samples in request order, channels
     locked in id order, all in one transaction."""

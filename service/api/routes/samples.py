@@ -20,9 +20,8 @@ router = APIRouter(tags=["samples"])
 def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
-    items = [samples.SampleIn(s.inputs(), s.y, s.t, s.seq) for s in body.samples]
     with ctx.store.transaction(write=True) as repo:
-        out = samples.ingest(repo, channel_id, items, body.source, who.key_id)
+        out = samples.ingest(repo, channel_id, body.samples, body.source, who.key_id)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     return {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
             "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples,
@@ -34,7 +33,7 @@ def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     check_batch(len(body.samples), ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
-    items = [(s.channel, samples.SampleIn(s.inputs(), s.y, s.t, s.seq)) for s in body.samples]
+    items = [(s.channel, s) for s in body.samples]
     with ctx.store.transaction(write=True) as repo:
         out = samples.ingest_gateway(repo, items, body.source, who.key_id)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
