@@ -35,6 +35,12 @@ def _sqlite_time(t: datetime) -> str:
 
 
 STATE_T = cast(Table, ChannelState.__table__)
+_CHANNEL = (select(Channel, ChannelState)
+            .join(ChannelState, ChannelState.channel_pk == Channel.pk)
+            .where(Channel.id == bindparam("cid"))
+            .options(defer(ChannelState.model_state, raiseload=True)))
+_CHANNEL_FOR_UPDATE = _CHANNEL.with_for_update(of=ChannelState)
+_STATE_UPDATES: dict[tuple[str, ...], Any] = {}
 _SEEN = (select(Sample.source_seq)
          .where(Sample.channel_pk == bindparam("pk"), Sample.source == bindparam("source"),
                 Sample.source_seq.between(bindparam("lo"), bindparam("hi"))))
@@ -59,13 +65,8 @@ class Repository:
     def channel_and_state(self, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState] | None:
         """The channel with its state row; ``lock`` takes the row lock for a write
         (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""
-        stmt = (select(Channel, ChannelState)
-                .join(ChannelState, ChannelState.channel_pk == Channel.pk)
-                .where(Channel.id == channel_id)
-                .options(defer(ChannelState.model_state, raiseload=True)))
-        if lock and self.postgres:
-            stmt = stmt.with_for_update(of=ChannelState)
-        row = self.session.execute(stmt).one_or_none()
+        stmt = _CHANNEL_FOR_UPDATE if lock and self.postgres else _CHANNEL
+        row = self.session.execute(stmt, {"cid": channel_id}).one_or_none()
         return None if row is None else (row[0], row[1])
 
     def model_state(self, channel_pk: int) -> dict[str, Any]:
@@ -104,8 +105,13 @@ class Repository:
     def save_state(self, st: ChannelState, **values: Any) -> None:
         """One UPDATE of the state row; ``st`` shows the new values afterwards."""
         values["updated_at"] = utcnow()
-        self.session.connection().execute(
-            update(STATE_T).where(STATE_T.c.channel_pk == st.channel_pk).values(**values))
+        names = tuple(sorted(values))
+        stmt = _STATE_UPDATES.get(names)
+        if stmt is None:  # one statement per set of columns, built once: SQLAlchemy caches its SQL
+            stmt = (update(STATE_T).where(STATE_T.c.channel_pk == bindparam("pk_"))
+                    .values({n: bindparam(n) for n in names}))
+            _STATE_UPDATES[names] = stmt
+        self.session.connection().execute(stmt, {"pk_": st.channel_pk, **values})
         for name, value in values.items():
             set_committed_value(st, name, value)
 
