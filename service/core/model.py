@@ -35,6 +35,8 @@ from .learners import (
     LP_P0,
     LP_SIZE,
     LP_WARMUP,
+    ST_FDOF,
+    ST_FVAR,
     ST_OMS,
     ST_ON,
     ST_RN,
@@ -238,8 +240,12 @@ class ChannelModel:
         out_resid = ya - yhat
         s.st[ST_T] = 0.0
         s.st[ST_SCALE] = 1.0
-        s.st[ST_RN] = float(fit.dof)
-        s.st[ST_RVAR] = fit.residual_sd**2 if fit.dof > 0 else 0.0
+        # the fit's residual s.d. serves the uncertainty until samples arrive; the warm-up
+        # starts again, because residuals in service are seldom as small as on the bench
+        s.st[ST_RN] = 0.0
+        s.st[ST_RVAR] = 0.0
+        s.st[ST_FVAR] = fit.residual_sd**2 if fit.dof > 0 else 0.0
+        s.st[ST_FDOF] = float(fit.dof)
         s.st[ST_ON] = float(fit.n)
         s.st[ST_OMS] = float(np.mean(out_resid**2))
         s.reset_detector()
@@ -279,10 +285,15 @@ class ChannelModel:
 
     # prediction ---------------------------------------------------------------
     def residual_sd(self) -> float | None:
-        """Current residual s.d. in the fitted space, or None before the first residual."""
-        if self.s.st[ST_RN] < 1:
+        """Residual s.d. in the fitted space, or None when there is none yet: the last
+        fit's residual variance pooled with that of the samples since (counted up to the
+        estimate's window), weighted by their degrees of freedom."""
+        st = self.s.st
+        n = min(st[ST_RN], RESIDUAL_WINDOW)
+        dof = st[ST_FDOF]
+        if n + dof <= 0:
             return None
-        return float(np.sqrt(self.s.st[ST_RVAR]))
+        return float(np.sqrt((dof * st[ST_FVAR] + n * st[ST_RVAR]) / (dof + n)))
 
     def predict(self, X: Any) -> tuple[Array, Array]:
         """Calibrated values y (n,) and standard uncertainties u (n,) in output units for

@@ -22,7 +22,7 @@ Array = NDArray[np.float64]
 STATE_FORMAT = 1
 RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
-    "n_accepted", "n_outliers", "n_guarded",
+    "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
 )
 DETECTOR_NAMES = ("a", "b", "mean", "n", "state")
 
