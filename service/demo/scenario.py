@@ -82,7 +82,7 @@ class Probe:
         factor = (1 + self.tolerance) * (1 + self.ageing_per_day * day)
         if self.fault_day is not None:
             factor = factor * np.where(day >= self.fault_day, 1 + self.fault_step, 1.0)
-        return np.exp(ln_r) * factor
+        return np.asarray(np.exp(ln_r) * factor, dtype=np.float64)
 
 
 def make_probes(seed: int) -> dict[str, Probe]:
