@@ -50,6 +50,12 @@ def _first_key(settings: Settings) -> None:
         store.dispose()
 
 
+def _demo(args: argparse.Namespace) -> int:
+    from .demo.run import demo_command
+
+    return demo_command(args)
+
+
 def cmd_keys_create(args: argparse.Namespace) -> int:
     from . import auth
     from .store import Store
@@ -157,6 +163,14 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
     serve.add_argument("--access-log", action="store_true", help="log every request")
     serve.set_defaults(func=cmd_serve)
+
+    demo = sub.add_parser("demo", help="run the service with the cold-store demo (about a minute), then serve")
+    demo.add_argument("--db-file", default="curvekeeper-demo.db", help="SQLite file of the demo (replaced)")
+    demo.add_argument("--host", default="127.0.0.1")
+    demo.add_argument("--port", type=int, default=8000)
+    demo.add_argument("--fast", action="store_true", help="fewer samples (a reading every 2 hours)")
+    demo.add_argument("--no-wait", action="store_true", help="stop after the story instead of serving")
+    demo.set_defaults(func=_demo)
 
     keys = sub.add_parser("keys", help="manage API keys directly in the store")
     keys_sub = keys.add_subparsers(dest="keys_command", required=True)
