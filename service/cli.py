@@ -50,6 +50,43 @@ def _first_key(settings: Settings) -> None:
         store.dispose()
 
 
+def _simulate(args: argparse.Namespace) -> int:
+    import os
+
+    from tqdm import tqdm
+
+    from .client import Client, ClientError
+    from .demo import scenario
+    from .demo.run import T0
+    from .demo.simulator import simulate
+
+    key = os.environ.get("CURVEKEEPER_KEY")
+    if not key:
+        print("set CURVEKEEPER_KEY to a technician or admin key", file=sys.stderr)
+        return 2
+    stream = scenario.stream(seed=args.seed, days=args.days, step_min=args.step_min)
+    try:
+        with Client(args.url, key) as c, tqdm(total=len(stream.channel), unit="sample", disable=None) as bar:
+            for p in scenario.PROBES:
+                cid = scenario.channel_id(p)
+                try:
+                    c.get_channel(cid)
+                except ClientError as exc:
+                    if exc.status != 404:
+                        raise
+                    c.create_channel(scenario.channel_config(p))
+                    c.request("POST", f"/v1/channels/{cid}/calibrate",
+                              json={"points": scenario.bench_points(args.seed, cid), "label": "bath calibration"})
+            gateway = [scenario.channel_id(p) for p in scenario.PROBES if p.split(".")[0] in ("chill", "produce")]
+            report = simulate(c, stream, t0=T0, gateway=gateway, rate=args.rate, progress=bar.update)
+    except ClientError as exc:
+        print(f"simulate: {exc}", file=sys.stderr)
+        return 1
+    print(f"{report.requests} requests: {report.accepted} learned, {report.rejected} held back, "
+          f"{report.duplicates} duplicates (a re-run posts the same seq numbers: all duplicates)")
+    return 0
+
+
 def _demo(args: argparse.Namespace) -> int:
     from .demo.run import demo_command
 
@@ -171,6 +208,14 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--fast", action="store_true", help="fewer samples (a reading every 2 hours)")
     demo.add_argument("--no-wait", action="store_true", help="stop after the story instead of serving")
     demo.set_defaults(func=_demo)
+
+    sim = sub.add_parser("simulate", help="post the cold-store scenario to a running service like a device fleet")
+    sim.add_argument("--url", default="http://127.0.0.1:8000")
+    sim.add_argument("--days", type=float, default=60.0, help="days of readings (default 60)")
+    sim.add_argument("--step-min", type=float, default=30.0, help="minutes between readings (default 30)")
+    sim.add_argument("--rate", type=float, default=0.0, help="samples per second at most (default: no cap)")
+    sim.add_argument("--seed", type=int, default=7)
+    sim.set_defaults(func=_simulate)
 
     keys = sub.add_parser("keys", help="manage API keys directly in the store")
     keys_sub = keys.add_subparsers(dest="keys_command", required=True)

@@ -43,3 +43,27 @@ def test_the_scenario_is_seeded_and_physical() -> None:
     before, after = p.resistance(t, np.array([39.9, 40.1]))
     assert after < before * 0.995
     assert scenario.resistance_nominal(np.array([-20.0]))[0] > scenario.resistance_nominal(np.array([20.0]))[0]
+
+
+def test_simulate_command_posts_the_scenario_once(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    from service.cli import main
+    from service.config import Settings
+    from service.demo.run import start_server
+
+    secret = "ck_simulate-test-0123456789"
+    port = free_port()
+    server, thread = start_server(Settings(database_url=f"sqlite:///{tmp_path / 's.db'}", port=port,
+                                           admin_key=secret))
+    try:
+        argv = ["simulate", "--url", f"http://127.0.0.1:{port}", "--days", "1", "--step-min", "60"]
+        monkeypatch.delenv("CURVEKEEPER_KEY", raising=False)
+        assert main(argv) == 2
+        monkeypatch.setenv("CURVEKEEPER_KEY", secret)
+        assert main(argv) == 0
+        assert "192 learned" in capsys.readouterr().out
+        assert main(argv) == 0  # a re-run sends the same (source, seq): nothing is learned twice
+        assert "0 learned, 0 held back, 192 duplicates" in capsys.readouterr().out
+    finally:
+        server.should_exit = True
+        thread.join(timeout=10)
