@@ -33,19 +33,25 @@ def curl_commands(text: str) -> list[list[str]]:
 def run(client: TestClient, words: list[str], headers: dict[str, str]) -> Any:
     assert words[0] == "curl"
     method, body, url = "GET", None, None
+    sent: dict[str, str] = {}
     it = iter(words[1:])
     for w in it:
         if w == "-X":
             method = next(it)
         elif w == "-d":
             body = next(it)
-        elif w in ("-s", "-H"):
-            if w == "-H":
-                next(it)
-        else:
+        elif w == "-H":
+            h = next(it)
+            if h == "$K":
+                sent.update(headers)
+            elif h == "$J":
+                sent["content-type"] = "application/json"
+        elif w != "-s":
             url = w
     assert url is not None and url.startswith("$U")
-    r = client.request(method, url[2:], content=body, headers={**headers, "content-type": "application/json"})
+    if body is not None:
+        assert "content-type" in sent, f"{url}: a POST needs the JSON content type"
+    r = client.request(method, url[2:], content=body, headers=sent)
     assert r.status_code in (200, 201), f"{method} {url}: {r.status_code} {r.text}"
     return r.json()
 
