@@ -9,6 +9,7 @@ the alarm took. The service then keeps running until Ctrl-C.
 from __future__ import annotations
 
 import secrets
+import signal
 import threading
 import time
 from collections.abc import Callable
@@ -81,6 +82,8 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         say(f"Try: curl -s -H 'Authorization: Bearer {key}' {url}/v1/channels?state=alarm")
         if keep_running:
             say("Ctrl-C stops it.")
+            if threading.current_thread() is threading.main_thread():
+                signal.signal(signal.SIGTERM, _interrupt)  # stop as on Ctrl-C
             while thread.is_alive():
                 thread.join(timeout=0.5)
     except KeyboardInterrupt:
@@ -149,6 +152,10 @@ def _tell_alarm(c: Client, cid: str, result: DemoResult, say: Callable[[str], No
         f"learned before the fault); the curve moves back by up to {change:.3f} degC, and its predictions "
         f"equal the snapshot's {'exactly' if result.rollback_restores else 'NOT exactly'}.")
     say("  The probe itself needs a look: moisture in the housing shows as a sudden step like this one.")
+
+
+def _interrupt(signum: int, frame: Any) -> None:
+    raise KeyboardInterrupt
 
 
 def _cursor(seq: int) -> str:
