@@ -79,6 +79,9 @@ def ensure_admin_key(repo: Repository, secret: str) -> ApiKey:
         return key
     if key is not None:
         raise ValueError("CURVEKEEPER_ADMIN_KEY matches a revoked or non-admin key; choose another secret")
-    key, _ = create_key(repo, role="admin", prefixes=[], label="admin key from CURVEKEEPER_ADMIN_KEY",
-                        secret=secret)
-    return key
+    new = ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role="admin", prefixes=[],
+                 label="admin key from CURVEKEEPER_ADMIN_KEY", created_at=utcnow())
+    if repo.insert_key_unless_taken(new):
+        return new
+    # another process made it between our look-up and our insert
+    return ensure_admin_key(repo, secret)

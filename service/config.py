@@ -45,6 +45,10 @@ class Settings:
     metrics_public: bool = False
     #: log level of the service's own loggers
     log_level: str = "info"
+    #: requests per second each API key may make on average (0: no limit; over it: 429)
+    rate_limit_per_s: float = 0.0
+    #: requests a key may make at once before ``rate_limit_per_s`` holds it back
+    rate_limit_burst: int = 100
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

@@ -11,11 +11,12 @@ from fastapi import FastAPI
 from .. import __version__, auth
 from ..config import Settings
 from ..metrics import Metrics
+from ..ratelimit import RateLimiter
 from ..store import Store
 from . import errors
 from .deps import AppContext, KeyCache
 from .middleware import BodyLimit, RequestMetrics
-from .routes import channels, curves, health, keys, samples, snapshots
+from .routes import audit, channels, curves, health, keys, samples, snapshots
 
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
@@ -27,6 +28,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings.from_env()
     logging.getLogger("curvekeeper").setLevel(settings.log_level.upper())
     metrics = Metrics()
+    limiter = RateLimiter.from_settings(settings)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -38,7 +40,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         except BaseException:
             store.dispose()
             raise
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache())
+        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter)
         try:
             yield
         finally:
@@ -46,7 +48,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan)
     errors.install(app)
-    for module in (health, channels, samples, curves, snapshots, keys):
+    for module in (health, channels, samples, curves, snapshots, keys, audit):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
     app.add_middleware(RequestMetrics, metrics=metrics)

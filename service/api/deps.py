@@ -1,19 +1,22 @@
-"""Dependencies: the app context, and the caller's key (checked before the body)."""
+"""Dependencies: the app context, and the caller's key (checked, and its rate limited,
+before the body)."""
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass, field
 from threading import Lock
 from typing import Annotated
 
-from fastapi import Depends, Header, Request
+from fastapi import Depends, Header, HTTPException, Request
 from starlette.concurrency import run_in_threadpool
 
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
 from ..errors import PayloadTooLarge
 from ..metrics import Metrics
+from ..ratelimit import RateLimiter
 from ..store import Store
 
 
@@ -50,6 +53,7 @@ class AppContext:
     store: Store
     metrics: Metrics
     keys: KeyCache
+    limiter: RateLimiter
 
 
 async def context(request: Request) -> AppContext:
@@ -85,14 +89,25 @@ def lookup_key(ctx: AppContext, authorization: str | None) -> Principal:
     return who
 
 
+def check_rate(ctx: AppContext, who: Principal) -> None:
+    """Spend one of the key's tokens, or answer 429 with ``Retry-After`` (whole seconds,
+    rounded up) before the route does any work."""
+    wait = ctx.limiter.take(who.key_id)
+    if wait > 0:
+        seconds = max(1, math.ceil(wait))
+        # an HTTPException: the one error handler turns it into the contract's body with
+        # code rate_limited and keeps its headers
+        raise HTTPException(429, f"too many requests with this api key; retry in {seconds} s",
+                            headers={"Retry-After": str(seconds)})
+
+
 async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
     # async, so a cached key costs no trip through the thread pool
     digest = _bearer_digest(authorization)
-    if digest is not None:
-        hit = ctx.keys.get(digest)
-        if hit is not None:
-            return hit
-    return await run_in_threadpool(lookup_key, ctx, authorization)
+    hit = ctx.keys.get(digest) if digest is not None else None
+    who = hit if hit is not None else await run_in_threadpool(lookup_key, ctx, authorization)
+    check_rate(ctx, who)
+    return who
 
 
 Who = Annotated[Principal, Depends(principal)]

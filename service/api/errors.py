@@ -11,6 +11,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
+from starlette.routing import Match
 
 from ..core import CoreError
 from ..errors import ServiceError, StoreBusy
@@ -67,10 +68,19 @@ def install(app: FastAPI) -> None:
         return error_response(422, "validation_error", f"{where}: {first['msg']}", errors)
 
     @app.exception_handler(HTTPException)
-    async def _http(_: Request, exc: HTTPException) -> JSONResponse:
+    async def _http(request: Request, exc: HTTPException) -> JSONResponse:
         code = HTTP_CODES.get(exc.status_code, "http_error")
         message = exc.detail if isinstance(exc.detail, str) else code.replace("_", " ")
-        return error_response(exc.status_code, code, message, None, getattr(exc, "headers", None))
+        headers = dict(getattr(exc, "headers", None) or {})
+        if exc.status_code == 405:
+            # every method any route of this path answers, not just the first route's
+            allowed = set()
+            for route in request.app.router.routes:
+                match, _ = route.matches({**request.scope, "method": "__none__"})
+                if match != Match.NONE:
+                    allowed |= set(getattr(route, "methods", None) or ())
+            headers["Allow"] = ", ".join(sorted(allowed))
+        return error_response(exc.status_code, code, message, None, headers or None)
 
     @app.exception_handler(Exception)
     async def _unexpected(_: Request, exc: Exception) -> JSONResponse:

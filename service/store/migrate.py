@@ -52,6 +52,8 @@ def prepare(engine: Engine) -> None:
         return
     if current is None:
         ours = set(Base.metadata.tables) & set(inspect(engine).get_table_names())
+        if ours and current_revision(engine) == head:
+            return  # another process migrated it between our two looks
         if ours:
             raise SchemaError(f"the store has tables ({', '.join(sorted(ours))}) but no migration history; "
                               "it was not made by curvekeeper's migrations")

@@ -8,6 +8,7 @@ from datetime import UTC, datetime
 from typing import Any, cast
 
 from sqlalchemy import Table, bindparam, func, insert, select, update
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
@@ -218,10 +219,34 @@ class Repository:
             stmt = stmt.where(Event.pk > after_pk)
         return self.session.scalars(stmt).all()
 
+    def list_all_events(self, *, kind: str | None, key_id: str | None, after_pk: int | None,
+                        limit: int) -> list[tuple[Event, str | None]]:
+        """Events of every channel and those of none (keys), oldest first, each with its
+        channel's id (None for a key event)."""
+        stmt = (select(Event, Channel.id).outerjoin(Channel, Channel.pk == Event.channel_pk)
+                .order_by(Event.pk).limit(limit))
+        if kind:
+            stmt = stmt.where(Event.kind == kind)
+        if key_id:
+            stmt = stmt.where(Event.key_id == key_id)
+        if after_pk is not None:
+            stmt = stmt.where(Event.pk > after_pk)
+        return [(r[0], r[1]) for r in self.session.execute(stmt)]
+
     # keys -------------------------------------------------------------------------------
     def insert_key(self, key: ApiKey) -> None:
         self.session.add(key)
         self.session.flush()
+
+    def insert_key_unless_taken(self, key: ApiKey) -> bool:
+        """Insert a key in a savepoint; False (and nothing changed) when its secret is
+        taken already, e.g. by another process at the same moment."""
+        try:
+            with self.session.begin_nested():
+                self.session.add(key)
+        except IntegrityError:
+            return False
+        return True
 
     def key_by_hash(self, secret_hash: str) -> ApiKey | None:
         return self.session.scalars(select(ApiKey).where(ApiKey.secret_hash == secret_hash)).one_or_none()

@@ -9,8 +9,9 @@ from fastapi import APIRouter, Path, Query
 from ...actions import channels
 from ..deps import Ctx, Who
 from ..schemas.channels import ChannelCreate, ChannelUpdate
+from ..schemas.common import COMMON_ERRORS, error_responses
 
-router = APIRouter(prefix="/v1/channels", tags=["channels"])
+router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON_ERRORS, **error_responses(404, 409)})
 
 ChannelPath = Annotated[str, Path(pattern=r"^[a-z0-9._-]{1,128}$")]
 Limit = Annotated[int, Query(ge=1, le=1000)]

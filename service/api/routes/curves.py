@@ -9,10 +9,12 @@ from fastapi import APIRouter, Query
 from ...actions import curves
 from ...errors import PayloadTooLarge
 from ..deps import Ctx, Who
+from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import CalibrateIn, PredictIn
 from .channels import ChannelPath
 
-router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"])
+router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"],
+                   responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/predict", summary="Calibrated values with standard uncertainty")

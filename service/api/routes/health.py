@@ -8,6 +8,7 @@ from fastapi import APIRouter, Header, Response
 
 from ...errors import StoreBusy
 from ..deps import Ctx, lookup_key
+from ..schemas.common import error_responses
 
 router = APIRouter(tags=["health"])
 
@@ -17,7 +18,7 @@ def healthz() -> dict[str, str]:
     return {"status": "ok"}
 
 
-@router.get("/readyz", summary="Readiness: the store answers")
+@router.get("/readyz", summary="Readiness: the store answers", responses=error_responses(503))
 def readyz(ctx: Ctx) -> dict[str, str]:
     try:
         with ctx.store.transaction(write=False) as repo:
@@ -29,7 +30,8 @@ def readyz(ctx: Ctx) -> dict[str, str]:
     return {"status": "ready"}
 
 
-@router.get("/metrics", summary="Prometheus metrics", response_class=Response)
+@router.get("/metrics", summary="Prometheus metrics", response_class=Response,
+            responses={200: {"content": {"text/plain": {}}}, **error_responses(401, 403, 503)})
 def metrics(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Response:
     if not ctx.settings.metrics_public:
         lookup_key(ctx, authorization).require("technician")

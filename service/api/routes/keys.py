@@ -8,10 +8,11 @@ from fastapi import APIRouter, Path
 
 from ...actions import keys
 from ..deps import Ctx, Who
+from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.keys import KeyCreate
 from .channels import Limit
 
-router = APIRouter(prefix="/v1/keys", tags=["keys"])
+router = APIRouter(prefix="/v1/keys", tags=["keys"], responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("", status_code=201, summary="Create a key (the secret is shown once)")

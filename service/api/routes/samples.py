@@ -10,10 +10,11 @@ from fastapi import APIRouter, Query, Response
 
 from ...actions import samples
 from ..deps import Ctx, Who, check_batch
+from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import GatewayIn, SamplesIn
 from .channels import ChannelPath, Limit
 
-router = APIRouter(tags=["samples"])
+router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
@@ -44,7 +45,7 @@ CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "resi
 
 
 @router.get("/v1/channels/{channel_id}/samples", summary="Stored samples, paged (JSON or CSV)",
-            response_model=None)
+            response_model=None, responses={200: {"content": {"application/json": {}, "text/csv": {}}}})
 def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
                 format: Annotated[str, Query(pattern="^(json|csv)$")] = "json") -> dict[str, Any] | Response:
     who.require_channel(channel_id, "technician")

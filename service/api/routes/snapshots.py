@@ -8,10 +8,12 @@ from fastapi import APIRouter, Query
 
 from ...actions import events, snapshots
 from ..deps import Ctx, Who
+from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import RollbackIn, SnapshotIn
 from .channels import ChannelPath, Limit
 
-router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["snapshots"])
+router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["snapshots"],
+                   responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.get("/snapshots", summary="List snapshots")

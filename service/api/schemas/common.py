@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 
-from pydantic import Field
+from pydantic import BaseModel, Field
 
 #: a finite JSON number of sane size (NaN, Infinity and |v| > 1e15 are refused)
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e15, le=1e15)]
@@ -12,3 +12,28 @@ ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["col
 Label = Annotated[str, Field(max_length=256)]
 Source = Annotated[str, Field(min_length=1, max_length=128, examples=["gw-3"])]
 Seq = Annotated[int, Field(strict=True, ge=0, le=2**62)]
+
+
+class ErrorDetail(BaseModel):
+    code: str = Field(description="stable snake_case code, e.g. channel_not_found")
+    message: str = Field(description="a sentence for a person")
+    details: Any = Field(None, description="more about the error: the field, the index, the limit")
+
+
+class ErrorBody(BaseModel):
+    """The body of every error answer."""
+
+    error: ErrorDetail
+
+
+def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """OpenAPI documentation of the error answers a route gives."""
+    text = {400: "malformed JSON", 401: "missing, unknown or revoked key", 403: "role or channel prefix not allowed",
+            404: "unknown channel, snapshot or key", 409: "conflict (exists already, or a field that cannot change)",
+            413: "too large (body, samples, values or points)", 422: "invalid request",
+            429: "rate limited (see Retry-After)", 503: "store busy or unavailable (see Retry-After)"}
+    return {s: {"model": ErrorBody, "description": text[s]} for s in statuses}
+
+
+#: what every authenticated route can answer besides its own errors
+COMMON_ERRORS = error_responses(400, 401, 403, 413, 422, 429, 503)
