@@ -82,6 +82,9 @@ def ensure_admin_key(repo: Repository, secret: str) -> ApiKey:
     new = ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role="admin", prefixes=[],
                  label="admin key from CURVEKEEPER_ADMIN_KEY", created_at=utcnow())
     if repo.insert_key_unless_taken(new):
+        repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": None,
+                             "details": {"id": new.id, "role": "admin", "prefixes": [], "label": new.label,
+                                         "by": "CURVEKEEPER_ADMIN_KEY at start-up"}}])
         return new
     # another process made it between our look-up and our insert
     return ensure_admin_key(repo, secret)

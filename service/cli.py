@@ -45,6 +45,9 @@ def _first_key(settings: Settings) -> None:
             if repo.count_rows(ApiKey):
                 return
             key, secret = auth.create_key(repo, role="admin", prefixes=[], label="first admin key")
+            repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": None,
+                                 "details": {"id": key.id, "role": "admin", "prefixes": [], "label": key.label,
+                                             "by": "first start"}}])
         print(f"first start: admin key {key.id} created; its secret (shown once): {secret}", flush=True)
     finally:
         store.dispose()

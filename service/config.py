@@ -41,6 +41,8 @@ class Settings:
     max_curve_points: int = 10_001
     #: seconds a writer waits for the store before the request answers 503
     busy_timeout_s: float = 5.0
+    #: browser origins allowed to call the API (comma-separated, e.g. https://ops.example.org); empty: none
+    cors_origins: str = ""
     #: serve /metrics without a key (for a scraper on a private network)
     metrics_public: bool = False
     #: log level of the service's own loggers

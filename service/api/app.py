@@ -7,6 +7,7 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
+from fastapi.middleware.cors import CORSMiddleware
 
 from .. import __version__, auth
 from ..config import Settings
@@ -15,7 +16,7 @@ from ..ratelimit import RateLimiter
 from ..store import Store
 from . import errors
 from .deps import AppContext, KeyCache
-from .middleware import BodyLimit, RequestMetrics
+from .middleware import BodyLimit, RequestMetrics, SecurityHeaders
 from .routes import audit, channels, curves, health, keys, samples, snapshots
 
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
@@ -51,5 +52,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     for module in (health, channels, samples, curves, snapshots, keys, audit):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
+    origins = [o.strip() for o in settings.cors_origins.split(",") if o.strip()]
+    if origins:  # closed unless configured: no browser page elsewhere may call the API
+        app.add_middleware(CORSMiddleware, allow_origins=origins, allow_methods=["GET", "POST", "PATCH", "DELETE"],
+                           allow_headers=["Authorization", "Content-Type"], max_age=600)
+    app.add_middleware(SecurityHeaders)
     app.add_middleware(RequestMetrics, metrics=metrics)
     return app

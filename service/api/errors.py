@@ -40,6 +40,15 @@ def _clean(errors: list[Any]) -> list[dict[str, Any]]:
     return out
 
 
+def _leaf_routes(routes: Any) -> list[Any]:
+    """The app's routes, with included routers opened up."""
+    out = []
+    for route in routes:
+        inner = getattr(getattr(route, "original_router", None), "routes", None)
+        out.extend(_leaf_routes(inner) if inner is not None else [route])
+    return out
+
+
 def install(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service(_: Request, exc: ServiceError) -> JSONResponse:
@@ -74,11 +83,9 @@ def install(app: FastAPI) -> None:
         headers = dict(getattr(exc, "headers", None) or {})
         if exc.status_code == 405:
             # every method any route of this path answers, not just the first route's
-            allowed = set()
-            for route in request.app.router.routes:
-                match, _ = route.matches({**request.scope, "method": "__none__"})
-                if match != Match.NONE:
-                    allowed |= set(getattr(route, "methods", None) or ())
+            probe = {**request.scope, "method": "__none__"}
+            allowed = {m for route in _leaf_routes(request.app.router.routes)
+                       if route.matches(probe)[0] != Match.NONE for m in (getattr(route, "methods", None) or ())}
             headers["Allow"] = ", ".join(sorted(allowed))
         return error_response(exc.status_code, code, message, None, headers or None)
 

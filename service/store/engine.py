@@ -17,17 +17,19 @@ def is_sqlite(url: str) -> bool:
 
 
 def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
-    """An engine for ``url`` (the schema is the migrations' business: ``service.store.migrate``)."""
+    """An engine for ``url`` (the schema is the migrations' business: ``service.store.migrate``).
+    SQL parameters are kept out of logs and error messages: they hold readings and key hashes."""
     if is_sqlite(url):
         u = make_url(url)
         memory = u.database in (None, "", ":memory:")
         kwargs: dict[str, Any] = {"poolclass": StaticPool} if memory else {"pool_size": 8, "max_overflow": 16}
         engine = create_engine(
-            url, connect_args={"check_same_thread": False, "timeout": busy_timeout_s}, **kwargs
+            url, connect_args={"check_same_thread": False, "timeout": busy_timeout_s}, hide_parameters=True,
+            **kwargs
         )
         _sqlite_events(engine, busy_timeout_s)
     else:
-        engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10)
+        engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, hide_parameters=True)
     return engine
 
 

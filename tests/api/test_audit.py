@@ -115,6 +115,10 @@ def test_every_change_shows_up_with_the_acting_key_and_a_summary(client: TestCli
     for it in items:
         assert set(it) == ITEM_FIELDS, it
         assert isinstance(it["summary"], str) and it["summary"], it
+    # the service made the admin key itself at start-up (CURVEKEEPER_ADMIN_KEY): no key acted
+    start_up = items.pop(0)
+    assert (start_up["kind"], start_up["key_id"]) == ("key_created", None)
+    assert start_up["details"]["by"] == "CURVEKEEPER_ADMIN_KEY at start-up"
     assert [(it["kind"], it["key_id"], it["channel"]) for it in items] == [
         ("key_created", admin_id, None),
         ("channel_created", tech_id, CH),
@@ -156,8 +160,9 @@ def test_filters_by_kind_and_key_and_pages(client: TestClient, admin: Headers) -
     everything, _ = audit_pages(client, admin)
 
     made, _ = audit_pages(client, admin, kind="key_created")
-    assert [it["details"]["id"] for it in made] == [tech_id, done["device"]["id"]]
-    assert all(it["channel"] is None and it["key_id"] == admin_id for it in made)
+    assert [it["details"]["id"] for it in made] == [admin_id, tech_id, done["device"]["id"]]
+    assert made[0]["key_id"] is None  # the admin key itself, made at start-up
+    assert all(it["channel"] is None and it["key_id"] == admin_id for it in made[1:])
 
     by_tech, _ = audit_pages(client, admin, key_id=tech_id)
     assert [it["kind"] for it in by_tech] == ["channel_created", "settings_changed", "calibration", "snapshot",

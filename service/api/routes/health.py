@@ -7,7 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Header, Response
 
 from ...errors import StoreBusy
-from ..deps import Ctx, lookup_key
+from ..deps import Ctx, check_rate, lookup_key
 from ..schemas.common import error_responses
 
 router = APIRouter(tags=["health"])
@@ -34,5 +34,7 @@ def readyz(ctx: Ctx) -> dict[str, str]:
             responses={200: {"content": {"text/plain": {}}}, **error_responses(401, 403, 503)})
 def metrics(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Response:
     if not ctx.settings.metrics_public:
-        lookup_key(ctx, authorization).require("technician")
+        who = lookup_key(ctx, authorization)
+        who.require("technician")
+        check_rate(ctx, who)
     return Response(ctx.metrics.render(), media_type="text/plain; version=0.0.4; charset=utf-8")
