@@ -247,6 +247,10 @@ def build_parser() -> argparse.ArgumentParser:
     rp.add_argument("--quiet", action="store_true", help="no progress bar")
     rp.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
     rp.set_defaults(func=cmd_replay)
+
+    from . import techcli
+
+    techcli.add_commands(sub)
     return p
 
 

@@ -1,0 +1,312 @@
+"""The technician's command line against a real service on loopback."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import socket
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from service import techcli
+from service.cli import main
+from service.client import Client
+from service.config import Settings
+from service.demo.run import start_server
+
+SECRET = "ck_techcli-test-admin-0123456789"
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def poly(cid: str, degree: int = 1, **extra: Any) -> dict[str, Any]:
+    return {"id": cid, "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],
+            "output": {"name": "temperature", "unit": "degC"}, "basis": {"kind": "poly", "degree": degree},
+            **extra}
+
+
+@pytest.fixture(scope="module")
+def url(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+    port = free_port()
+    db = tmp_path_factory.mktemp("techcli") / "s.db"
+    server, thread = start_server(Settings(database_url=f"sqlite:///{db}", port=port, admin_key=SECRET))
+    try:
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        server.should_exit = True
+        thread.join(timeout=10)
+
+
+@pytest.fixture
+def api(url: str, monkeypatch: pytest.MonkeyPatch) -> Iterator[Client]:
+    monkeypatch.setenv("CURVEKEEPER_KEY", SECRET)
+    monkeypatch.setenv("CURVEKEEPER_URL", url)
+    monkeypatch.setattr(sys, "stdin", io.StringIO(""))  # no terminal unless a test gives one
+    with Client(url, SECRET) as c:
+        yield c
+
+
+class Terminal(io.StringIO):
+    def isatty(self) -> bool:
+        return True
+
+
+def write_csv(path: Path, header: list[str], rows: list[list[Any]]) -> Path:
+    with path.open("w", newline="") as f:
+        w = csv.writer(f)
+        w.writerow(header)
+        w.writerows(rows)
+    return path
+
+
+def all_samples(c: Client, cid: str) -> list[dict[str, Any]]:
+    items: list[dict[str, Any]] = []
+    cursor = None
+    while True:
+        page = c.request("GET", f"/v1/channels/{cid}/samples?limit=1000" + (f"&cursor={cursor}" if cursor else ""))
+        items += page["items"]
+        cursor = page["next_cursor"]
+        if not cursor:
+            return items
+
+
+# errors ---------------------------------------------------------------------------------
+def test_errors_have_one_line_and_their_exit_code(api: Client, url: str, monkeypatch: pytest.MonkeyPatch,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    monkeypatch.delenv("CURVEKEEPER_KEY")
+    assert main(["channels", "list"]) == 2
+    assert "set CURVEKEEPER_KEY" in capsys.readouterr().err
+
+    monkeypatch.setenv("CURVEKEEPER_KEY", "ck_wrong-key-0123456789")
+    assert main(["channels", "list"]) == 1
+    err = capsys.readouterr().err
+    assert "401" in err and "CURVEKEEPER_KEY" in err and len(err.strip().splitlines()) == 1
+
+    monkeypatch.setenv("CURVEKEEPER_KEY", SECRET)
+    assert main(["channels", "show", "no.such.channel"]) == 1
+    err = capsys.readouterr().err
+    assert "not found (404" in err and "no.such.channel" in err
+    assert main(["channels", "show", "../keys"]) == 2  # never sent: not a channel id
+    assert "not a channel id" in capsys.readouterr().err
+
+    assert main(["channels", "list", "--url", f"http://127.0.0.1:{free_port()}", "--retries", "1"]) == 3
+    err = capsys.readouterr().err
+    assert err.startswith("curvekeeper: cannot reach the service at http://127.0.0.1:") and len(err.splitlines()) == 1
+
+    with pytest.raises(SystemExit) as exc:
+        main(["channels", "list", "--state", "bogus"])
+    assert exc.value.code == 2
+
+
+def test_forbidden_for_a_device_key(api: Client, monkeypatch: pytest.MonkeyPatch,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    key = api.request("POST", "/v1/keys", json={"role": "device", "prefixes": ["dev."]}, idempotent=False)
+    monkeypatch.setenv("CURVEKEEPER_KEY", key["secret"])
+    assert main(["channels", "list"]) == 1
+    assert "not allowed with this key (403" in capsys.readouterr().err
+
+
+# channels -------------------------------------------------------------------------------
+def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pytest.MonkeyPatch,
+                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    for i in range(5):
+        api.create_channel(poly(f"list.c{i}"))
+    api.post_samples("list.c3", [{"x": 10.0, "y": 10.2, "t": "2026-12-01T10:00:00Z"}])
+    monkeypatch.setattr(techcli, "PAGE", 2)
+    assert main(["channels", "list", "--prefix", "list."]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample"]
+    assert [line.split()[0] for line in out[1:]] == [f"list.c{i}" for i in range(5)]
+    row = next(line for line in out if line.startswith("list.c3"))
+    assert row.split()[1:4] == ["ok", "-", "1"] and "degC" in row and "2026-12-01" in row
+
+    assert main(["channels", "list", "--prefix", "list.", "--json"]) == 0
+    items = json.loads(capsys.readouterr().out)
+    assert [c["id"] for c in items] == [f"list.c{i}" for i in range(5)]
+    assert main(["channels", "list", "--prefix", "list.", "--state", "alarm"]) == 0
+    assert capsys.readouterr().out.splitlines()[1:] == []
+
+    assert main(["channels", "show", "list.c3"]) == 0
+    out = capsys.readouterr().out
+    assert "input raw" in out and "[0, 100]" in out and "temperature [degC]" in out and "1 (0 held back)" in out
+    assert main(["channels", "show", "list.c3", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["n_samples"] == 1
+
+
+# calibrate, curve, snapshots, rollback --------------------------------------------------
+def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                capsys: pytest.CaptureFixture[str]) -> None:
+    cid = "cal.c1"
+    api.create_channel(poly(cid, degree=2))
+    bench = write_csv(tmp_path / "bench.csv", ["x", "y"], [[x, 1.0 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
+    # no terminal and no --yes: refused, nothing sent
+    assert main(["calibrate", cid, str(bench)]) == 2
+    assert "--yes" in capsys.readouterr().err and api.get_channel(cid)["version"] == 0
+    # a terminal, answered no
+    monkeypatch.setattr(sys, "stdin", Terminal("n\n"))
+    assert main(["calibrate", cid, str(bench)]) == 2
+    assert "not confirmed" in capsys.readouterr().err and api.get_channel(cid)["version"] == 0
+    # a terminal, answered yes
+    monkeypatch.setattr(sys, "stdin", Terminal("y\n"))
+    assert main(["calibrate", cid, str(bench), "--label", "bench 1"]) == 0
+    cap = capsys.readouterr()
+    assert "Calibrate cal.c1 now? [y/N]" in cap.err
+    out = cap.out
+    assert "calibrated cal.c1: 6 points" in out and "R-squared      1" in out and "s.d." in out
+    assert "coefficients of y [degC]" in out and "raw^2" in out
+    first = api.get_channel(cid)["version"]
+
+    shifted = write_csv(tmp_path / "shifted.csv", ["x", "y"], [[x, 1.5 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
+    assert main(["calibrate", cid, str(shifted), "--yes"]) == 0
+    out = capsys.readouterr().out
+    assert "largest curve change  0.5 degC" in out
+    undo = int(out.rsplit("rollback cal.c1 ", 1)[1].split()[0])
+
+    assert main(["curve", cid, "--points", "3"]) == 0
+    out = capsys.readouterr().out
+    lines = out.splitlines()
+    assert lines[0].split() == ["raw", "[mV]", "y", "[degC]", "u", "[degC]"]
+    assert [float(v) for v in lines[2].split()[:2]] == pytest.approx([50.0, 26.5])
+    assert "power series" in out
+    table = lines[lines.index(next(ln for ln in lines if ln.startswith("coefficients"))) + 2:]
+    coef = {ln.split()[0]: float(ln.split()[1]) for ln in table}
+    assert coef["1"] == pytest.approx(1.5) and coef["raw"] == pytest.approx(0.5) and abs(coef["raw^2"]) < 1e-9
+    assert main(["curve", cid, "--json", "--points", "2"]) == 0
+    assert len(json.loads(capsys.readouterr().out)["points"]) == 2
+
+    assert main(["snapshots", "take", cid, "--label", "after second"]) == 0
+    taken = int(capsys.readouterr().out.split()[1])
+    assert main(["snapshots", "list", cid]) == 0
+    out = capsys.readouterr().out
+    assert "after second" in out and "before-calibrate" in out and str(taken) in out
+    assert main(["snapshots", "diff", cid, str(undo), str(taken)]) == 0
+    out = capsys.readouterr().out
+    assert f"snapshot {undo} vs snapshot {taken}: largest curve difference 0.5 degC" in out
+    assert main(["snapshots", "diff", cid, str(undo), "9999"]) == 1
+    assert "404" in capsys.readouterr().err
+
+    # rollback: no terminal, no --yes: refused; then confirmed on a terminal
+    monkeypatch.setattr(sys, "stdin", io.StringIO("y\n"))
+    assert main(["rollback", cid, str(undo)]) == 2
+    cap = capsys.readouterr()
+    assert "largest curve difference 0.5 degC" in cap.out and "--yes" in cap.err
+    assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
+    monkeypatch.setattr(sys, "stdin", Terminal("yes\n"))
+    assert main(["rollback", cid, str(undo)]) == 0
+    assert f"rolled back to snapshot {undo}" in capsys.readouterr().out
+    assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.0)
+    assert api.get_channel(cid)["version"] > first
+    # --yes needs no terminal
+    monkeypatch.setattr(sys, "stdin", io.StringIO(""))
+    assert main(["rollback", cid, str(taken), "--yes"]) == 0
+    assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
+    capsys.readouterr()
+
+
+def test_calibrate_refuses_bad_files_and_reports_service_refusals(api: Client, tmp_path: Path,
+                                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    cid = "cal.bad"
+    api.create_channel(poly(cid))
+    cases = {
+        "noy.csv": (["x", "z"], [[1, 2]], "no y column"),
+        "text.csv": (["x", "y"], [[1, 2], [2, "warm"]], "line 3: y is not a number: 'warm'"),
+        "two.csv": (["x1", "x2", "y"], [[1, 2, 3]], "2 input column(s), but the channel has 1"),
+        "empty.csv": (["x", "y"], [], "no data rows"),
+    }
+    for name, (header, rows, message) in cases.items():
+        assert main(["calibrate", cid, str(write_csv(tmp_path / name, header, rows)), "--yes"]) == 2, name
+        assert message in capsys.readouterr().err, name
+    assert main(["calibrate", cid, str(tmp_path / "missing.csv"), "--yes"]) == 2
+    assert "missing.csv" in capsys.readouterr().err
+    # one point cannot fit a line: the service's 422 message, exit 1
+    assert main(["calibrate", cid, str(write_csv(tmp_path / "one.csv", ["x", "y"], [[1, 2]])), "--yes"]) == 1
+    err = capsys.readouterr().err
+    assert "the service refused the request (422" in err and len(err.splitlines()) == 1
+    assert api.get_channel(cid)["version"] == 0
+
+
+# samples --------------------------------------------------------------------------------
+def test_load_is_resumable_and_export_round_trips(api: Client, tmp_path: Path,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    cid = "load.c1"
+    api.create_channel(poly(cid))
+    rows = [[round(0.37 * i, 6), round(2.0 + 0.5 * 0.37 * i + 0.01 * ((-1) ** i), 6),
+             f"2026-12-01T{i // 60:02d}:{i % 60:02d}:00Z"] for i in range(250)]
+    data = write_csv(tmp_path / "bench-log.csv", ["x", "y", "t"], rows)
+    # an interrupted load: the first 100 rows only
+    write_csv(tmp_path / "part.csv", ["x", "y", "t"], rows[:100])
+    assert main(["samples", "load", cid, str(tmp_path / "part.csv"), "--source", "log-1"]) == 0
+    assert "100 accepted, 0 duplicates, 0 rejected" in capsys.readouterr().out
+    assert main(["samples", "load", cid, str(data), "--source", "log-1", "--batch", "64"]) == 0
+    assert "250 rows" in (out := capsys.readouterr().out) and "150 accepted, 100 duplicates, 0 rejected" in out
+    assert main(["samples", "load", cid, str(data), "--source", "log-1", "--batch", "64"]) == 0
+    assert "0 accepted, 250 duplicates, 0 rejected" in capsys.readouterr().out
+    stored = all_samples(api, cid)
+    assert len(stored) == 250 and [s["source_seq"] for s in stored] == list(range(1, 251))
+
+    out_file = tmp_path / "export.csv"
+    assert main(["samples", "export", cid, "--out", str(out_file)]) == 0
+    assert "250 sample(s)" in capsys.readouterr().err
+    with out_file.open(newline="") as f:
+        exported = list(csv.DictReader(f))
+    assert len(exported) == len(stored)
+    for e, s in zip(exported, stored, strict=True):
+        assert int(e["seq"]) == s["seq"] and int(e["source_seq"]) == s["source_seq"] and e["source"] == "log-1"
+        assert float(e["x"]) == s["x"][0] and float(e["y"]) == s["y"] and e["t"] == s["t"]
+        assert e["accepted"] == ("true" if s["accepted"] else "false")
+        assert (float(e["residual"]) if e["residual"] else None) == s["residual"]
+    assert main(["samples", "export", cid]) == 0  # to standard output
+    assert capsys.readouterr().out == out_file.read_text()
+
+    # the export loads into another channel as it is (x, y, t columns; the rest ignored)
+    api.create_channel(poly("load.c2"))
+    assert main(["samples", "load", "load.c2", str(out_file)]) == 0
+    assert "250 accepted, 0 duplicates" in capsys.readouterr().out
+    assert [(s["x"], s["y"], s["t"]) for s in all_samples(api, "load.c2")] == [(s["x"], s["y"], s["t"]) for s in stored]
+
+
+def test_load_refuses_bad_rows_and_reports_the_service_message(api: Client, tmp_path: Path,
+                                                               capsys: pytest.CaptureFixture[str]) -> None:
+    cid = "load.bad"
+    api.create_channel(poly(cid))
+    bad_t = write_csv(tmp_path / "t.csv", ["x", "y", "t"], [[1, 2, "2026-12-01T10:00:00Z"], [2, 3, "2026-12-01 11:00"]])
+    assert main(["samples", "load", cid, str(bad_t)]) == 2
+    assert "line 3: t needs a time zone" in capsys.readouterr().err
+    bad_x = write_csv(tmp_path / "x.csv", ["x", "y"], [[1, 2], ["nan", 3]])
+    assert main(["samples", "load", cid, str(bad_x)]) == 2
+    assert "line 3: x is not a finite number" in capsys.readouterr().err
+    huge = write_csv(tmp_path / "huge.csv", ["x", "y"], [[1, 2], [1e20, 3]])
+    assert main(["samples", "load", cid, str(huge), "--batch", "1"]) == 1
+    err = capsys.readouterr().err
+    assert "stopped after 1 of 2 rows" in err and "the service refused the request (422" in err
+    assert api.get_channel(cid)["n_samples"] == 1
+    assert main(["samples", "load", "no.channel", str(huge)]) == 1
+    assert "404" in capsys.readouterr().err
+
+
+def test_two_input_channel(api: Client, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    cid = "two.c1"
+    api.create_channel({"id": cid, "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 10.0},
+                                              {"name": "tc", "unit": "degC", "min": 0.0, "max": 40.0}],
+                        "output": {"name": "p", "unit": "kPa"}, "basis": {"kind": "poly", "degree": 1}})
+    pts = [[a, b, 1.0 + 2.0 * a + 0.1 * b] for a in (0.0, 5.0, 10.0) for b in (0.0, 20.0, 40.0)]
+    assert main(["calibrate", cid, str(write_csv(tmp_path / "b.csv", ["x1", "x2", "y"], pts)), "--yes"]) == 0
+    assert "R-squared      1" in capsys.readouterr().out
+    swapped = write_csv(tmp_path / "s.csv", ["x2", "x1", "y"], [[20.0, 5.0, 13.0]])  # columns by name
+    assert main(["samples", "load", cid, str(swapped)]) == 0
+    assert "1 accepted" in capsys.readouterr().out
+    assert all_samples(api, cid)[0]["x"] == [5.0, 20.0]
+    assert main(["samples", "export", cid]) == 0
+    assert capsys.readouterr().out.splitlines()[0].split(",")[5:7] == ["x1", "x2"]
+    assert main(["curve", cid, "--points", "9"]) == 0
+    out = capsys.readouterr().out
+    assert out.splitlines()[0].split()[:4] == ["raw", "[mV]", "tc", "[degC]"]
