@@ -14,6 +14,7 @@ from ..config import Settings
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
 from ..store import Store
+from ..web import routes as web
 from . import errors
 from .deps import AppContext, KeyCache
 from .middleware import BodyLimit, RequestMetrics, SecurityHeaders
@@ -49,7 +50,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan)
     errors.install(app)
-    for module in (health, channels, samples, curves, snapshots, keys, audit):
+    for module in (health, channels, samples, curves, snapshots, keys, audit, web):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
     origins = [o.strip() for o in settings.cors_origins.split(",") if o.strip()]

@@ -102,11 +102,17 @@ DOCS_CSP = ("default-src 'none'; script-src 'self' 'unsafe-inline' https://cdn.j
             "style-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
             "img-src 'self' data: https://fastapi.tiangolo.com; "
             "connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
+# the technician's pages under /ui/: scripts and styles from this service only, no inline
+# script, no eval; styles may also be set inline, because the plotting library positions
+# its elements with style attributes; no form posts anywhere (the scripts send the key)
+UI_CSP = ("default-src 'none'; script-src 'self'; style-src 'self' 'unsafe-inline'; img-src 'self' data:; "
+          "font-src 'self'; connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
 
 
 class SecurityHeaders:
     """Headers on every answer: no MIME sniffing, no framing, no referrer, no caching of
-    API answers, and a content security policy (strict for JSON, the docs' for HTML)."""
+    API answers, and a content security policy (strict for JSON, the docs' for their HTML,
+    the technician pages' own for ``/ui/``)."""
 
     def __init__(self, app: ASGIApp) -> None:
         self.app = app
@@ -121,10 +127,11 @@ class SecurityHeaders:
                 headers = list(message.get("headers", []))
                 names = {k.lower() for k, _ in headers}
                 html = any(k.lower() == b"content-type" and v.startswith(b"text/html") for k, v in headers)
+                path = scope.get("path", "")
+                csp = UI_CSP if path == "/ui" or path.startswith("/ui/") else DOCS_CSP if html else API_CSP
                 extra = [(b"x-content-type-options", b"nosniff"), (b"x-frame-options", b"DENY"),
-                         (b"referrer-policy", b"no-referrer"),
-                         (b"content-security-policy", (DOCS_CSP if html else API_CSP).encode())]
-                if scope.get("path", "").startswith("/v1/"):
+                         (b"referrer-policy", b"no-referrer"), (b"content-security-policy", csp.encode())]
+                if path.startswith("/v1/"):
                     extra.append((b"cache-control", b"no-store"))
                 headers += [(k, v) for k, v in extra if k not in names]
                 message = {**message, "headers": headers}

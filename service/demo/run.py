@@ -77,8 +77,9 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         with Client(url, key, timeout=60) as c:
             _story(c, result, fast=fast, seed=seed, say=say, progress=progress)
         result.seconds = time.monotonic() - started
-        say(f"\nThe service is running at {url}/ (API documentation at {url}/docs).")
+        say(f"\nThe technician's pages: {url}/ui/ (API documentation at {url}/docs).")
         say(f"Sign in with the admin key: {key}")
+        say(f"Look at {scenario.FAULTY} (the alarm and the rollback) and {scenario.AGEING} (out of tolerance).")
         say(f"Try: curl -s -H 'Authorization: Bearer {key}' {url}/v1/channels?state=alarm")
         if keep_running:
             say("Ctrl-C stops it.")

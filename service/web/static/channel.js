@@ -1,0 +1,346 @@
+"use strict";
+// One channel: curve with its k·u band and recent samples, residuals, snapshots (overlay,
+// roll back), bench calibration from pasted CSV, events.
+const RECENT = 400;        // reference samples drawn on the plots
+const GRID = 201;          // points of the curve over the input range
+const COLOURS = { curve: "#2c4d38", band: "rgba(63,107,79,0.18)", accepted: "#3b7ea1", rejected: "#a33a22",
+                  overlay: "#6d3f74" };
+
+const page = { id: decodeURIComponent(location.pathname.replace(/^\/ui\/channels\//, "").replace(/\/$/, "")),
+               ch: null, curve: null, samples: [], snapshots: [], events: [], overlay: null, rollbackTarget: null };
+const path = (rest = "") => `/v1/channels/${encodeURIComponent(page.id)}${rest}`;
+const outUnit = () => page.ch.output.unit || "";
+const inUnit = () => page.ch.inputs[0].unit || "";
+const firstX = (x) => (Array.isArray(x) ? x[0] : x);
+
+function cursorAfter(seq) {  // the API's cursor: base64url of "v1:<seq>"
+  return btoa(`v1:${seq}`).replace(/\+/g, "-").replace(/\//g, "_").replace(/=+$/, "");
+}
+
+async function loadRecentSamples(ch) {
+  const total = (ch.n_samples || 0) + (ch.n_rejected || 0);
+  const after = Math.max(0, total - RECENT);
+  let items = [];
+  let cursor = after > 0 ? cursorAfter(after) : null;
+  for (let i = 0; i < 5; i++) {
+    const q = "?limit=1000" + (cursor ? `&cursor=${cursor}` : "");
+    const pageData = await CK.api("GET", path("/samples" + q));
+    items = items.concat(pageData.items);
+    cursor = pageData.next_cursor;
+    if (!cursor) break;
+  }
+  return items.slice(-RECENT);
+}
+
+function fact(dl, term, ...value) {
+  dl.append(CK.el("dt", { text: term }), CK.el("dd", {}, ...value));
+}
+
+function renderFacts() {
+  const { ch } = page;
+  const { num } = CK;
+  const d = ch.drift || {};
+  const dl = document.getElementById("channel-facts");
+  dl.replaceChildren();
+  document.getElementById("channel-id").textContent = ch.id;
+  document.title = `curvekeeper · ${ch.id}`;
+  document.getElementById("channel-description").textContent = ch.description || "";
+  ch.inputs.forEach((inp, i) => fact(dl, ch.inputs.length > 1 ? `input ${i + 1}` : "input",
+    `${inp.name} in ${inp.unit || "(no unit)"}, range ${num(inp.min, inp.unit)} to ${num(inp.max, inp.unit)}`));
+  const o = ch.output;
+  fact(dl, "output", `${o.name} in ${o.unit || "(no unit)"}` +
+    (o.transform && o.transform !== "none" ? `, fitted as ${o.transform}(y + ${num(o.offset || 0, o.unit, 8)})` : ""));
+  fact(dl, "basis", JSON.stringify(ch.basis));
+  fact(dl, "learner", JSON.stringify(ch.learner));
+  fact(dl, "drift", CK.badge(d.state), ` ${d.detector} statistic ${num(d.statistic, "", 3)} ` +
+    `(warning at ${num(d.warning, "", 3)}, alarm at ${num(d.alarm, "", 3)}; standardised residuals, no unit)`);
+  fact(dl, "tolerance", ...(d.tolerance_state
+    ? [CK.badge(d.tolerance_state), ` curve moved ${num(d.max_curve_change, outUnit(), 3)} from the last calibration ` +
+       `(tolerance ${num(d.tolerance, outUnit(), 3)})`]
+    : ["no tolerance check set"]));
+  fact(dl, "samples", `${ch.n_samples} stored, ${ch.n_rejected} held back as outliers`);
+  fact(dl, "rmse", num(ch.rmse, outUnit(), 3));
+  fact(dl, "coverage factor", `k = ${num(ch.coverage_factor, "", 3)}`);
+  fact(dl, "version", String(ch.version));
+  fact(dl, "last sample (UTC)", CK.when(ch.last_sample_at));
+}
+
+function curveTraces() {
+  const pts = page.curve.points.filter((p) => p.y !== null);
+  const xs = pts.map((p) => firstX(p.x));
+  const k = page.curve.k;
+  const acc = page.samples.filter((s) => s.accepted);
+  const rej = page.samples.filter((s) => !s.accepted);
+  const traces = [
+    { x: xs, y: pts.map((p) => p.upper), mode: "lines", line: { width: 0 }, hoverinfo: "skip",
+      showlegend: false, name: "upper" },
+    { x: xs, y: pts.map((p) => p.lower), mode: "lines", line: { width: 0 }, fill: "tonexty",
+      fillcolor: COLOURS.band, name: `± k·u band (k = ${k})`, hoverinfo: "skip" },
+    { x: xs, y: pts.map((p) => p.y), mode: "lines", line: { color: COLOURS.curve, width: 2.5 },
+      name: `current curve (version ${page.curve.version})`, uid: "curve" },
+    { x: acc.map((s) => firstX(s.x)), y: acc.map((s) => s.y), mode: "markers", name: "reference samples, learned",
+      marker: { color: COLOURS.accepted, size: 5, opacity: 0.75, symbol: "circle" } },
+    { x: rej.map((s) => firstX(s.x)), y: rej.map((s) => s.y), mode: "markers", name: "held back (outliers)",
+      marker: { color: COLOURS.rejected, size: 9, symbol: "x-thin-open", line: { width: 2, color: COLOURS.rejected } } },
+  ];
+  if (page.overlay) traces.push(page.overlay.trace);
+  return traces;
+}
+
+function plotLayout(xTitle, yTitle) {
+  return { margin: { l: 70, r: 20, t: 10, b: 55 }, paper_bgcolor: "#ffffff", plot_bgcolor: "#fbfaf6",
+           xaxis: { title: { text: xTitle }, gridcolor: "#e6e2d6", zeroline: false },
+           yaxis: { title: { text: yTitle }, gridcolor: "#e6e2d6", zeroline: false },
+           legend: { orientation: "h", y: -0.2 }, hovermode: "closest" };
+}
+
+const PLOT_CONFIG = { displaylogo: false, responsive: true, modeBarButtonsToRemove: ["select2d", "lasso2d"] };
+
+function renderCurve() {
+  const inp = page.ch.inputs[0];
+  const o = page.ch.output;
+  const several = page.ch.inputs.length > 1 ? " (drawn against the first input; the others at the middle of their range)" : "";
+  document.getElementById("curve-caption").textContent =
+    `${o.name} (${o.unit}) against ${inp.name} (${inp.unit}) over ${CK.num(inp.min, inp.unit)} to ` +
+    `${CK.num(inp.max, inp.unit)}${several}; the band is ± k·u with k = ${page.curve.k}. ` +
+    `Last ${page.samples.length} reference samples shown.`;
+  return Plotly.react("curve-plot", curveTraces(), plotLayout(`${inp.name} (${inp.unit})`, `${o.name} (${o.unit})`),
+                      PLOT_CONFIG);
+}
+
+function renderResiduals() {
+  const acc = page.samples.filter((s) => s.accepted && s.residual !== null);
+  const rej = page.samples.filter((s) => !s.accepted && s.residual !== null);
+  const d = page.ch.drift || {};
+  document.getElementById("residual-caption").textContent =
+    `Prior residual (reference − curve before the step) of each recent sample, in ${outUnit()}. ` +
+    `Drift detector ${d.detector}: statistic ${CK.num(d.statistic, "", 3)} now ` +
+    `(warning at ${CK.num(d.warning, "", 3)}, alarm at ${CK.num(d.alarm, "", 3)}).`;
+  return Plotly.react("residual-plot", [
+    { x: acc.map((s) => s.t), y: acc.map((s) => s.residual), mode: "markers", name: "learned",
+      marker: { color: COLOURS.accepted, size: 4 } },
+    { x: rej.map((s) => s.t), y: rej.map((s) => s.residual), mode: "markers", name: "held back",
+      marker: { color: COLOURS.rejected, size: 8, symbol: "x-thin-open", line: { width: 2, color: COLOURS.rejected } } },
+  ], plotLayout("sample time (UTC)", `residual (${outUnit()})`), PLOT_CONFIG);
+}
+
+function renderSnapshots() {
+  const { el } = CK;
+  const rows = page.snapshots.slice().reverse().map((s) => el("tr", { "data-snapshot": s.id },
+    el("td", { class: "num", text: String(s.id) }),
+    el("td", { text: s.reason }),
+    el("td", { text: s.label || "" }),
+    el("td", { class: "num", text: String(s.version) }),
+    el("td", { class: "num", text: String(s.n_samples) }),
+    el("td", { text: CK.when(s.created_at) }),
+    el("td", {},
+      el("button", { type: "button", class: "small quiet overlay", "data-snapshot": s.id, text: "Overlay",
+                     onclick: () => overlaySnapshot(s) }),
+      el("button", { type: "button", class: "small danger rollback", "data-snapshot": s.id, text: "Roll back…",
+                     onclick: () => askRollback(s) }))));
+  document.querySelector("#snapshot-table tbody").replaceChildren(...rows);
+}
+
+function eventSummary(ev) {
+  const d = ev.details || {};
+  const parts = [];
+  for (const [k, v] of Object.entries(d)) {
+    if (k === "points" && Array.isArray(v)) { parts.push(`${v.length} points`); continue; }
+    if (k === "config") { parts.push("configuration"); continue; }
+    if (v === null || v === undefined) continue;
+    const fitted = page.ch.output.transform && page.ch.output.transform !== "none";
+    const unit = ["max_curve_change", "rmse_output", "tolerance"].includes(k) ? outUnit()
+      : k === "residual_sd" ? (fitted ? "(fitted space)" : outUnit()) : "";
+    let text = typeof v === "number" ? CK.num(v, unit, 4)
+      : typeof v === "object" ? JSON.stringify(v) : String(v);
+    if (text.length > 80) text = text.slice(0, 77) + "…";
+    parts.push(`${k.replace(/_/g, " ")} ${text}`);
+  }
+  return parts.join("; ");
+}
+
+function renderEvents(events) {
+  const { el } = CK;
+  const rows = events.slice().reverse().slice(0, 300).map((ev) => el("tr", { "data-kind": ev.kind },
+    el("td", { text: CK.when(ev.at) }),
+    el("td", { text: ev.kind.replace(/_/g, " ") }),
+    el("td", { class: "num", text: ev.version === null ? "" : String(ev.version) }),
+    el("td", { text: eventSummary(ev) })));
+  document.querySelector("#event-table tbody").replaceChildren(...rows);
+}
+
+async function loadAll() {
+  const msg = document.getElementById("page-message");
+  try {
+    page.ch = await CK.api("GET", path());
+    const [curve, samples, snapshots, events] = await Promise.all([
+      CK.api("GET", path(`/curve?points=${GRID}`)), loadRecentSamples(page.ch),
+      CK.all(path("/snapshots"), 1000, 20), CK.all(path("/events"), 1000, 10)]);
+    Object.assign(page, { curve, samples, snapshots, events });
+  } catch (e) {
+    CK.say(msg, e.status === 404 ? `There is no channel ${page.id}.` : `Could not load the channel: ${e.message}`, "error");
+    return;
+  }
+  if (page.overlay) await overlaySnapshot(page.overlay.snapshot, true);
+  renderFacts();
+  await renderCurve();
+  await renderResiduals();
+  renderSnapshots();
+  renderEvents(page.events);
+  document.body.dataset.loaded = String(page.ch.version);
+}
+
+async function compareWith(snapshot) {
+  const pts = page.curve.points;
+  const res = await CK.api("POST", path("/predict"), { x: pts.map((p) => p.x), snapshot: snapshot.id });
+  let worst = { diff: -1, x: null };
+  res.y.forEach((y, i) => {
+    const now = pts[i].y;
+    if (y === null || now === null) return;
+    const diff = Math.abs(y - now);
+    if (diff > worst.diff) worst = { diff, x: firstX(pts[i].x) };
+  });
+  return { y: res.y, worst };
+}
+
+async function overlaySnapshot(snapshot, quiet = false) {
+  const out = document.getElementById("overlay-result");
+  try {
+    const { y, worst } = await compareWith(snapshot);
+    page.overlay = { snapshot, worst, trace: {
+      x: page.curve.points.map((p) => firstX(p.x)), y, mode: "lines", uid: "overlay",
+      name: `snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version})`,
+      line: { color: COLOURS.overlay, width: 2, dash: "dash" } } };
+    out.textContent = `Snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version}) overlaid: ` +
+      `largest difference from the current curve ${CK.num(worst.diff, outUnit(), 3)} at ` +
+      `${CK.num(worst.x, inUnit())}.`;
+    out.dataset.snapshot = String(snapshot.id);
+    if (!quiet) await renderCurve();
+  } catch (e) {
+    out.textContent = `Could not overlay snapshot ${snapshot.id}: ${e.message}`;
+  }
+}
+
+async function askRollback(snapshot) {
+  const { el, num } = CK;
+  const text = document.getElementById("rollback-text");
+  const dialog = document.getElementById("rollback-dialog");
+  page.rollbackTarget = snapshot;
+  let diff = "an amount that could not be computed";
+  try {
+    const { worst } = await compareWith(snapshot);
+    diff = `up to ${num(worst.diff, outUnit(), 3)} (at ${num(worst.x, inUnit())})`;
+  } catch (_) { /* the dialog still says what will change */ }
+  const ch = page.ch;
+  text.replaceChildren(
+    el("p", {}, `Channel `, el("strong", { text: ch.id }), ` goes back to snapshot ${snapshot.id}` +
+       ` (${snapshot.reason}${snapshot.label ? `, “${snapshot.label}”` : ""}, version ${snapshot.version}, ` +
+       `${snapshot.n_samples} samples, taken ${CK.when(snapshot.created_at)} UTC).`),
+    el("ul", {},
+      el("li", { text: `Its curve changes by ${diff} over the input range.` }),
+      el("li", { text: `The current state (version ${ch.version}) is first kept as a new snapshot, so this can be undone; ` +
+                       `the channel's version becomes ${ch.version + 1}.` }),
+      el("li", { text: "The restored curve becomes the reference for the tolerance check and the drift watch starts again." }),
+      el("li", { text: "Stored samples stay stored; they are not learned again." })));
+  dialog.showModal();
+}
+
+async function doRollback() {
+  const dialog = document.getElementById("rollback-dialog");
+  const snapshot = page.rollbackTarget;
+  const msg = document.getElementById("page-message");
+  const button = document.getElementById("rollback-confirm");
+  button.disabled = true;
+  try {
+    const res = await CK.api("POST", path("/rollback"), { snapshot: snapshot.id });
+    dialog.close();
+    page.overlay = null;
+    document.getElementById("overlay-result").textContent = "";
+    CK.say(msg, `Rolled back to snapshot ${res.restored_snapshot}: the channel is now at version ${res.version}; ` +
+                `the state before is kept as snapshot ${res.snapshot_before}.`, "done");
+    await loadAll();
+  } catch (e) {
+    dialog.close();
+    CK.say(msg, `The rollback failed and nothing changed: ${e.message}`, "error");
+  } finally {
+    button.disabled = false;
+  }
+}
+
+function parsePoints(textValue, nInputs) {
+  const points = [];
+  const lines = textValue.split(/\r?\n/);
+  let seenData = false;
+  for (let i = 0; i < lines.length; i++) {
+    const line = lines[i].trim();
+    if (!line || line.startsWith("#")) continue;
+    const fields = line.split(/[,;\t]/).map((f) => f.trim());
+    const values = fields.map((f) => (f === "" ? NaN : Number(f)));
+    if (values.some((v) => !Number.isFinite(v))) {
+      if (!seenData && points.length === 0) { seenData = true; continue; }  // a header line
+      throw new Error(`line ${i + 1}: “${line.slice(0, 40)}” is not a row of numbers`);
+    }
+    seenData = true;
+    if (values.length !== nInputs + 1) {
+      throw new Error(`line ${i + 1}: expected ${nInputs + 1} values (${nInputs} input${nInputs > 1 ? "s" : ""} and the reference), found ${values.length}`);
+    }
+    const y = values[nInputs];
+    points.push({ x: nInputs === 1 ? values[0] : values.slice(0, nInputs), y });
+  }
+  return points;
+}
+
+async function submitCalibration(ev) {
+  ev.preventDefault();
+  const msg = document.getElementById("calibrate-message");
+  const report = document.getElementById("calibrate-report");
+  const history = document.getElementById("calibrate-history").checked;
+  let points;
+  try {
+    points = parsePoints(document.getElementById("calibrate-csv").value, page.ch.inputs.length);
+  } catch (e) {
+    CK.say(msg, e.message, "error");
+    return;
+  }
+  if (!points.length && !history) { CK.say(msg, "Paste at least one point, or fit the stored samples.", "error"); return; }
+  const label = document.getElementById("calibrate-label").value.trim();
+  const button = document.getElementById("calibrate-button");
+  button.disabled = true;
+  CK.say(msg, `Fitting ${points.length} point${points.length === 1 ? "" : "s"} …`);
+  try {
+    const body = { points, include_history: history };
+    if (label) body.label = label;
+    const rep = await CK.api("POST", path("/calibrate"), body);
+    const u = outUnit();
+    const { num } = CK;
+    report.replaceChildren();
+    fact(report, "points fitted", String(rep.n));
+    fact(report, "rms residual", num(rep.rmse_output, u, 3));
+    fact(report, "residual s.d.", page.ch.output.transform && page.ch.output.transform !== "none"
+      ? `${num(rep.residual_sd, "", 3)} (in the fitted ${page.ch.output.transform} space)` : num(rep.residual_sd, u, 3));
+    fact(report, "R²", `${rep.r_squared === null ? "–" : rep.r_squared.toFixed(6)} (dimensionless)`);
+    fact(report, "largest curve change", num(rep.max_curve_change, u, 3));
+    if (rep.raw_terms) {
+      const sd = rep.raw_coefficient_sd || [];
+      fact(report, "coefficients", rep.raw_coefficients.map((c, i) =>
+        `${JSON.stringify(rep.raw_terms[i])}: ${num(c, "", 6)}${sd[i] != null ? ` ± ${num(sd[i], "", 2)}` : ""}`).join("; ") +
+        " (per raw term, fitted space)");
+    }
+    fact(report, "snapshots", `before ${rep.snapshot_before}, after ${rep.snapshot_after}`);
+    fact(report, "version", String(rep.version));
+    CK.say(msg, `The curve was replaced by the fit (version ${rep.version}); the previous curve is snapshot ${rep.snapshot_before}.`, "done");
+    await loadAll();
+  } catch (e) {
+    CK.say(msg, `The fit was not applied: ${e.message}`, "error");
+  } finally {
+    button.disabled = false;
+  }
+}
+
+document.addEventListener("DOMContentLoaded", () => {
+  if (!CK.key()) { location.assign("/ui/"); return; }
+  document.getElementById("rollback-cancel").addEventListener("click", () => document.getElementById("rollback-dialog").close());
+  document.getElementById("rollback-confirm").addEventListener("click", doRollback);
+  document.getElementById("calibrate-form").addEventListener("submit", submitCalibration);
+  loadAll();
+});

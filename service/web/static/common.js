@@ -1,0 +1,96 @@
+// curvekeeper pages: the API key lives in sessionStorage only and travels as a Bearer header.
+"use strict";
+const CK = (() => {
+  const STORE = "curvekeeper.key";
+  const key = () => sessionStorage.getItem(STORE);
+  const setKey = (k) => sessionStorage.setItem(STORE, k);
+  const signOut = () => { sessionStorage.removeItem(STORE); location.assign("/ui/"); };
+
+  class ApiError extends Error {
+    constructor(status, body) {
+      const e = (body && body.error) || {};
+      super(e.message || `the service answered ${status}`);
+      this.status = status; this.code = e.code || "http_" + status; this.details = e.details;
+    }
+  }
+
+  async function api(method, path, body, opts = {}) {
+    const k = opts.key || key();
+    if (!k) { location.assign("/ui/"); throw new ApiError(401, null); }
+    const init = { method, headers: { "Authorization": "Bearer " + k, "Accept": "application/json" },
+                   cache: "no-store", credentials: "omit", referrerPolicy: "no-referrer" };
+    if (body !== undefined) { init.headers["Content-Type"] = "application/json"; init.body = JSON.stringify(body); }
+    const r = await fetch(path, init);
+    let data = null;
+    try { data = await r.json(); } catch (_) { data = null; }
+    if (r.status === 401 && !opts.key) { sessionStorage.removeItem(STORE); location.assign("/ui/?signed_out=1"); }
+    if (!r.ok) throw new ApiError(r.status, data);
+    return data;
+  }
+
+  async function all(path, limit = 1000, maxPages = 50) {
+    const items = [];
+    let cursor = null;
+    for (let i = 0; i < maxPages; i++) {
+      const sep = path.includes("?") ? "&" : "?";
+      const page = await api("GET", `${path}${sep}limit=${limit}` + (cursor ? `&cursor=${encodeURIComponent(cursor)}` : ""));
+      items.push(...page.items);
+      cursor = page.next_cursor;
+      if (!cursor) break;
+    }
+    return items;
+  }
+
+  // element builder: text always goes through textContent, never HTML
+  function el(tag, attrs = {}, ...children) {
+    const e = document.createElement(tag);
+    for (const [k, v] of Object.entries(attrs)) {
+      if (v === null || v === undefined || v === false) continue;
+      if (k === "class") e.className = v;
+      else if (k === "text") e.textContent = v;
+      else if (k.startsWith("on")) e.addEventListener(k.slice(2), v);
+      else e.setAttribute(k, v === true ? "" : String(v));
+    }
+    for (const c of children.flat()) {
+      if (c === null || c === undefined) continue;
+      e.append(c instanceof Node ? c : document.createTextNode(String(c)));
+    }
+    return e;
+  }
+
+  // a number with its unit; significant digits, not a fixed number of decimals
+  function num(v, unit, digits = 4) {
+    if (v === null || v === undefined || Number.isNaN(v)) return "–";
+    const a = Math.abs(v);
+    let s;
+    if (a !== 0 && (a < 1e-3 || a >= 1e6)) s = v.toExponential(digits - 1);
+    else s = Number(v.toPrecision(digits)).toString();
+    return unit ? `${s} ${unit}` : s;
+  }
+
+  function when(iso) {
+    if (!iso) return "–";
+    const d = new Date(iso);
+    if (Number.isNaN(d.getTime())) return iso;
+    return d.toISOString().replace("T", " ").replace(/\.\d+Z$/, "").replace(/Z$/, "");
+  }
+
+  const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
+                        out_of_tolerance: "out of tolerance" };
+  function badge(state) {
+    if (!state) return el("span", { class: "state state-none", text: "not checked" });
+    return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });
+  }
+
+  function say(node, text, kind = "") {
+    node.textContent = text;
+    node.className = "message" + (kind ? " " + kind : "");
+  }
+
+  document.addEventListener("DOMContentLoaded", () => {
+    const out = document.getElementById("signout");
+    if (out) out.addEventListener("click", signOut);
+  });
+
+  return { key, setKey, signOut, api, all, el, num, when, badge, say, ApiError };
+})();

@@ -1,0 +1,54 @@
+"use strict";
+// attention first: alarm, then out of tolerance, then warning, then the rest
+function rank(ch) {
+  const d = ch.drift || {};
+  if (d.state === "alarm") return 0;
+  if (d.tolerance_state === "out_of_tolerance") return 1;
+  if (d.state === "warning") return 2;
+  return 3;
+}
+
+async function loadFleet() {
+  const prefix = document.getElementById("prefix").value.trim();
+  const state = document.getElementById("state").value;
+  const summary = document.getElementById("fleet-summary");
+  const tbody = document.querySelector("#fleet-table tbody");
+  const q = new URLSearchParams();
+  if (prefix) q.set("prefix", prefix);
+  if (state) q.set("state", state);
+  summary.textContent = "Loading …";
+  let items;
+  try {
+    items = await CK.all("/v1/channels" + (q.toString() ? "?" + q : ""));
+  } catch (e) {
+    summary.textContent = `Could not load the channels: ${e.message}`;
+    return;
+  }
+  items.sort((a, b) => rank(a) - rank(b) || a.id.localeCompare(b.id));
+  const { el, num } = CK;
+  tbody.replaceChildren(...items.map((ch) => {
+    const d = ch.drift || {};
+    const unit = (ch.output && ch.output.unit) || "";
+    const tol = d.tolerance_state
+      ? [CK.badge(d.tolerance_state), " ", el("small", { text: `${num(d.max_curve_change, unit, 3)} of ${num(d.tolerance, unit, 3)}` })]
+      : [CK.badge(null)];
+    return el("tr", { class: rank(ch) < 3 ? "attention" : "", "data-channel": ch.id },
+      el("td", {}, el("a", { href: "/ui/channels/" + encodeURIComponent(ch.id), text: ch.id })),
+      el("td", {}, CK.badge(d.state), " ", el("small", { text: `statistic ${num(d.statistic, "", 3)}` })),
+      el("td", {}, tol),
+      el("td", { text: CK.when(ch.last_sample_at) }),
+      el("td", { class: "num", text: `${ch.n_samples}` + (ch.n_rejected ? ` (+${ch.n_rejected} held back)` : "") }),
+      el("td", { class: "num", text: num(ch.rmse, unit, 3) }),
+      el("td", { text: ch.description || "" }));
+  }));
+  const attention = items.filter((c) => rank(c) < 3).length;
+  summary.textContent = `${items.length} channel${items.length === 1 ? "" : "s"}` +
+    (attention ? `, ${attention} needing attention (listed first)` : ", none needing attention");
+}
+
+document.addEventListener("DOMContentLoaded", () => {
+  if (!CK.key()) { location.assign("/ui/"); return; }
+  document.getElementById("filters").addEventListener("submit", (ev) => { ev.preventDefault(); loadFleet(); });
+  document.getElementById("state").addEventListener("change", loadFleet);
+  loadFleet();
+});
