@@ -82,8 +82,10 @@ def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
 
 def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[float], float]],
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
-              label: str | None, key_id: str | None) -> dict[str, Any]:
-    ch, st = load(repo, channel_id, lock=True)
+              label: str | None, key_id: str | None, dry_run: bool = False) -> dict[str, Any]:
+    """Fit the points (and/or stored history) and make the fit the channel's curve; with
+    ``dry_run``, only report what the fit would be, changing nothing."""
+    ch, st = load(repo, channel_id, lock=not dry_run)
     model = write_model(repo, st)
     d = len(model.config["inputs"])
     xs: list[list[float]] = []
@@ -115,6 +117,9 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
         report = model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
     except (FitError, InputError) as exc:
         raise InvalidRequest(exc.message, details=exc.details) from exc
+    if dry_run:
+        report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False})
+        return report
     version = st.version + 1
     before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, model_state=before_state,
                                   version=st.version, n_samples=st.n_samples)
@@ -128,5 +133,5 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
                                      "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
                                      "max_curve_change": report["max_curve_change"],
                                      "snapshot_before": before.pk, "snapshot_after": after.pk}}])
-    report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version})
+    report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version, "applied": True})
     return report

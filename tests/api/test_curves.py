@@ -837,3 +837,18 @@ def test_calibrate_keeps_the_previous_state_as_snapshot_before(
     assert now["y"] != learned["y"]
     old = predict(client, keys["device"], X0, snapshot=rep["snapshot_before"])
     assert old["y"] == learned["y"] and old["u"] == learned["u"] and old["version"] == 40
+
+
+def test_calibrate_dry_run_reports_the_fit_and_changes_nothing(client: TestClient, admin: dict[str, str],
+                                                               make_channel: Any) -> None:
+    make_channel("site-a.dry")
+    body = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 51.5}, {"x": 100.0, "y": 101.0}], "label": "bench"}
+    before = store_fingerprint(client)
+    preview = client.post("/v1/channels/site-a.dry/calibrate", json={**body, "dry_run": True}, headers=admin)
+    assert preview.status_code == 200, preview.text
+    assert preview.json()["applied"] is False and preview.json()["snapshot_before"] is None
+    assert store_fingerprint(client) == before
+    applied = client.post("/v1/channels/site-a.dry/calibrate", json=body, headers=admin).json()
+    assert applied["applied"] is True
+    for key in ("weights", "poly_coefficients", "residual_sd", "r_squared", "max_curve_change"):
+        assert applied[key] == preview.json()[key], key

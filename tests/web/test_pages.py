@@ -271,9 +271,13 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     page.fill("#calibrate-csv", "\n".join(rows))
     page.fill("#calibrate-label", "bench check from the page")
     page.click("#calibrate-button")
-    page.wait_for_selector("#calibrate-message.done")
+    # first a preview: the report is shown and nothing has changed
+    page.wait_for_selector("#calibrate-message.preview")
     report = page.text_content("#calibrate-report")
     assert f"{len(cal['details']['points'])}" in report and "degC" in report and "R²" in report
+    assert served.api.get(f"/v1/channels/{cid}").json()["version"] == before["version"]
+    page.click("#calibrate-apply")
+    page.wait_for_selector("#calibrate-message.done")
     page.wait_for_selector(f"body[data-loaded='{before['version'] + 1}']")
     after = served.api.get(f"/v1/channels/{cid}").json()
     assert after["version"] == before["version"] + 1

@@ -39,7 +39,7 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
 @router.post("/calibrate", summary="Closed-form least-squares calibration")
 def calibrate(channel_id: ChannelPath, body: CalibrateIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
-    with ctx.store.transaction(write=True) as repo:
+    with ctx.store.transaction(write=not body.dry_run) as repo:
         return curves.calibrate(repo, channel_id, points=[(p.inputs(), p.y) for p in body.points],
                                 include_history=body.include_history, since=body.since, until=body.until,
-                                last=body.last, label=body.label, key_id=who.key_id)
+                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run)

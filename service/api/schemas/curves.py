@@ -36,6 +36,7 @@ class CalibrateIn(BaseModel):
     until: AwareDatetime | None = Field(None, description="with include_history: samples measured at or before")
     last: int | None = Field(None, ge=1, le=1_000_000, description="with include_history: only the newest N")
     label: Label | None = None
+    dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
 
 
 class SnapshotIn(BaseModel):

@@ -290,11 +290,38 @@ function parsePoints(textValue, nInputs) {
   return points;
 }
 
+let pendingFit = null;
+
+function showReport(report, rep) {
+  const u = outUnit();
+  const { num } = CK;
+  report.replaceChildren();
+  fact(report, "points fitted", String(rep.n));
+  fact(report, "rms residual", num(rep.rmse_output, u, 3));
+  fact(report, "residual s.d.", page.ch.output.transform && page.ch.output.transform !== "none"
+    ? `${num(rep.residual_sd, "", 3)} (in the fitted ${page.ch.output.transform} space)` : num(rep.residual_sd, u, 3));
+  fact(report, "R²", `${rep.r_squared === null ? "–" : rep.r_squared.toFixed(6)} (dimensionless)`);
+  fact(report, "largest curve change", num(rep.max_curve_change, u, 3));
+  if (rep.raw_terms) {
+    const sd = rep.raw_coefficient_sd || [];
+    fact(report, "coefficients", rep.raw_coefficients.map((c, i) =>
+      `${JSON.stringify(rep.raw_terms[i])}: ${num(c, "", 6)}${sd[i] != null ? ` ± ${num(sd[i], "", 2)}` : ""}`).join("; ") +
+      " (per raw term, fitted space)");
+  }
+  if (rep.applied) {
+    fact(report, "snapshots", `before ${rep.snapshot_before}, after ${rep.snapshot_after}`);
+    fact(report, "version", String(rep.version));
+  }
+}
+
 async function submitCalibration(ev) {
   ev.preventDefault();
   const msg = document.getElementById("calibrate-message");
   const report = document.getElementById("calibrate-report");
+  const apply = document.getElementById("calibrate-apply");
   const history = document.getElementById("calibrate-history").checked;
+  apply.hidden = true;
+  pendingFit = null;
   let points;
   try {
     points = parsePoints(document.getElementById("calibrate-csv").value, page.ch.inputs.length);
@@ -310,30 +337,35 @@ async function submitCalibration(ev) {
   try {
     const body = { points, include_history: history };
     if (label) body.label = label;
-    const rep = await CK.api("POST", path("/calibrate"), body);
-    const u = outUnit();
-    const { num } = CK;
-    report.replaceChildren();
-    fact(report, "points fitted", String(rep.n));
-    fact(report, "rms residual", num(rep.rmse_output, u, 3));
-    fact(report, "residual s.d.", page.ch.output.transform && page.ch.output.transform !== "none"
-      ? `${num(rep.residual_sd, "", 3)} (in the fitted ${page.ch.output.transform} space)` : num(rep.residual_sd, u, 3));
-    fact(report, "R²", `${rep.r_squared === null ? "–" : rep.r_squared.toFixed(6)} (dimensionless)`);
-    fact(report, "largest curve change", num(rep.max_curve_change, u, 3));
-    if (rep.raw_terms) {
-      const sd = rep.raw_coefficient_sd || [];
-      fact(report, "coefficients", rep.raw_coefficients.map((c, i) =>
-        `${JSON.stringify(rep.raw_terms[i])}: ${num(c, "", 6)}${sd[i] != null ? ` ± ${num(sd[i], "", 2)}` : ""}`).join("; ") +
-        " (per raw term, fitted space)");
-    }
-    fact(report, "snapshots", `before ${rep.snapshot_before}, after ${rep.snapshot_after}`);
-    fact(report, "version", String(rep.version));
+    const rep = await CK.api("POST", path("/calibrate"), { ...body, dry_run: true });
+    showReport(report, rep);
+    pendingFit = body;
+    apply.hidden = false;
+    CK.say(msg, "Preview: nothing has changed yet. Apply the fit to replace the curve.", "preview");
+  } catch (e) {
+    CK.say(msg, `The points cannot be fitted: ${e.message}`, "error");
+  } finally {
+    button.disabled = false;
+  }
+}
+
+async function applyCalibration() {
+  const msg = document.getElementById("calibrate-message");
+  const report = document.getElementById("calibrate-report");
+  const apply = document.getElementById("calibrate-apply");
+  if (!pendingFit) return;
+  apply.disabled = true;
+  try {
+    const rep = await CK.api("POST", path("/calibrate"), pendingFit);
+    showReport(report, rep);
+    pendingFit = null;
+    apply.hidden = true;
     CK.say(msg, `The curve was replaced by the fit (version ${rep.version}); the previous curve is snapshot ${rep.snapshot_before}.`, "done");
     await loadAll();
   } catch (e) {
     CK.say(msg, `The fit was not applied: ${e.message}`, "error");
   } finally {
-    button.disabled = false;
+    apply.disabled = false;
   }
 }
 
@@ -342,5 +374,6 @@ document.addEventListener("DOMContentLoaded", () => {
   document.getElementById("rollback-cancel").addEventListener("click", () => document.getElementById("rollback-dialog").close());
   document.getElementById("rollback-confirm").addEventListener("click", doRollback);
   document.getElementById("calibrate-form").addEventListener("submit", submitCalibration);
+  document.getElementById("calibrate-apply").addEventListener("click", applyCalibration);
   loadAll();
 });
