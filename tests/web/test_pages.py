@@ -260,6 +260,14 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     shot(page, "channel-after-rollback.png")
 
 
+def tmp_path_csv(rows: list[str]) -> Path:
+    import tempfile
+
+    path = Path(tempfile.mkdtemp(prefix="ck-csv-")) / "bench.csv"
+    path.write_text("\n".join(rows) + "\n")
+    return path
+
+
 def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     page = tab.page
     sign_in(tab, served)
@@ -268,7 +276,9 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     # bench points: the calibration event of day 0 holds the bath readings
     cal = served.api.get(f"/v1/channels/{cid}/events?kind=calibration").json()["items"][0]
     rows = ["raw_ohm,reference_degC", "# bath, day 0"] + [f"{x[0]},{y}" for x, y in cal["details"]["points"]]
-    page.fill("#calibrate-csv", "\n".join(rows))
+    csv_file = tmp_path_csv(rows)
+    page.set_input_files("#calibrate-file", str(csv_file))  # a CSV file fills the points
+    page.wait_for_function("document.getElementById('calibrate-csv').value.includes('reference_degC')")
     page.fill("#calibrate-label", "bench check from the page")
     page.click("#calibrate-button")
     # first a preview: the report is shown and nothing has changed

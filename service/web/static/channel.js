@@ -375,5 +375,9 @@ document.addEventListener("DOMContentLoaded", () => {
   document.getElementById("rollback-confirm").addEventListener("click", doRollback);
   document.getElementById("calibrate-form").addEventListener("submit", submitCalibration);
   document.getElementById("calibrate-apply").addEventListener("click", applyCalibration);
+  document.getElementById("calibrate-file").addEventListener("change", async (ev) => {
+    const file = ev.target.files && ev.target.files[0];
+    if (file) document.getElementById("calibrate-csv").value = await file.text();
+  });
   loadAll();
 });
