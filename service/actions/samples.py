@@ -136,9 +136,10 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     events = [e for r in results for e in r.events]
     alarms = sum(1 for e in events if e["kind"] == "drift_alarm")
     resid_list = [r if math.isfinite(r) else None for r in resid.tolist()]
+    stats = np.concatenate([r.drift_statistic for r in results]).tolist() if results else []
     pk = ch.pk
     rows = [(pk, n0 + k + 1, v0 + k + 1, source, samples[i].seq if source is not None else None,
-             samples[i].t or now, now, xs[k], samples[i].y, resid_list[k], status[k] == "accepted",
+             samples[i].t or now, now, xs[k], samples[i].y, resid_list[k], stats[k], status[k] == "accepted",
              None if status[k] == "accepted" else status[k])
             for k, i in enumerate(keep)]
     repo.insert_samples(rows)
@@ -219,5 +220,5 @@ def export(repo: Repository, channel_id: str, *, cursor: str | None, limit: int)
     rows = repo.list_samples(ch.pk, after_seq=after, limit=limit + 1)
     items = [{"seq": r.seq, "t": r.t, "received_at": r.received_at, "source": r.source,
               "source_seq": r.source_seq, "x": r.x, "y": r.y, "residual": r.residual,
-              "accepted": r.accepted, "reason": r.reason} for r in rows[:limit]]
+              "drift_statistic": r.drift_statistic, "accepted": r.accepted, "reason": r.reason} for r in rows[:limit]]
     return Page(items, encode_cursor(rows[limit - 1].seq) if len(rows) > limit else None)

@@ -16,7 +16,7 @@ from .cache import VersionCache
 from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
-                  "residual", "accepted", "reason")
+                  "residual", "drift_statistic", "accepted", "reason")
 _SAMPLE_INSERT_SQLITE = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                          f"VALUES ({', '.join('?' for _ in SAMPLE_COLUMNS)})")
 _SAMPLE_INSERT_PG = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "

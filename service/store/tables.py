@@ -113,6 +113,7 @@ class Sample(Base):
     x: Mapped[list[float]] = mapped_column(JSON)
     y: Mapped[float] = mapped_column(Float)
     residual: Mapped[float | None] = mapped_column(Float, nullable=True)
+    drift_statistic: Mapped[float | None] = mapped_column(Float, nullable=True)
     accepted: Mapped[bool] = mapped_column(Boolean)
     reason: Mapped[str | None] = mapped_column(String(16), nullable=True)
 

@@ -1009,3 +1009,21 @@ def test_export_csv_pages(client: TestClient, keys: Keys, channel: str) -> None:
     r2 = client.get(f"{CHANNELS}/{channel}/samples?format=csv&limit=2&cursor={cursor}",
                     headers=keys["technician"])
     assert [row["seq"] for row in csv.DictReader(io.StringIO(r2.text))] == ["3", "4"]
+
+
+def test_each_stored_sample_keeps_the_drift_statistic_after_it(client: TestClient, admin: dict[str, str],
+                                                               make_channel: Any) -> None:
+    from service.core import ChannelModel
+
+    make_channel("site-a.stat")
+    rng = np.random.default_rng(5)
+    x = rng.uniform(0, 100, 80)
+    y = 2 * x + 1 + rng.normal(0, 0.1, 80)
+    y[60:] += 1.0  # a lasting step: the statistic climbs
+    r = client.post("/v1/channels/site-a.stat/samples", headers=admin,
+                    json={"samples": [{"x": float(a), "y": float(b)} for a, b in zip(x, y, strict=True)]})
+    assert r.status_code == 200
+    stored = client.get("/v1/channels/site-a.stat/samples?limit=1000", headers=admin).json()["items"]
+    model = ChannelModel.from_config({"id": "site-a.stat", **LINEAR})
+    expected = model.learn(x, y).drift_statistic.tolist()
+    assert [s["drift_statistic"] for s in stored] == expected

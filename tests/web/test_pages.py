@@ -214,6 +214,10 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     assert page.locator("#curve-plot .scatterlayer .trace path.js-line").count() >= 1
     assert page.locator("#curve-plot .scatterlayer .trace path.js-fill").count() >= 1
     assert page.locator("#curve-plot .scatterlayer .points path").count() > 50
+    # the residual history carries the drift statistic of each sample and its thresholds
+    stat = page.evaluate("document.getElementById('residual-plot').data"
+                         ".filter(t => t.name === 'drift statistic').map(t => t.y.length)")
+    assert stat and stat[0] > 50
     n_points = page.evaluate("document.getElementById('curve-plot').data[2].x.length")
     assert n_points == 201
     assert page.locator("#residual-plot .scatterlayer .points path").count() > 50

@@ -41,7 +41,8 @@ def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     return out
 
 
-CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "accepted", "reason"]
+CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
+              "accepted", "reason"]
 
 
 @router.get("/v1/channels/{channel_id}/samples", summary="Stored samples, paged (JSON or CSV)",
@@ -62,6 +63,7 @@ def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100,
                          "" if it["source_seq"] is None else it["source_seq"],
                          x[0] if len(x) == 1 else ";".join(repr(v) for v in x), repr(it["y"]),
                          "" if it["residual"] is None else repr(it["residual"]),
+                         "" if it["drift_statistic"] is None else repr(it["drift_statistic"]),
                          "true" if it["accepted"] else "false", it["reason"] or ""])
     headers = {"X-Next-Cursor": page.next_cursor} if page.next_cursor else {}
     return Response(buf.getvalue(), media_type="text/csv; charset=utf-8", headers=headers)

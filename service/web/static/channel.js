@@ -116,12 +116,24 @@ function renderResiduals() {
     `Prior residual (reference − curve before the step) of each recent sample, in ${outUnit()}. ` +
     `Drift detector ${d.detector}: statistic ${CK.num(d.statistic, "", 3)} now ` +
     `(warning at ${CK.num(d.warning, "", 3)}, alarm at ${CK.num(d.alarm, "", 3)}).`;
+  const withStat = page.samples.filter((s) => s.drift_statistic !== null && s.drift_statistic !== undefined);
+  const times = page.samples.map((s) => s.t);
+  const first = times[0], last = times[times.length - 1];
+  const layout = plotLayout("sample time (UTC)", `residual (${outUnit()})`);
+  layout.yaxis2 = { title: { text: "drift statistic (no unit)" }, overlaying: "y", side: "right", rangemode: "tozero",
+                    showgrid: false };
   return Plotly.react("residual-plot", [
     { x: acc.map((s) => s.t), y: acc.map((s) => s.residual), mode: "markers", name: "learned",
       marker: { color: COLOURS.accepted, size: 4 } },
     { x: rej.map((s) => s.t), y: rej.map((s) => s.residual), mode: "markers", name: "held back",
       marker: { color: COLOURS.rejected, size: 8, symbol: "x-thin-open", line: { width: 2, color: COLOURS.rejected } } },
-  ], plotLayout("sample time (UTC)", `residual (${outUnit()})`), PLOT_CONFIG);
+    { x: withStat.map((s) => s.t), y: withStat.map((s) => s.drift_statistic), mode: "lines", name: "drift statistic",
+      yaxis: "y2", line: { color: "#6b4e8a", width: 1.5 } },
+    { x: [first, last], y: [d.warning, d.warning], mode: "lines", name: "warning", yaxis: "y2",
+      line: { color: "#b7791f", width: 1, dash: "dot" } },
+    { x: [first, last], y: [d.alarm, d.alarm], mode: "lines", name: "alarm", yaxis: "y2",
+      line: { color: "#9b2c2c", width: 1, dash: "dash" } },
+  ], layout, PLOT_CONFIG);
 }
 
 function renderSnapshots() {
