@@ -121,7 +121,7 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     for i in range(5):
         api.create_channel(poly(f"list.c{i}"))
     api.post_samples("list.c3", [{"x": 10.0, "y": 10.2, "t": "2026-12-01T10:00:00Z"}])
-    monkeypatch.setattr(techcli, "PAGE", 2)
+    monkeypatch.setattr(techcli.common, "PAGE", 2)
     assert main(["channels", "list", "--prefix", "list."]) == 0
     out = capsys.readouterr().out.splitlines()
     assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample"]

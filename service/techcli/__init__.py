@@ -1,0 +1,111 @@
+"""The technician's commands: a client of a running service.
+
+``curvekeeper channels list``, ``channels show``, ``curve``, ``snapshots list|take|diff``,
+``rollback``, ``calibrate``, ``samples export|load``. The service's address comes from
+``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
+environment variable ``CURVEKEEPER_KEY``, never from a flag, so it stays out of shell history
+and process lists.
+
+Exit codes: 0 done, 1 the service refused (its message is shown), 2 a usage or local error
+(no key, a bad CSV file, no confirmation), 3 the service could not be reached.
+"""
+
+from __future__ import annotations
+
+import argparse
+from typing import Any
+
+from .commands import (
+    calibrate,
+    channels_list,
+    channels_show,
+    curve,
+    rollback,
+    samples_export,
+    samples_load,
+    snapshots_diff,
+    snapshots_list,
+    snapshots_take,
+)
+from .common import DEFAULT_URL, _runner
+
+__all__ = ["add_commands"]
+
+
+def _common() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(add_help=False)
+    g = p.add_argument_group("service")
+    g.add_argument("--url", help=f"the service (default $CURVEKEEPER_URL or {DEFAULT_URL}); "
+                                 "the key is read from $CURVEKEEPER_KEY")
+    g.add_argument("--timeout", type=float, default=30.0, help="seconds per request (default 30)")
+    g.add_argument("--retries", type=int, default=3, help="retries on busy or unreachable service (default 3)")
+    return p
+
+
+def add_commands(sub: Any) -> None:
+    """Register the technician's commands on the ``curvekeeper`` sub-parsers."""
+    common = [_common()]
+
+    ch = sub.add_parser("channels", help="list channels or show one (service client)")
+    ch_sub = ch.add_subparsers(dest="channels_command", required=True)
+    ls = ch_sub.add_parser("list", parents=common, help="all channels (every page)")
+    ls.add_argument("--prefix", help="only ids starting with this")
+    ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance"])
+    ls.add_argument("--json", action="store_true", help="the service's items as JSON")
+    ls.set_defaults(func=_runner(channels_list))
+    show = ch_sub.add_parser("show", parents=common, help="one channel's configuration and summary")
+    show.add_argument("channel")
+    show.add_argument("--json", action="store_true")
+    show.set_defaults(func=_runner(channels_show))
+
+    cv = sub.add_parser("curve", parents=common, help="a channel's curve over its input range, with coefficients")
+    cv.add_argument("channel")
+    cv.add_argument("--points", type=int, default=11, help="points over the input range (default 11)")
+    cv.add_argument("--json", action="store_true")
+    cv.set_defaults(func=_runner(curve))
+
+    sn = sub.add_parser("snapshots", help="list, take or compare a channel's snapshots (service client)")
+    sn_sub = sn.add_subparsers(dest="snapshots_command", required=True)
+    sl = sn_sub.add_parser("list", parents=common, help="a channel's snapshots")
+    sl.add_argument("channel")
+    sl.add_argument("--json", action="store_true")
+    sl.set_defaults(func=_runner(snapshots_list))
+    st = sn_sub.add_parser("take", parents=common, help="store a copy of the channel's current state")
+    st.add_argument("channel")
+    st.add_argument("--label")
+    st.set_defaults(func=_runner(snapshots_take))
+    sd = sn_sub.add_parser("diff", parents=common,
+                           help="largest difference between two snapshots' curves over the input range")
+    sd.add_argument("channel")
+    sd.add_argument("a", type=int, metavar="SID_A")
+    sd.add_argument("b", type=int, metavar="SID_B")
+    sd.set_defaults(func=_runner(snapshots_diff))
+
+    rb = sub.add_parser("rollback", parents=common, help="restore a snapshot (asks first unless --yes)")
+    rb.add_argument("channel")
+    rb.add_argument("snapshot", type=int, metavar="SID")
+    rb.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
+    rb.set_defaults(func=_runner(rollback))
+
+    cal = sub.add_parser("calibrate", parents=common,
+                         help="least-squares fit on bench points from a CSV file (x,y or x1,...,xn,y)")
+    cal.add_argument("channel")
+    cal.add_argument("file", metavar="FILE.csv")
+    cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
+    cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
+    cal.set_defaults(func=_runner(calibrate))
+
+    sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")
+    sa_sub = sa.add_subparsers(dest="samples_command", required=True)
+    ex = sa_sub.add_parser("export", parents=common, help="all stored samples as CSV")
+    ex.add_argument("channel")
+    ex.add_argument("--out", help="file to write (default: standard output)")
+    ex.set_defaults(func=_runner(samples_export))
+    ld = sa_sub.add_parser("load", parents=common,
+                           help="post x,y[,t] rows from a CSV file in batches; re-running resumes")
+    ld.add_argument("channel")
+    ld.add_argument("file", metavar="FILE.csv")
+    ld.add_argument("--source", help="source name; with seq = row number it makes a re-run idempotent "
+                                     "(default csv:<file name>)")
+    ld.add_argument("--batch", type=int, default=1000, help="rows per request (default 1000)")
+    ld.set_defaults(func=_runner(samples_load))
