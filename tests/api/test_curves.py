@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
+from tests.api.helpers import Headers, expect_error
 from tests.conftest import store_fingerprint
 
-Headers = dict[str, str]
 Keys = dict[str, Headers]
 
 CH = "site-a.p1"
@@ -42,31 +42,6 @@ TWO_INPUTS = {
 
 
 # helpers ---------------------------------------------------------------------------
-def expect_error(
-    client: TestClient,
-    method: str,
-    url: str,
-    status: int,
-    code: str | set[str],
-    *,
-    headers: Headers | None = None,
-    json: Any = None,
-    text: str | None = None,
-    params: dict[str, Any] | None = None,
-) -> dict[str, Any]:
-    """Send a request that must fail: check status, error code and message, and that the
-    store is exactly as before. Returns the error object."""
-    before = store_fingerprint(client)
-    h = dict(headers or {})
-    if text is not None:
-        h["content-type"] = "application/json"
-    r = client.request(method, url, headers=h, json=json, content=text, params=params)
-    assert r.status_code == status, r.text[:800]
-    err = r.json()["error"]
-    assert err["code"] in ({code} if isinstance(code, str) else code), err
-    assert isinstance(err["message"], str) and err["message"], err
-    assert store_fingerprint(client) == before, "a failed request changed the store"
-    return err  # type: ignore[no-any-return]
 
 
 def points(xs: list[Any], ys: list[float]) -> list[dict[str, Any]]:

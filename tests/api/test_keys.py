@@ -17,45 +17,17 @@ from service.api import create_app
 from service.auth import hash_secret
 from service.config import Settings
 from service.store.tables import ApiKey
+from tests.api.helpers import Headers, expect_error, ok
 from tests.conftest import ADMIN_SECRET, auth, store_fingerprint
 
-Headers = dict[str, str]
 Keys = dict[str, Headers]
 
 KEYS = "/v1/keys"
 
 
 # helpers ---------------------------------------------------------------------------
-def expect_error(
-    client: TestClient,
-    method: str,
-    url: str,
-    status: int,
-    code: str,
-    *,
-    headers: Headers | None = None,
-    json: Any = None,
-    text: str | None = None,
-    params: dict[str, Any] | None = None,
-) -> dict[str, Any]:
-    """Send a request that must fail: check status, error code and message, and that the
-    store is exactly as before. Returns the error object."""
-    before = store_fingerprint(client)
-    h = dict(headers or {})
-    if text is not None:
-        h["content-type"] = "application/json"
-    r = client.request(method, url, headers=h, json=json, content=text, params=params)
-    assert r.status_code == status, r.text[:800]
-    err = r.json()["error"]
-    assert err["code"] == code, err
-    assert isinstance(err["message"], str) and err["message"], err
-    assert store_fingerprint(client) == before, "a failed request changed the store"
-    return err  # type: ignore[no-any-return]
 
 
-def ok(r: Any, status: int = 200) -> Any:
-    assert r.status_code == status, r.text[:800]
-    return r.json()
 
 
 def new_key(client: TestClient, admin: Headers, **body: Any) -> dict[str, Any]:

@@ -1,0 +1,44 @@
+"""Helpers shared by the API tests."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi.testclient import TestClient
+
+from tests.conftest import store_fingerprint
+
+Headers = dict[str, str]
+
+
+def expect_error(
+    client: TestClient,
+    method: str,
+    url: str,
+    status: int,
+    code: str | set[str],
+    *,
+    headers: Headers | None = None,
+    json: Any = None,
+    text: str | None = None,
+    params: dict[str, Any] | None = None,
+) -> dict[str, Any]:
+    """Send a request that must fail: check status, error code (one, or one of a set) and
+    message, and that the store is exactly as before. Returns the error object."""
+    before = store_fingerprint(client)
+    h = dict(headers or {})
+    if text is not None:
+        h["content-type"] = "application/json"
+    r = client.request(method, url, headers=h, json=json, content=text, params=params)
+    assert r.status_code == status, r.text[:800]
+    err = r.json()["error"]
+    assert err["code"] in ({code} if isinstance(code, str) else code), err
+    assert isinstance(err["message"], str) and err["message"], err
+    assert store_fingerprint(client) == before, "a failed request changed the store"
+    return err  # type: ignore[no-any-return]
+
+
+def ok(r: Any, status: int = 200) -> Any:
+    """The JSON body of an answer that must have this status."""
+    assert r.status_code == status, r.text[:800]
+    return r.json()
