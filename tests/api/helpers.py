@@ -2,13 +2,20 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Any
 
+import httpx
 from fastapi.testclient import TestClient
 
 from tests.conftest import store_fingerprint
 
 Headers = dict[str, str]
+Keys = dict[str, Headers]
+
+#: a 422 comes from the request schema (validation_error) or from the rules below it
+CODES_422 = {"validation_error", "invalid_request"}
 
 
 def expect_error(
@@ -42,3 +49,34 @@ def ok(r: Any, status: int = 200) -> Any:
     """The JSON body of an answer that must have this status."""
     assert r.status_code == status, r.text[:800]
     return r.json()
+
+
+def assert_error(r: httpx.Response, status: int, code: str | set[str]) -> dict[str, Any]:
+    """The contract's error body, with this status and code (or one of these codes);
+    returns ``error``."""
+    assert r.status_code == status, r.text
+    body = r.json()
+    assert set(body) == {"error"}, body
+    err: dict[str, Any] = body["error"]
+    assert err["code"] in ({code} if isinstance(code, str) else code), err
+    assert isinstance(err["message"], str) and err["message"], err
+    assert "details" in err
+    return err
+
+
+class Cases:
+    """Many small cases in one test (one store, one set-up); every failing case is
+    reported by name, not just the first."""
+
+    def __init__(self) -> None:
+        self.failed: list[str] = []
+
+    @contextmanager
+    def case(self, name: str) -> Iterator[None]:
+        try:
+            yield
+        except AssertionError as exc:
+            self.failed.append(f"[{name}] {exc}")
+
+    def done(self) -> None:
+        assert not self.failed, f"{len(self.failed)} case(s) failed:\n" + "\n".join(self.failed)

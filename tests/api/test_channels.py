@@ -9,8 +9,6 @@ then success. Every failed request must leave the store exactly as it was
 from __future__ import annotations
 
 import copy
-from collections.abc import Iterator
-from contextlib import contextmanager
 from datetime import datetime
 from typing import Any
 
@@ -22,10 +20,8 @@ from sqlalchemy import select
 
 from service.core import ChannelModel
 from service.store.tables import Channel, ChannelState
+from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
 from tests.conftest import LINEAR, store_fingerprint
-
-Headers = dict[str, str]
-Keys = dict[str, Headers]
 
 CHANNELS = "/v1/channels"
 
@@ -49,17 +45,6 @@ def send_text(client: TestClient, method: str, url: str, text: str, headers: Hea
     return r
 
 
-def assert_error(r: httpx.Response, status: int, code: str | set[str]) -> dict[str, Any]:
-    """The contract's error body, with this status and code (or one of these codes);
-    returns ``error``."""
-    assert r.status_code == status, r.text
-    body = r.json()
-    assert set(body) == {"error"}, body
-    err: dict[str, Any] = body["error"]
-    assert err["code"] in ({code} if isinstance(code, str) else code), err
-    assert isinstance(err["message"], str) and err["message"], err
-    assert "details" in err
-    return err
 
 
 def in_control(n: int, seed: int) -> list[dict[str, Any]]:
@@ -96,22 +81,6 @@ def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
     return state
 
 
-class Cases:
-    """Many small cases in one test (one store, one set-up); every failing case is
-    reported by name, not just the first."""
-
-    def __init__(self) -> None:
-        self.failed: list[str] = []
-
-    @contextmanager
-    def case(self, name: str) -> Iterator[None]:
-        try:
-            yield
-        except AssertionError as exc:
-            self.failed.append(f"[{name}] {exc}")
-
-    def done(self) -> None:
-        assert not self.failed, f"{len(self.failed)} case(s) failed:\n" + "\n".join(self.failed)
 
 
 def headers_for(keys: Keys, who: str | None) -> Headers:
@@ -126,7 +95,6 @@ def headers_for(keys: Keys, who: str | None) -> Headers:
 #: callers a technician route refuses: (who, status, code)
 #: the codes of a 422: refused by the request schema, or by the rules below it (the core's
 #: config rules, the cursor); which of the two does it is not part of the contract
-CODES_422 = {"validation_error", "invalid_request"}
 
 NOT_TECHNICIANS = [(None, 401, "unauthorized"), ("bad", 401, "unauthorized"), ("revoked", 401, "unauthorized"),
                    ("device", 403, "forbidden"), ("other_device", 403, "forbidden")]

@@ -16,7 +16,6 @@ import io
 import json
 import math
 from collections.abc import Iterator
-from contextlib import contextmanager
 from datetime import datetime
 from typing import Any
 
@@ -30,10 +29,8 @@ from service.api import create_app
 from service.config import Settings
 from service.core import ChannelModel
 from service.store.tables import Channel, ChannelState, Sample, Snapshot
+from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
 from tests.conftest import LINEAR, store_fingerprint
-
-Headers = dict[str, str]
-Keys = dict[str, Headers]
 
 CHANNELS = "/v1/channels"
 GATEWAY = "/v1/samples"
@@ -67,17 +64,6 @@ def send_text(client: TestClient, url: str, text: str, headers: Headers) -> http
     return r
 
 
-def assert_error(r: httpx.Response, status: int, code: str | set[str]) -> dict[str, Any]:
-    """The contract's error body, with this status and code (or one of these codes);
-    returns ``error``."""
-    assert r.status_code == status, r.text
-    body = r.json()
-    assert set(body) == {"error"}, body
-    err: dict[str, Any] = body["error"]
-    assert err["code"] in ({code} if isinstance(code, str) else code), err
-    assert isinstance(err["message"], str) and err["message"], err
-    assert "details" in err
-    return err
 
 
 def in_control(n: int, seed: int, offset: float = 0.0) -> list[dict[str, Any]]:
@@ -179,22 +165,6 @@ def compact_batch(n: int, channel: str | None = None) -> str:
     return '{"samples":[' + ",".join([item] * n) + "]}"
 
 
-class Cases:
-    """Many small cases in one test (one store, one set-up); every failing case is
-    reported by name, not just the first."""
-
-    def __init__(self) -> None:
-        self.failed: list[str] = []
-
-    @contextmanager
-    def case(self, name: str) -> Iterator[None]:
-        try:
-            yield
-        except AssertionError as exc:
-            self.failed.append(f"[{name}] {exc}")
-
-    def done(self) -> None:
-        assert not self.failed, f"{len(self.failed)} case(s) failed:\n" + "\n".join(self.failed)
 
 
 @pytest.fixture
@@ -214,7 +184,6 @@ def _headers(keys: Keys, who: str | None) -> Headers:
 
 #: the codes of a 422: refused by the request schema, or by the rules below it (input
 #: counts, the cursor); which of the two does it is not part of the contract
-CODES_422 = {"validation_error", "invalid_request"}
 
 UNAUTHORISED = [(None, 401, "unauthorized"), ("bad", 401, "unauthorized"), ("revoked", 401, "unauthorized")]
 
