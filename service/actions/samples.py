@@ -13,6 +13,7 @@ import numpy as np
 from ..core import ChannelModel, InputError, LearnResult
 from ..errors import InvalidRequest
 from ..store import Repository
+from ..store.repository import SampleRows
 from ..store.tables import Channel, ChannelState, utcnow
 from .channels import load
 from .models import save_model, write_model
@@ -137,12 +138,12 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     alarms = sum(1 for e in events if e["kind"] == "drift_alarm")
     resid_list = [r if math.isfinite(r) else None for r in resid.tolist()]
     stats = np.concatenate([r.drift_statistic for r in results]).tolist() if results else []
-    pk = ch.pk
-    rows = [(pk, n0 + k + 1, v0 + k + 1, source, samples[i].seq if source is not None else None,
-             samples[i].t or now, now, xs[k], samples[i].y, resid_list[k], stats[k], status[k] == "accepted",
-             None if status[k] == "accepted" else status[k])
-            for k, i in enumerate(keep)]
-    repo.insert_samples(rows)
+    kept = [samples[i] for i in keep]
+    times = [s.t or now for s in kept]
+    repo.insert_samples(SampleRows(
+        channel_pk=ch.pk, first_seq=n0 + 1, first_version=v0 + 1, source=source,
+        source_seqs=[s.seq for s in kept] if source is not None else None, times=times, received_at=now,
+        x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats, status=status))
     event_rows = []
     for k, kind, state in snaps:
         snap = repo.insert_snapshot(ch.pk, reason=kind, label=None, model_state=state, version=v0 + k,
@@ -160,8 +161,8 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     rejected = [{"index": i, "reason": status[k]} for k, i in enumerate(keep) if status[k] != "accepted"]
     summary = model.summary()
     values: dict[str, Any] = {"n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected)}
-    if rows:
-        latest = max(r[5] for r in rows)
+    if times:
+        latest = max(times)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
     save_model(repo, st, model, v0 + n_kept, **values)
     per_request: list[float | None] = [None] * len(samples)
@@ -177,7 +178,7 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
 
 def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleLike], source: str | None,
            key_id: str | None) -> ChannelOutcome:
-    ch, st = load(repo, channel_id, lock=True)
+    ch, st = load(repo, channel_id, lock=True, config=False)
     return ingest_channel(repo, ch, st, samples, source, key_id)
 
 
@@ -194,7 +195,7 @@ def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], so
     accepted = duplicates = alarms = 0
     for cid in sorted(groups):
         idx = groups[cid]
-        ch, st = load(repo, cid, lock=True)
+        ch, st = load(repo, cid, lock=True, config=False)
         try:
             out = ingest_channel(repo, ch, st, [items[i][1] for i in idx], source, key_id)
         except InvalidRequest as exc:

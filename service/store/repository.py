@@ -4,9 +4,13 @@ session scope commits or rolls back the whole request at once."""
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
 from datetime import UTC, datetime
+from itertools import repeat
 from typing import Any, cast
 
+import numpy as np
+from numpy.typing import NDArray
 from sqlalchemy import Table, bindparam, func, insert, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
@@ -21,6 +25,27 @@ _SAMPLE_INSERT_SQLITE = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                          f"VALUES ({', '.join('?' for _ in SAMPLE_COLUMNS)})")
 _SAMPLE_INSERT_PG = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                      f"VALUES ({', '.join('%s::json' if c == 'x' else '%s' for c in SAMPLE_COLUMNS)})")
+
+
+@dataclass(frozen=True)
+class SampleRows:
+    """A run of samples learned in order on one channel, column by column (n samples):
+    seq and version count up from ``first_seq`` and ``first_version``; ``times`` and
+    ``received_at`` are aware datetimes; ``x`` is (n, d) raw inputs; ``status`` is
+    "accepted" or the reason the sample was held back."""
+
+    channel_pk: int
+    first_seq: int
+    first_version: int
+    source: str | None
+    source_seqs: list[int | None] | None
+    times: list[datetime]
+    received_at: datetime
+    x: NDArray[np.float64]
+    y: list[float]
+    residual: list[float | None]
+    drift_statistic: list[float]
+    status: list[str]
 
 
 def _json_floats(x: list[float]) -> str:
@@ -41,6 +66,9 @@ _CHANNEL = (select(Channel, ChannelState)
             .where(Channel.id == bindparam("cid"))
             .options(defer(ChannelState.model_state, raiseload=True)))
 _CHANNEL_FOR_UPDATE = _CHANNEL.with_for_update(of=ChannelState)
+# learning needs the channel's key and state only; its config is inside the cached model
+_CHANNEL_NO_CONFIG = _CHANNEL.options(defer(Channel.config, raiseload=True))
+_CHANNEL_NO_CONFIG_FOR_UPDATE = _CHANNEL_FOR_UPDATE.options(defer(Channel.config, raiseload=True))
 _STATE_UPDATES: dict[tuple[str, ...], Any] = {}
 _SEEN = (select(Sample.source_seq)
          .where(Sample.channel_pk == bindparam("pk"), Sample.source == bindparam("source"),
@@ -63,10 +91,15 @@ class Repository:
     def get_channel(self, channel_id: str) -> Channel | None:
         return self.session.scalars(select(Channel).where(Channel.id == channel_id)).one_or_none()
 
-    def channel_and_state(self, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState] | None:
+    def channel_and_state(self, channel_id: str, *, lock: bool = False, config: bool = True
+                          ) -> tuple[Channel, ChannelState] | None:
         """The channel with its state row; ``lock`` takes the row lock for a write
-        (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""
-        stmt = _CHANNEL_FOR_UPDATE if lock and self.postgres else _CHANNEL
+        (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already);
+        ``config=False`` leaves the channel's config unloaded (reading it then raises)."""
+        if config:
+            stmt = _CHANNEL_FOR_UPDATE if lock and self.postgres else _CHANNEL
+        else:
+            stmt = _CHANNEL_NO_CONFIG_FOR_UPDATE if lock and self.postgres else _CHANNEL_NO_CONFIG
         row = self.session.execute(stmt, {"cid": channel_id}).one_or_none()
         return None if row is None else (row[0], row[1])
 
@@ -129,24 +162,32 @@ class Repository:
                                                          "lo": min(wanted), "hi": max(wanted)})
         return {s for (s,) in rows if s in wanted}
 
-    def insert_samples(self, rows: list[tuple[Any, ...]]) -> None:
-        """Append samples: tuples in ``SAMPLE_COLUMNS`` order (t and received_at aware
-        datetimes, x a list of floats). One executemany on the driver, skipping per-value
-        type processing, which costs more than the insert itself for large batches."""
-        if not rows:
+    def insert_samples(self, rows: SampleRows) -> None:
+        """Append a run of samples with consecutive seq and version numbers. One executemany
+        on the driver with the columns zipped together, skipping per-value type processing,
+        which costs more than the insert itself for large batches."""
+        n = len(rows.y)
+        if n == 0:
             return
-        conn = self.session.connection()
+        X = rows.x
+        xs = ([f"[{v!r}]" for v in X[:, 0].tolist()] if X.shape[1] == 1 else [_json_floats(r) for r in X.tolist()])
+        accepted = [s == "accepted" for s in rows.status]
+        reasons = [None if s == "accepted" else s for s in rows.status]
+        seqs = rows.source_seqs if rows.source_seqs is not None else repeat(None, n)
+        times: Iterable[Any]
         if self.postgres:
-            conn.exec_driver_sql(_SAMPLE_INSERT_PG, [
-                (*r[:5], r[5], r[6], _json_floats(r[7]), *r[8:]) for r in rows])
+            times, received, sql = rows.times, rows.received_at, _SAMPLE_INSERT_PG
         else:
-            times: dict[datetime, str] = {}
-            for r in rows:
-                for t in (r[5], r[6]):
-                    if t not in times:
-                        times[t] = _sqlite_time(t)
-            conn.exec_driver_sql(_SAMPLE_INSERT_SQLITE, [
-                (*r[:5], times[r[5]], times[r[6]], _json_floats(r[7]), *r[8:]) for r in rows])
+            text: dict[datetime, str] = {}
+            for t in rows.times:
+                if t not in text:
+                    text[t] = _sqlite_time(t)
+            times, received, sql = [text[t] for t in rows.times], _sqlite_time(rows.received_at), _SAMPLE_INSERT_SQLITE
+        params = list(zip(repeat(rows.channel_pk, n), range(rows.first_seq, rows.first_seq + n),
+                          range(rows.first_version, rows.first_version + n), repeat(rows.source, n), seqs, times,
+                          repeat(received, n), xs, rows.y, rows.residual, rows.drift_statistic, accepted, reasons,
+                          strict=False))
+        self.session.connection().exec_driver_sql(sql, params)
 
     def list_samples(self, channel_pk: int, *, after_seq: int | None, limit: int) -> Sequence[Sample]:
         stmt = select(Sample).where(Sample.channel_pk == channel_pk).order_by(Sample.seq).limit(limit)
