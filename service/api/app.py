@@ -8,6 +8,7 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
+from threadpoolctl import threadpool_limits
 
 from .. import __version__, auth
 from ..config import Settings
@@ -34,6 +35,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        # one BLAS thread: requests are the unit of parallelism here; on shared cores a
+        # multi-threaded BLAS stalled fits and predicts by up to 10x (tests/bench/cost_bench.py)
+        threadpool_limits(limits=1)
         store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
         try:
             if settings.admin_key:

@@ -11,6 +11,7 @@ covariance is T C T^T.
 
 from __future__ import annotations
 
+import functools
 import itertools
 from abc import ABC, abstractmethod
 from typing import Any
@@ -66,6 +67,33 @@ def total_degree_terms(d: int, degree: int) -> list[tuple[int, ...]]:
     return terms
 
 
+@functools.lru_cache(maxsize=256)
+def _poly_raw_map(lo: tuple[float, ...], hi: tuple[float, ...], degree: int, terms: tuple[tuple[int, ...], ...],
+                  intercept: bool) -> Array:
+    """The poly basis' raw map (read-only; cached: building it costs about 10 ms at degree 15,
+    more than a closed-form fit of 10,000 samples)."""
+    d = len(lo)
+    # U[i][k] = power-series coefficients in raw x_i of T_k(a_i x_i + b_i)
+    U = []
+    for i in range(d):
+        rows = []
+        for k in range(degree + 1):
+            coef = Chebyshev.basis(k, domain=[lo[i], hi[i]]).convert(kind=Polynomial).coef
+            rows.append(np.pad(coef, (0, degree + 1 - coef.size)))
+        U.append(np.array(rows))
+    monomials = total_degree_terms(d, degree)
+    T = np.zeros((len(monomials), len(terms)))
+    for j, term in enumerate(terms):
+        for r, mono in enumerate(monomials):
+            if any(m > t for m, t in zip(mono, term, strict=True)):
+                continue
+            T[r, j] = np.prod([U[i][term[i]][mono[i]] for i in range(d)])
+    if not intercept:
+        T[0, :] = 0.0  # T_k(s(x)) - T_k(s(0)) has no constant term
+    T.setflags(write=False)
+    return T
+
+
 class PolyBasis(Basis):
     """Products of Chebyshev polynomials T_k of each scaled input s = a x + b.
 
@@ -98,25 +126,8 @@ class PolyBasis(Basis):
 
     def raw_map(self) -> Array:
         sc = self.scaler
-        # U[i][k] = power-series coefficients in raw x_i of T_k(a_i x_i + b_i)
-        U = []
-        for i in range(sc.d):
-            domain = [float(sc.lo[i]), float(sc.hi[i])]
-            rows = []
-            for k in range(self.degree + 1):
-                coef = Chebyshev.basis(k, domain=domain).convert(kind=Polynomial).coef
-                rows.append(np.pad(coef, (0, self.degree + 1 - coef.size)))
-            U.append(np.array(rows))
-        monomials = total_degree_terms(sc.d, self.degree)
-        T = np.zeros((len(monomials), self.size))
-        for j, term in enumerate(self.terms):
-            for r, mono in enumerate(monomials):
-                if any(m > t for m, t in zip(mono, term, strict=True)):
-                    continue
-                T[r, j] = np.prod([U[i][term[i]][mono[i]] for i in range(sc.d)])
-        if not self.intercept:
-            T[0, :] = 0.0  # T_k(s(x)) - T_k(s(0)) has no constant term
-        return T
+        return _poly_raw_map(tuple(float(v) for v in sc.lo), tuple(float(v) for v in sc.hi), self.degree,
+                             tuple(self.terms), self.intercept)
 
     def raw_terms(self) -> list[Any]:
         return [list(t) for t in total_degree_terms(self.scaler.d, self.degree)]

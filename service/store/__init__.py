@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sqlite3
 from collections.abc import Iterator
 from contextlib import contextmanager
 
@@ -11,16 +12,26 @@ from sqlalchemy.orm import sessionmaker
 from ..errors import StoreBusy
 from . import migrate
 from .cache import VersionCache
-from .engine import make_engine
+from .engine import is_sqlite, make_engine
 from .repository import Repository
 
-__all__ = ["Repository", "Store"]
+__all__ = ["Repository", "Store", "WriteLockTaken"]
+
+
+class WriteLockTaken(Exception):
+    """``transaction(write=True, wait=False)`` found the write lock held elsewhere: nothing
+    was done; run the work again with ``wait=True``."""
 
 
 class Store:
     """Owns the engine. ``transaction(write=True)`` takes the write lock up front
     (SQLite ``BEGIN IMMEDIATE``; row locks on PostgreSQL), commits on success and
-    rolls back on any error; a locked or unreachable database raises ``StoreBusy``."""
+    rolls back on any error; a locked or unreachable database raises ``StoreBusy``.
+
+    ``inline`` is true where a short transaction never waits on the network: SQLite. There
+    the HTTP layer runs small requests on its event loop, with ``wait=False`` for writes:
+    the write lock is taken only if it is free at once, else ``WriteLockTaken`` is raised
+    before anything is done (the request then waits for the lock in a worker thread)."""
 
     def __init__(self, url: str, *, busy_timeout_s: float = 5.0, prepare_schema: bool = True) -> None:
         self.url = url
@@ -33,11 +44,22 @@ class Store:
                 raise
         self._read = sessionmaker(self.engine, expire_on_commit=False)
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
+        self._write_now = sessionmaker(self.engine.execution_options(immediate=True, wait=False),
+                                       expire_on_commit=False)
         self.models = VersionCache()
+        self.inline = is_sqlite(url)
 
     @contextmanager
-    def transaction(self, *, write: bool) -> Iterator[Repository]:
-        session = (self._write if write else self._read)()
+    def transaction(self, *, write: bool, wait: bool = True) -> Iterator[Repository]:
+        if write and not wait and self.inline:
+            session = self._write_now()
+            try:
+                session.connection()  # BEGIN IMMEDIATE now, without waiting (on the driver)
+            except (OperationalError, sqlite3.OperationalError) as exc:
+                session.close()
+                raise WriteLockTaken() from exc
+        else:
+            session = (self._write if write else self._read)()
         try:
             repo = Repository(session, self.models)
             yield repo

@@ -46,5 +46,15 @@ def _sqlite_events(engine: Engine, busy_timeout_s: float) -> None:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
-        immediate = conn.get_execution_options().get("immediate", False)
-        conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
+        options = conn.get_execution_options()
+        if not options.get("immediate", False):
+            conn.exec_driver_sql("BEGIN")
+        elif options.get("wait", True):
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+        else:  # take the write lock only if it is free right now (on the driver: these run per request)
+            raw = conn.connection.dbapi_connection
+            raw.execute("PRAGMA busy_timeout=0")
+            try:
+                raw.execute("BEGIN IMMEDIATE")
+            finally:
+                raw.execute(f"PRAGMA busy_timeout={int(busy_timeout_s * 1000)}")

@@ -175,6 +175,7 @@ class Repository:
         reasons = [None if s == "accepted" else s for s in rows.status]
         seqs = rows.source_seqs if rows.source_seqs is not None else repeat(None, n)
         times: Iterable[Any]
+        received: Any
         if self.postgres:
             times, received, sql = rows.times, rows.received_at, _SAMPLE_INSERT_PG
         else:

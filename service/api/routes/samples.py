@@ -13,6 +13,7 @@ from ...actions import samples
 from ..deps import Ctx, Who, check_batch
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import GatewayIn, SamplesIn
+from ..work import run_store
 from .channels import ChannelPath, Limit
 
 router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
@@ -22,11 +23,11 @@ router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_respons
 # generic encoder walks every residual and costs more than the rest of the answer.
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order", response_model=None,
              responses={200: {"description": "what was learned, with each sample's residual"}})
-def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> JSONResponse:
+async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> JSONResponse:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
-    with ctx.store.transaction(write=True) as repo:
-        out = samples.ingest(repo, channel_id, body.samples, body.source, who.key_id)
+    out = await run_store(ctx.store, lambda repo: samples.ingest(repo, channel_id, body.samples, body.source,
+                                                                 who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     return JSONResponse({"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
                          "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples,
@@ -35,13 +36,13 @@ def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -
 
 @router.post("/v1/samples", summary="Gateway batch across channels", response_model=None,
              responses={200: {"description": "what was learned, per channel and per sample"}})
-def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> JSONResponse:
+async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> JSONResponse:
     check_batch(len(body.samples), ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
-    with ctx.store.transaction(write=True) as repo:
-        out = samples.ingest_gateway(repo, items, body.source, who.key_id)
+    out = await run_store(ctx.store, lambda repo: samples.ingest_gateway(repo, items, body.source, who.key_id),
+                          write=True, items=len(items))
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
     return JSONResponse(out)
 

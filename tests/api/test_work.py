@@ -1,0 +1,116 @@
+"""Where store work runs (service/api/work.py): small requests on SQLite run on the
+event loop and take the write lock only when it is free; when another writer holds it
+they wait in a worker thread, and past the busy timeout they answer 503 with nothing
+stored."""
+
+from __future__ import annotations
+
+import sqlite3
+import threading
+from collections.abc import Iterator
+
+import pytest
+from fastapi.testclient import TestClient
+
+from service.api.app import create_app
+from service.config import Settings
+from service.store import Store, WriteLockTaken
+from tests.conftest import ADMIN_SECRET, LINEAR, auth, store_fingerprint
+
+ADMIN = auth(ADMIN_SECRET)
+
+
+def sqlite_file(url: str) -> str:
+    return url.removeprefix("sqlite:///")
+
+
+@pytest.fixture
+def held(database_url: str) -> Iterator[sqlite3.Connection]:
+    """Another connection holding the store's write lock (SQLite only)."""
+    if not database_url.startswith("sqlite"):
+        pytest.skip("the write lock without waiting is SQLite's; PostgreSQL work always runs in worker threads")
+    conn = sqlite3.connect(sqlite_file(database_url), isolation_level=None, check_same_thread=False)
+    yield conn
+    conn.close()
+
+
+def test_store_write_without_waiting_raises_while_the_lock_is_held(database_url: str,
+                                                                   held: sqlite3.Connection) -> None:
+    store = Store(database_url, busy_timeout_s=5.0)
+    try:
+        held.execute("BEGIN IMMEDIATE")
+        with pytest.raises(WriteLockTaken), store.transaction(write=True, wait=False) as repo:
+            assert repo.channel_and_state("nowhere") is None
+        held.execute("ROLLBACK")
+        with store.transaction(write=True, wait=False) as repo:  # free again: taken at once
+            assert repo.channel_and_state("nowhere") is None
+    finally:
+        store.dispose()
+
+
+def test_postgres_store_is_never_inline(database_url: str) -> None:
+    store = Store(database_url)
+    try:
+        assert store.inline == database_url.startswith("sqlite")
+    finally:
+        store.dispose()
+
+
+def test_ingest_waits_for_a_writer_elsewhere_then_succeeds(database_url: str, held: sqlite3.Connection) -> None:
+    with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
+        assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
+        held.execute("BEGIN IMMEDIATE")
+        answers: list[int] = []
+        poster = threading.Thread(target=lambda: answers.append(client.post(
+            "/v1/channels/site-a.w1/samples", json={"samples": [{"x": 1.0, "y": 2.0}]}, headers=ADMIN).status_code))
+        poster.start()
+        poster.join(0.5)
+        assert poster.is_alive() and not answers, "the request must wait for the lock, not fail or skip it"
+        held.execute("ROLLBACK")
+        poster.join(10)
+        assert answers == [200]
+        got = client.get("/v1/channels/site-a.w1", headers=ADMIN).json()
+        assert got["n_samples"] == 1
+
+
+def test_ingest_answers_503_and_stores_nothing_past_the_busy_timeout(database_url: str,
+                                                                     held: sqlite3.Connection) -> None:
+    settings = Settings(database_url=database_url, admin_key=ADMIN_SECRET, busy_timeout_s=0.2)
+    with TestClient(create_app(settings)) as client:
+        assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
+        before = store_fingerprint(client)
+        held.execute("BEGIN IMMEDIATE")
+        try:
+            r = client.post("/v1/channels/site-a.w1/samples", json={"samples": [{"x": 1.0, "y": 2.0}]},
+                            headers=ADMIN)
+        finally:
+            held.execute("ROLLBACK")
+        assert r.status_code == 503
+        assert r.json()["error"]["code"] == "store_busy"
+        assert r.headers["Retry-After"]
+        assert store_fingerprint(client) == before
+
+
+def test_predict_reads_while_a_writer_holds_the_lock(database_url: str, held: sqlite3.Connection) -> None:
+    with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
+        assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
+        held.execute("BEGIN IMMEDIATE")
+        try:
+            r = client.post("/v1/channels/site-a.w1/predict", json={"x": [1.0, 2.0]}, headers=ADMIN)
+        finally:
+            held.execute("ROLLBACK")
+        assert r.status_code == 200
+        assert len(r.json()["y"]) == 2
+
+
+def test_large_batches_run_in_a_worker_thread_and_learn_in_order(client: TestClient) -> None:
+    assert client.post("/v1/channels", json={"id": "site-a.w2", **LINEAR}, headers=ADMIN).status_code == 201
+    samples = [{"x": float(i % 100), "y": 0.5 * (i % 100) + 3.0, "seq": i} for i in range(2500)]
+    r = client.post("/v1/channels/site-a.w2/samples", json={"source": "gw", "samples": samples}, headers=ADMIN)
+    assert r.status_code == 200, r.text
+    out = r.json()
+    assert out["n_samples"] == 2500 and out["accepted"] + len(out["rejected"]) == 2500
+    again = client.post("/v1/channels/site-a.w2/samples", json={"source": "gw", "samples": samples[:5]},
+                        headers=ADMIN)
+    assert again.json()["duplicates"] == 5
+
