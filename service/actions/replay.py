@@ -67,13 +67,13 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
         if snap is None:
             raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {from_snapshot}")
         model = ChannelModel.from_state(snap.model_state)
-        version = snap.version
+        version, seq = snap.version, snap.n_samples
     else:
         created = repo.first_event(ch.pk, "channel_created")
         if created is None:
             raise InvalidRequest(f"channel {channel_id!r} has no creation event to replay from")
         model = ChannelModel.from_config(created.details["config"])
-        version = 0
+        version = seq = 0
     start = version
     events = iter(repo.state_events(ch.pk, after_version=version, kinds=STATE_EVENTS[1:]))
     next_event = next(events, None)
@@ -90,7 +90,7 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
                 progress(len(run))
             run.clear()
 
-    for sample in _samples_after(repo, ch.pk, version):
+    for sample in _samples_after(repo, ch.pk, seq):
         while next_event is not None and next_event.version is not None and next_event.version < sample.version:
             flush()
             model = _apply(repo, ch.pk, model, next_event.kind, next_event.details)
@@ -112,14 +112,15 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
     return report
 
 
-def _samples_after(repo: Repository, channel_pk: int, version: int) -> Iterator[Sample]:
-    after = version
+def _samples_after(repo: Repository, channel_pk: int, seq: int) -> Iterator[Sample]:
+    """The samples stored after the ``seq``-th, in order, a page at a time."""
+    after = seq
     while True:
-        rows = repo.samples_after_version(channel_pk, after_version=after, limit=BATCH)
+        rows = repo.samples_after_seq(channel_pk, after_seq=after, limit=BATCH)
         if not rows:
             return
         yield from rows
-        after = rows[-1].version
+        after = rows[-1].seq
 
 
 def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, details: dict[str, Any]

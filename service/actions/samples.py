@@ -82,36 +82,46 @@ def _learn_with_alarm_snapshot(model: ChannelModel, X: np.ndarray, y: np.ndarray
     return again, merged, [(alarm, snap)]
 
 
+def _wrong_inputs(i: int, d: int) -> InvalidRequest:
+    return InvalidRequest(f"sample {i}: x needs {d} value(s), one per input, in the channel's input order",
+                          details={"index": i, "field": "x"})
+
+
 def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Sequence[SampleLike],
                    source: str | None, key_id: str | None) -> ChannelOutcome:
     """Learn ``samples`` (in order) on a locked channel and write everything for it."""
     now = utcnow()
-    keep: list[int] = []
-    duplicates = 0
+    model = write_model(repo, st)
+    d = len(model.config["inputs"])
+    seen: set[int] = set()
     if source is not None:
         seqs = [s.seq for s in samples if s.seq is not None]
-        seen = repo.seen_source_seqs(ch.pk, source, seqs) if seqs else set()
-    else:
-        seen = set()
+        if seqs:
+            seen = repo.seen_source_seqs(ch.pk, source, seqs)
+    # one pass: drop retried samples, check and gather the inputs of the rest
+    keep: list[int] = []
+    xs: list[Any] = []
+    ys: list[float] = []
+    duplicates = 0
     for i, s in enumerate(samples):
         if source is not None and s.seq is not None:
             if s.seq in seen:
                 duplicates += 1
                 continue
             seen.add(s.seq)
+        x = s.x
+        if isinstance(x, list):
+            if len(x) != d:
+                raise _wrong_inputs(i, d)
+            if d == 1:
+                x = x[0]
+        elif d != 1:
+            raise _wrong_inputs(i, d)
+        xs.append(x)
+        ys.append(s.y)
         keep.append(i)
-    model = write_model(repo, st)
-    d = len(model.config["inputs"])
-    xs: list[list[float]] = []
-    for i in keep:
-        x = samples[i].x
-        xi = x if isinstance(x, list) else [x]
-        if len(xi) != d:
-            raise InvalidRequest(f"sample {i}: x needs {d} value(s), one per input, in the channel's input order",
-                                 details={"index": i, "field": "x"})
-        xs.append(xi)
     X = np.array(xs, dtype=np.float64).reshape(len(keep), d)
-    y = np.array([samples[i].y for i in keep], dtype=np.float64)
+    y = np.array(ys, dtype=np.float64)
     n0, v0 = st.n_samples, st.version
     every = model.config["snapshot_every"]
     cuts = [k for k in range(1, len(keep) + 1) if every and (n0 + k) % every == 0]

@@ -230,10 +230,11 @@ class Repository:
             stmt = stmt.where(Snapshot.pk > after_pk)
         return self.session.scalars(stmt).all()
 
-    def samples_after_version(self, channel_pk: int, *, after_version: int, limit: int) -> list[Sample]:
-        """Stored samples learned after ``after_version``, in order (for replay)."""
-        stmt = (select(Sample).where(Sample.channel_pk == channel_pk, Sample.version > after_version)
-                .order_by(Sample.version).limit(limit))
+    def samples_after_seq(self, channel_pk: int, *, after_seq: int, limit: int) -> list[Sample]:
+        """Stored samples after the channel's ``after_seq``-th, in order (for replay; seq and
+        version grow together, so these are the samples learned after that point)."""
+        stmt = (select(Sample).where(Sample.channel_pk == channel_pk, Sample.seq > after_seq)
+                .order_by(Sample.seq).limit(limit))
         return list(self.session.scalars(stmt))
 
     # events ---------------------------------------------------------------------------

@@ -99,7 +99,6 @@ class Sample(Base):
     __table_args__ = (
         UniqueConstraint("channel_pk", "seq", name="uq_sample_channel_seq"),
         Index("ix_sample_source", "channel_pk", "source", "source_seq", unique=True),
-        Index("ix_sample_version", "channel_pk", "version"),
     )
 
     pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)

@@ -1,0 +1,86 @@
+"""A smoke run of the benchmark suite (tests/bench, tiny sizes), so that the benchmarks
+do not rot: every section runs, writes its tables, headline figures and PNG plots, and
+the result file holds them. Behaviour only: no timing is asserted here."""
+
+from __future__ import annotations
+
+import json
+import math
+import subprocess
+import sys
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+SECTIONS = {"core", "cost", "drift", "service"}
+
+
+@pytest.fixture(scope="module")
+def smoke(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
+    out = tmp_path_factory.mktemp("bench")
+    run = subprocess.run([sys.executable, "-m", "tests.bench", "--size", "smoke", "--out", str(out)], cwd=ROOT,
+                         capture_output=True, text=True, timeout=600)
+    assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
+    return out, json.loads((out / "results.json").read_text())
+
+
+def test_every_section_writes_tables_and_figures(smoke: tuple[Path, dict[str, Any]]) -> None:
+    out, result = smoke
+    assert set(result["sections"]) == SECTIONS
+    assert result["size"] == "smoke" and result["machine"]["cpus"] >= 1
+    for name, section in result["sections"].items():
+        assert section["tables"], name
+        for table in section["tables"]:
+            assert table["rows"], f"{name}: {table['title']}"
+            assert all(len(row) == len(table["header"]) for row in table["rows"]), table["title"]
+        assert section["figures"], name
+        for fig in section["figures"]:
+            data = (out / fig).read_bytes()
+            assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 5_000, fig
+
+
+def test_unknown_section_is_refused() -> None:
+    run = subprocess.run([sys.executable, "-m", "tests.bench", "--only", "core,nonsense"], cwd=ROOT,
+                         capture_output=True, text=True, timeout=120)
+    assert run.returncode == 2 and "nonsense" in run.stderr
+
+
+def finite(v: Any) -> bool:
+    return isinstance(v, int | float) and math.isfinite(v)
+
+
+def test_core_peers_learn_the_same_curve(smoke: tuple[Path, dict[str, Any]]) -> None:
+    h = smoke[1]["sections"]["core"]["headline"]
+    for m in (4, 11):
+        # every peer ran, and our learners and the peers end near the closed-form optimum:
+        # the stream's noise has s.d. 0.01, the truth is smooth
+        for key in ("river_sgd_over_ours", "sklearn_sgd_over_ours", "numpy_lms_over_ours", "river_bayes_over_ours_rls",
+                    "numpy_rls_over_ours_rls"):
+            assert finite(h[f"{key}_m{m}"]) and h[f"{key}_m{m}"] > 0, (key, m)
+        assert h[f"rmse_truth_lstsq_m{m}"] < 0.01
+        assert h[f"rmse_truth_ours_sgd_m{m}"] < 0.02
+
+
+def test_cost_slopes_are_fitted(smoke: tuple[Path, dict[str, Any]]) -> None:
+    h = smoke[1]["sections"]["cost"]["headline"]
+    for key in ("sgd_slope_m", "rls_slope_m", "sgd_overhead_us", "rls_ns_per_term_squared"):
+        assert finite(h[key]), key
+
+
+def test_drift_detectors_find_a_one_sd_step(smoke: tuple[Path, dict[str, Any]]) -> None:
+    h = smoke[1]["sections"]["drift"]["headline"]
+    for name in ("page_hinkley", "cusum", "ewma"):
+        # about 22 samples to an alarm after a sustained 1 s.d. shift at the defaults
+        # (service/core/drift.py; Siegmund's approximation for CUSUM); a small smoke sample
+        assert 10 < h[name]["mean_delay"] < 40, (name, h[name])
+        assert h[name]["false_alarms_per_10k"] < 5, (name, h[name])
+    assert "river ADWIN" in h and "river PageHinkley" in h
+
+
+def test_service_measurements_are_taken(smoke: tuple[Path, dict[str, Any]]) -> None:
+    h = smoke[1]["sections"]["service"]["headline"]
+    for key in ("ratio_batch1", "ratio_batch1000", "samples_per_s_batch1000", "predict1_p50_ms", "predict10k_p50_ms",
+                "channels_ratio_ingest1", "channels_ratio_predict1", "db_bytes_per_channel", "rss_bytes_per_channel"):
+        assert finite(h[key]) and h[key] > 0, key
