@@ -5,7 +5,6 @@ from __future__ import annotations
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query
-from fastapi.responses import JSONResponse
 
 from ...actions import curves
 from ...errors import PayloadTooLarge
@@ -19,16 +18,15 @@ router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"],
                    responses={**COMMON_ERRORS, **error_responses(404)})
 
 
-@router.post("/predict", summary="Calibrated values with standard uncertainty", response_model=None,
-             responses={200: {"description": "calibrated values, their standard uncertainty and the coverage"}})
-async def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) -> JSONResponse:
+@router.post("/predict", summary="Calibrated values with standard uncertainty")
+async def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "device")
     if len(body.x) > ctx.settings.max_predict:
         raise PayloadTooLarge(f"at most {ctx.settings.max_predict} values per request")
     # 10,000 values take about 1 ms to compute: small enough for the loop
     out = await run_store(ctx.store, lambda repo: curves.predict(repo, channel_id, body.x, body.snapshot),
                           write=False, items=len(body.x) // 10)
-    return JSONResponse(out)
+    return out
 
 
 @router.get("/curve", summary="Coefficients and the curve sampled over the input range")

@@ -7,7 +7,6 @@ import io
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Response
-from fastapi.responses import JSONResponse
 
 from ...actions import samples
 from ..deps import Ctx, Who, check_batch
@@ -19,24 +18,19 @@ from .channels import ChannelPath, Limit
 router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
 
 
-# The ingest routes answer with a JSONResponse of plain lists and numbers: FastAPI's
-# generic encoder walks every residual and costs more than the rest of the answer.
-@router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order", response_model=None,
-             responses={200: {"description": "what was learned, with each sample's residual"}})
-async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> JSONResponse:
+@router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
+async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
     out = await run_store(ctx.store, lambda repo: samples.ingest(repo, channel_id, body.samples, body.source,
                                                                  who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
-    return JSONResponse({"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
-                         "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples,
-                         "drift": out.drift})
+    return {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
+            "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples, "drift": out.drift}
 
 
-@router.post("/v1/samples", summary="Gateway batch across channels", response_model=None,
-             responses={200: {"description": "what was learned, per channel and per sample"}})
-async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> JSONResponse:
+@router.post("/v1/samples", summary="Gateway batch across channels")
+async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     check_batch(len(body.samples), ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
@@ -44,7 +38,7 @@ async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> JSONResponse:
     out = await run_store(ctx.store, lambda repo: samples.ingest_gateway(repo, items, body.source, who.key_id),
                           write=True, items=len(items))
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
-    return JSONResponse(out)
+    return out
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
