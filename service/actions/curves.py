@@ -18,11 +18,15 @@ HISTORY_LIMIT = 1_000_000
 
 
 def _floats(a: np.ndarray) -> list[float | None]:
-    return [float(v) if math.isfinite(v) else None for v in a.tolist()]
+    """JSON-ready values: non-finite ones become None (checked in one pass over the array)."""
+    out: list[float | None] = a.tolist()
+    if not np.isfinite(a).all():
+        out = [v if v is not None and math.isfinite(v) else None for v in out]
+    return out
 
 
 def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
-    ch, st = load(repo, channel_id)
+    ch, st = load(repo, channel_id, config=False)  # the model holds the config
     if snapshot is None:
         return read_model(repo, st), st.version
     snap = repo.get_snapshot(ch.pk, snapshot)
