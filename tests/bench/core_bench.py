@@ -17,7 +17,6 @@ The machine is shared and noisy: read the ratios, measured side by side in one r
 
 from __future__ import annotations
 
-import argparse
 import statistics
 import time
 from collections.abc import Callable
@@ -321,15 +320,5 @@ def _accuracy_figure(acc: dict[tuple[str, int], float], out: Path) -> str:
     return report.save(fig, out, "core_accuracy")
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--size", choices=report.SIZES, default="full")
-    ap.add_argument("--out", type=Path, default=Path("docs/benchmarks"))
-    args = ap.parse_args()
-    t0 = time.perf_counter()
-    result = run(args.size, args.out)
-    print(f"\nheadline: {result['headline']}\n({time.perf_counter() - t0:.1f} s)")
-
-
 if __name__ == "__main__":
-    main()
+    report.section_main(run, __doc__)

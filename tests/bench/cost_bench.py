@@ -20,7 +20,6 @@ The machine is shared and noisy: times are medians of repeats, in one run.
 
 from __future__ import annotations
 
-import argparse
 import contextlib
 import statistics
 import time
@@ -298,15 +297,5 @@ def _fit_vs_m_figure(fit: dict[Any, float], p: dict[str, Any], out: Path) -> str
     return report.save(fig, out, "cost_fit_vs_m")
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--size", choices=report.SIZES, default="full")
-    ap.add_argument("--out", type=Path, default=Path("docs/benchmarks"))
-    args = ap.parse_args()
-    t0 = time.perf_counter()
-    result = run(args.size, args.out)
-    print(f"\nheadline: {result['headline']}\n({time.perf_counter() - t0:.1f} s)")
-
-
 if __name__ == "__main__":
-    main()
+    report.section_main(run, __doc__)

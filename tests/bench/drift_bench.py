@@ -25,7 +25,6 @@ Run on its own: ``python -m tests.bench.drift_bench [--size smoke|quick|full] [-
 
 from __future__ import annotations
 
-import argparse
 import time
 from pathlib import Path
 from typing import Any
@@ -41,7 +40,7 @@ from service.core.drift import (
     run_lengths,
 )
 
-from .report import SIZES, Table, figure, percentile, save, timed
+from .report import Table, figure, percentile, save, section_main, timed
 
 STEP_AT = 1000  # index of the first shifted sample in a step stream
 WITHIN = 1000  # "detected within" this many samples after the step
@@ -368,17 +367,5 @@ def run(size: str, out: Path) -> dict[str, Any]:
     return {"tables": [t.to_json() for t in (t_cost, t_ic, t_step)], "figures": figures, "headline": headline}
 
 
-def main(argv: list[str] | None = None) -> int:
-    a = argparse.ArgumentParser(prog="python -m tests.bench.drift_bench", description=__doc__,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
-    a.add_argument("--size", choices=SIZES, default="full")
-    a.add_argument("--out", type=Path, default=Path("docs/benchmarks"))
-    args = a.parse_args(argv)
-    t0 = time.perf_counter()
-    run(args.size, args.out)
-    print(f"\n(drift: {time.perf_counter() - t0:.1f} s)")
-    return 0
-
-
 if __name__ == "__main__":
-    raise SystemExit(main())
+    section_main(run, __doc__)

@@ -99,3 +99,18 @@ def save(fig: Any, out: Path, name: str) -> str:
     fig.savefig(out / f"{name}.png")
     plt.close(fig)
     return f"{name}.png"
+
+
+def section_main(run: Callable[[str, Path], dict[str, Any]], doc: str | None) -> None:
+    """The command line of one section, ``python -m tests.bench.<name>_bench [--size] [--out]``:
+    its tables and figures, and the headline printed (no result file: that is the entry's)."""
+    import argparse
+    import json
+
+    ap = argparse.ArgumentParser(description=doc, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--size", choices=SIZES, default="full")
+    ap.add_argument("--out", type=Path, default=Path("docs/benchmarks"))
+    args = ap.parse_args()
+    t0 = time.perf_counter()
+    result = run(args.size, args.out)
+    print(f"\nheadline: {json.dumps(result.get('headline'), default=float)}\n({time.perf_counter() - t0:.1f} s)")

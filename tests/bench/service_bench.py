@@ -17,7 +17,6 @@ Run: ``python -m tests.bench.service_bench [--size smoke|quick|full] [--out DIR]
 
 from __future__ import annotations
 
-import argparse
 import json
 import os
 import random
@@ -36,7 +35,7 @@ from typing import Any, cast
 
 import httpx
 
-from .report import SIZES, Table, figure, percentile, save
+from .report import Table, figure, percentile, save, section_main
 
 SECRET = "ck_bench-admin-secret-0123456789"
 AUTH = {"Authorization": f"Bearer {SECRET}", "Content-Type": "application/json"}
@@ -631,15 +630,5 @@ def _fig_rss(out: Path, before: int, rss: list[tuple[int, int]], full_at: int) -
     return save(fig, out, "service_rss")
 
 
-def main() -> None:
-    p = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--size", choices=SIZES, default="full")
-    p.add_argument("--out", type=Path, default=Path("docs/benchmarks"))
-    args = p.parse_args()
-    t0 = time.perf_counter()
-    result = run(args.size, args.out)
-    print(f"\nheadline: {json.dumps(result['headline'])}\n({time.perf_counter() - t0:.1f} s)")
-
-
 if __name__ == "__main__":
-    main()
+    section_main(run, __doc__)
