@@ -24,16 +24,19 @@ def sqlite_file(url: str) -> str:
     return url.removeprefix("sqlite:///")
 
 
+# the write lock without waiting is SQLite's (PostgreSQL work always runs in worker threads)
+sqlite_only = pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+
+
 @pytest.fixture
 def held(database_url: str) -> Iterator[sqlite3.Connection]:
-    """Another connection holding the store's write lock (SQLite only)."""
-    if not database_url.startswith("sqlite"):
-        pytest.skip("the write lock without waiting is SQLite's; PostgreSQL work always runs in worker threads")
+    """Another connection that can hold the store's write lock."""
     conn = sqlite3.connect(sqlite_file(database_url), isolation_level=None, check_same_thread=False)
     yield conn
     conn.close()
 
 
+@sqlite_only
 def test_store_write_without_waiting_raises_while_the_lock_is_held(database_url: str,
                                                                    held: sqlite3.Connection) -> None:
     store = Store(database_url, busy_timeout_s=5.0)
@@ -56,6 +59,7 @@ def test_postgres_store_is_never_inline(database_url: str) -> None:
         store.dispose()
 
 
+@sqlite_only
 def test_ingest_waits_for_a_writer_elsewhere_then_succeeds(database_url: str, held: sqlite3.Connection) -> None:
     with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
         assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
@@ -73,6 +77,7 @@ def test_ingest_waits_for_a_writer_elsewhere_then_succeeds(database_url: str, he
         assert got["n_samples"] == 1
 
 
+@sqlite_only
 def test_ingest_answers_503_and_stores_nothing_past_the_busy_timeout(database_url: str,
                                                                      held: sqlite3.Connection) -> None:
     settings = Settings(database_url=database_url, admin_key=ADMIN_SECRET, busy_timeout_s=0.2)
@@ -91,6 +96,7 @@ def test_ingest_answers_503_and_stores_nothing_past_the_busy_timeout(database_ur
         assert store_fingerprint(client) == before
 
 
+@sqlite_only
 def test_predict_reads_while_a_writer_holds_the_lock(database_url: str, held: sqlite3.Connection) -> None:
     with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
         assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
