@@ -6,6 +6,7 @@ from typing import Any
 
 from ..core import ChannelModel
 from ..store import Repository
+from ..store.repository import LearningState
 from ..store.tables import ChannelState
 
 
@@ -16,7 +17,7 @@ def summary_columns(model: ChannelModel) -> dict[str, Any]:
             "rmse": s["rmse"]}
 
 
-def read_model(repo: Repository, st: ChannelState) -> ChannelModel:
+def read_model(repo: Repository, st: ChannelState | LearningState) -> ChannelModel:
     """The channel's current model, shared: read it, never change it."""
     model: ChannelModel | None = repo.cache.get(st.channel_pk, st.version)
     if model is None:
@@ -25,12 +26,13 @@ def read_model(repo: Repository, st: ChannelState) -> ChannelModel:
     return model
 
 
-def write_model(repo: Repository, st: ChannelState) -> ChannelModel:
+def write_model(repo: Repository, st: ChannelState | LearningState) -> ChannelModel:
     """A private copy of the channel's current model, to change and then ``save_model``."""
     return read_model(repo, st).copy()
 
 
-def save_model(repo: Repository, st: ChannelState, model: ChannelModel, version: int, **columns: Any) -> None:
+def save_model(repo: Repository, st: ChannelState | LearningState, model: ChannelModel, version: int,
+               **columns: Any) -> None:
     """Write the model as the channel's state at ``version`` (one UPDATE); once the
     transaction commits, the cache holds it."""
     repo.save_state(st, model_state=model.to_state(), version=version, **summary_columns(model), **columns)

@@ -11,10 +11,10 @@ from typing import Any, Protocol
 import numpy as np
 
 from ..core import ChannelModel, InputError, LearnResult
-from ..errors import InvalidRequest
+from ..errors import ChannelNotFound, InvalidRequest
 from ..store import Repository
-from ..store.repository import SampleRows
-from ..store.tables import Channel, ChannelState, utcnow
+from ..store.repository import LearningState, SampleRows
+from ..store.tables import utcnow
 from .channels import load
 from .models import save_model, write_model
 from .paging import Page, decode_cursor, encode_cursor
@@ -87,7 +87,7 @@ def _wrong_inputs(i: int, d: int) -> InvalidRequest:
                           details={"index": i, "field": "x"})
 
 
-def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Sequence[SampleLike],
+def ingest_channel(repo: Repository, st: LearningState, samples: Sequence[SampleLike],
                    source: str | None, key_id: str | None) -> ChannelOutcome:
     """Learn ``samples`` (in order) on a locked channel and write everything for it."""
     now = utcnow()
@@ -97,7 +97,7 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     if source is not None:
         seqs = [s.seq for s in samples if s.seq is not None]
         if seqs:
-            seen = repo.seen_source_seqs(ch.pk, source, seqs)
+            seen = repo.seen_source_seqs(st.channel_pk, source, seqs)
     # one pass: drop retried samples, check and gather the inputs of the rest
     keep: list[int] = []
     xs: list[Any] = []
@@ -151,20 +151,20 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     kept = [samples[i] for i in keep]
     times = [s.t or now for s in kept]
     repo.insert_samples(SampleRows(
-        channel_pk=ch.pk, first_seq=n0 + 1, first_version=v0 + 1, source=source,
+        channel_pk=st.channel_pk, first_seq=n0 + 1, first_version=v0 + 1, source=source,
         source_seqs=[s.seq for s in kept] if source is not None else None, times=times, received_at=now,
         x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats, status=status))
     event_rows = []
     for k, kind, state in snaps:
-        snap = repo.insert_snapshot(ch.pk, reason=kind, label=None, model_state=state, version=v0 + k,
+        snap = repo.insert_snapshot(st.channel_pk, reason=kind, label=None, model_state=state, version=v0 + k,
                                     n_samples=n0 + k)
         if kind == "drift-alarm":
-            event_rows.append({"channel_pk": ch.pk, "kind": "snapshot", "version": v0 + k, "key_id": key_id,
+            event_rows.append({"channel_pk": st.channel_pk, "kind": "snapshot", "version": v0 + k, "key_id": key_id,
                                "details": {"snapshot": snap.pk, "reason": kind}})
     for e in events:
         k = e.pop("index")
         kind = e.pop("kind")
-        event_rows.append({"channel_pk": ch.pk, "kind": kind, "version": v0 + k + 1, "key_id": key_id,
+        event_rows.append({"channel_pk": st.channel_pk, "kind": kind, "version": v0 + k + 1, "key_id": key_id,
                            "details": {"sample_seq": n0 + k + 1, **e}})
     repo.insert_events(event_rows)
     n_kept = len(keep)
@@ -186,10 +186,16 @@ def ingest_channel(repo: Repository, ch: Channel, st: ChannelState, samples: Seq
     )
 
 
+def _learning(repo: Repository, channel_id: str) -> LearningState:
+    st = repo.learning_state(channel_id)
+    if st is None:
+        raise ChannelNotFound(f"no channel {channel_id!r}")
+    return st
+
+
 def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleLike], source: str | None,
            key_id: str | None) -> ChannelOutcome:
-    ch, st = load(repo, channel_id, lock=True, config=False)
-    return ingest_channel(repo, ch, st, samples, source, key_id)
+    return ingest_channel(repo, _learning(repo, channel_id), samples, source, key_id)
 
 
 def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], source: str | None,
@@ -205,9 +211,9 @@ def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], so
     accepted = duplicates = alarms = 0
     for cid in sorted(groups):
         idx = groups[cid]
-        ch, st = load(repo, cid, lock=True, config=False)
+        st = _learning(repo, cid)
         try:
-            out = ingest_channel(repo, ch, st, [items[i][1] for i in idx], source, key_id)
+            out = ingest_channel(repo, st, [items[i][1] for i in idx], source, key_id)
         except InvalidRequest as exc:
             local = exc.details.get("index") if isinstance(exc.details, dict) else None
             where = idx[local] if local is not None else None

@@ -3,6 +3,7 @@ session scope commits or rolls back the whole request at once."""
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -11,7 +12,7 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, bindparam, func, insert, select, update
+from sqlalchemy import Table, bindparam, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
@@ -25,6 +26,17 @@ _SAMPLE_INSERT_SQLITE = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                          f"VALUES ({', '.join('?' for _ in SAMPLE_COLUMNS)})")
 _SAMPLE_INSERT_PG = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                      f"VALUES ({', '.join('%s::json' if c == 'x' else '%s' for c in SAMPLE_COLUMNS)})")
+
+
+@dataclass
+class LearningState:
+    """A channel's state columns as learning reads and advances them (no ORM object)."""
+
+    channel_pk: int
+    version: int
+    n_samples: int
+    n_rejected: int
+    last_sample_at: datetime | None
 
 
 @dataclass(frozen=True)
@@ -69,10 +81,16 @@ _CHANNEL_FOR_UPDATE = _CHANNEL.with_for_update(of=ChannelState)
 # learning needs the channel's key and state only; its config is inside the cached model
 _CHANNEL_NO_CONFIG = _CHANNEL.options(defer(Channel.config, raiseload=True))
 _CHANNEL_NO_CONFIG_FOR_UPDATE = _CHANNEL_FOR_UPDATE.options(defer(Channel.config, raiseload=True))
-_STATE_UPDATES: dict[tuple[str, ...], Any] = {}
-_SEEN = (select(Sample.source_seq)
-         .where(Sample.channel_pk == bindparam("pk"), Sample.source == bindparam("source"),
-                Sample.source_seq.between(bindparam("lo"), bindparam("hi"))))
+_STATE_UPDATES: dict[tuple[tuple[str, ...], bool], str] = {}
+CHANNEL_T = cast(Table, Channel.__table__)
+# what learning needs of the state row, as a plain row: cheaper than two ORM objects
+_LEARNING = (select(STATE_T.c.channel_pk, STATE_T.c.version, STATE_T.c.n_samples, STATE_T.c.n_rejected,
+                    STATE_T.c.last_sample_at)
+             .join_from(STATE_T, CHANNEL_T, CHANNEL_T.c.pk == STATE_T.c.channel_pk)
+             .where(CHANNEL_T.c.id == bindparam("cid")))
+_LEARNING_FOR_UPDATE = _LEARNING.with_for_update(of=STATE_T)
+_SEEN_SQLITE = "SELECT source_seq FROM sample WHERE channel_pk = ? AND source = ? AND source_seq BETWEEN ? AND ?"
+_SEEN_PG = _SEEN_SQLITE.replace("?", "%s")
 SAMPLE_T = cast(Table, Sample.__table__)
 EVENT_T = cast(Table, Event.__table__)
 
@@ -102,6 +120,13 @@ class Repository:
             stmt = _CHANNEL_NO_CONFIG_FOR_UPDATE if lock and self.postgres else _CHANNEL_NO_CONFIG
         row = self.session.execute(stmt, {"cid": channel_id}).one_or_none()
         return None if row is None else (row[0], row[1])
+
+    def learning_state(self, channel_id: str) -> LearningState | None:
+        """The channel's state for learning, locked for this transaction (SELECT ... FOR
+        UPDATE on PostgreSQL; SQLite's write transaction holds the lock already)."""
+        stmt = _LEARNING_FOR_UPDATE if self.postgres else _LEARNING
+        row = self.session.connection().execute(stmt, {"cid": channel_id}).first()
+        return None if row is None else LearningState(*row)
 
     def model_state(self, channel_pk: int) -> dict[str, Any]:
         """The stored model state of a channel (not loaded with the channel row)."""
@@ -136,18 +161,32 @@ class Repository:
             stmt = stmt.where(Channel.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
-    def save_state(self, st: ChannelState, **values: Any) -> None:
-        """One UPDATE of the state row; ``st`` shows the new values afterwards."""
+    def save_state(self, st: ChannelState | LearningState, **values: Any) -> None:
+        """One UPDATE of the state row, on the driver (it runs for every request that
+        learns); ``st`` shows the new values afterwards."""
         values["updated_at"] = utcnow()
         names = tuple(sorted(values))
-        stmt = _STATE_UPDATES.get(names)
-        if stmt is None:  # one statement per set of columns, built once: SQLAlchemy caches its SQL
-            stmt = (update(STATE_T).where(STATE_T.c.channel_pk == bindparam("pk_"))
-                    .values({n: bindparam(n) for n in names}))
-            _STATE_UPDATES[names] = stmt
-        self.session.connection().execute(stmt, {"pk_": st.channel_pk, **values})
+        sql = _STATE_UPDATES.get((names, self.postgres))
+        if sql is None:
+            mark = "%s" if self.postgres else "?"
+            sets = ", ".join(f"{n} = {mark}::json" if n == "model_state" and self.postgres else f"{n} = {mark}"
+                             for n in names)
+            sql = _STATE_UPDATES[(names, self.postgres)] = f"UPDATE channel_state SET {sets} WHERE channel_pk = {mark}"
+        params = tuple(self._driver_value(values[n]) if n != "model_state" else json.dumps(values[n]) for n in names)
+        self.session.connection().exec_driver_sql(sql, (*params, st.channel_pk))
         for name, value in values.items():
-            set_committed_value(st, name, value)
+            if isinstance(st, LearningState):
+                if hasattr(st, name):
+                    setattr(st, name, value)
+            else:
+                set_committed_value(st, name, value)
+
+    def _driver_value(self, value: Any) -> Any:
+        """A value as the driver takes it: aware datetimes in UTC (SQLite: the text form
+        SQLAlchemy stores), everything else as is."""
+        if isinstance(value, datetime):
+            return value.astimezone(UTC) if self.postgres else _sqlite_time(value)
+        return value
 
     def save_config(self, ch: Channel, config: dict[str, Any]) -> None:
         ch.config = config
@@ -158,8 +197,8 @@ class Repository:
         """Which of ``seqs`` this source has stored on this channel already (one range query
         on the unique index; sources number their samples upwards, so the range is tight)."""
         wanted = set(seqs)
-        rows = self.session.connection().execute(_SEEN, {"pk": channel_pk, "source": source,
-                                                         "lo": min(wanted), "hi": max(wanted)})
+        rows = self.session.connection().exec_driver_sql(_SEEN_PG if self.postgres else _SEEN_SQLITE,
+                                                         (channel_pk, source, min(wanted), max(wanted)))
         return {s for (s,) in rows if s in wanted}
 
     def insert_samples(self, rows: SampleRows) -> None:
