@@ -39,6 +39,10 @@ def test_every_section_writes_tables_and_figures(smoke: tuple[Path, dict[str, An
         for fig in section["figures"]:
             data = (out / fig).read_bytes()
             assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 5_000, fig
+    page = (out / "tables.md").read_text()
+    for name, section in result["sections"].items():
+        assert f"## {name}" in page
+        assert all(f"**{t['title']}**" in page for t in section["tables"])
 
 
 def test_unknown_section_is_refused() -> None:

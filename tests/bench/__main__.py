@@ -22,7 +22,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from .report import SIZES
+from .report import SIZES, markdown
 
 SECTIONS = ("core", "cost", "drift", "service")  # module tests.bench.<name>_bench, each with run(size, out)
 
@@ -34,6 +34,20 @@ def machine() -> dict[str, Any]:
 
     return {"python": platform.python_version(), "platform": platform.platform(), "machine": platform.machine(),
             "cpus": os.cpu_count(), "numpy": numpy.__version__, "curvekeeper": __version__}
+
+
+def tables_page(result: dict[str, Any]) -> str:
+    """Every table of the run in Markdown, with the run's machine and command."""
+    m = result["machine"]
+    parts = ["# Benchmark tables", "",
+             f"Written by `{result['command'].strip()}` ({result['size']} size) on {result['taken_at']}: "
+             f"{m['cpus']} cores, {m['machine']}, Python {m['python']}, numpy {m['numpy']}; "
+             f"{result['seconds']} s in all. Interpretation: [README.md](README.md).", ""]
+    for name, section in result["sections"].items():
+        parts += [f"## {name}", ""]
+        parts += [markdown(t) for t in section["tables"]]
+        parts += [f"![{fig}]({fig})" for fig in section.get("figures", [])] + [""]
+    return "\n".join(parts)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -62,6 +76,7 @@ def main(argv: list[str] | None = None) -> int:
     result["seconds"] = round(time.perf_counter() - t_all, 1)
     args.out.mkdir(parents=True, exist_ok=True)
     (args.out / "results.json").write_text(json.dumps(result, indent=1, default=float) + "\n")
+    (args.out / "tables.md").write_text(tables_page(result))
     print(f"\nall sections in {result['seconds']} s; results in {args.out / 'results.json'}")
     return 0
 

@@ -62,6 +62,17 @@ class Table:
         return {"title": self.title, "header": self.header, "rows": self.rows}
 
 
+def markdown(table: dict[str, Any]) -> str:
+    """A table as ``Table.to_json`` keeps it, in Markdown (numbers formatted as printed)."""
+    def cell(v: Any) -> str:
+        return "" if v is None else _fmt(v).replace("|", "\\|")
+
+    lines = [f"**{table['title']}**", "", "| " + " | ".join(table["header"]) + " |",
+             "|" + "|".join(" --- " for _ in table["header"]) + "|"]
+    lines += ["| " + " | ".join(cell(v) for v in row) + " |" for row in table["rows"]]
+    return "\n".join(lines) + "\n"
+
+
 def _fmt(v: Any) -> str:
     if isinstance(v, float):
         if v == 0 or 0.01 <= abs(v) < 1e5:
