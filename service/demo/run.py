@@ -80,7 +80,10 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         say(f"\nThe technician's pages: {url}/ui/ (API documentation at {url}/docs).")
         say(f"Sign in with the admin key: {key}")
         say(f"Look at {scenario.FAULTY} (the alarm and the rollback) and {scenario.AGEING} (out of tolerance).")
-        say(f"Try: curl -s -H 'Authorization: Bearer {key}' {url}/v1/channels?state=alarm")
+        # the alarmed probe was rolled back, so it is no longer in alarm: show its alarm event
+        auth = f"curl -s -H 'Authorization: Bearer {key}'"
+        say(f"Try: {auth} '{url}/v1/channels/{scenario.FAULTY}/events?kind=drift_alarm'")
+        say(f"     {auth} '{url}/v1/channels?state=out_of_tolerance'")
         if keep_running:
             say("Ctrl-C stops it.")
             if threading.current_thread() is threading.main_thread():
