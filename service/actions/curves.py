@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
-from ..errors import InvalidRequest, PayloadTooLarge, SnapshotNotFound
+from ..errors import ChannelNotFound, InvalidRequest, PayloadTooLarge, SnapshotNotFound
 from ..store import Repository
 from .channels import load
 from .models import read_model, save_model, write_model
@@ -26,10 +26,12 @@ def _floats(a: np.ndarray) -> list[float | None]:
 
 
 def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
-    ch, st = load(repo, channel_id, config=False)  # the model holds the config
+    st = repo.learning_state(channel_id, lock=False)  # a plain row: the cached model holds the rest
+    if st is None:
+        raise ChannelNotFound(f"no channel {channel_id!r}")
     if snapshot is None:
         return read_model(repo, st), st.version
-    snap = repo.get_snapshot(ch.pk, snapshot)
+    snap = repo.get_snapshot(st.channel_pk, snapshot)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
     return ChannelModel.from_state(snap.model_state), snap.version

@@ -121,10 +121,11 @@ class Repository:
         row = self.session.execute(stmt, {"cid": channel_id}).one_or_none()
         return None if row is None else (row[0], row[1])
 
-    def learning_state(self, channel_id: str) -> LearningState | None:
-        """The channel's state for learning, locked for this transaction (SELECT ... FOR
-        UPDATE on PostgreSQL; SQLite's write transaction holds the lock already)."""
-        stmt = _LEARNING_FOR_UPDATE if self.postgres else _LEARNING
+    def learning_state(self, channel_id: str, *, lock: bool = True) -> LearningState | None:
+        """The channel's state as a plain row; ``lock`` (for learning) locks it for this
+        transaction (SELECT ... FOR UPDATE on PostgreSQL; SQLite's write transaction holds
+        the lock already)."""
+        stmt = _LEARNING_FOR_UPDATE if lock and self.postgres else _LEARNING
         row = self.session.connection().execute(stmt, {"cid": channel_id}).first()
         return None if row is None else LearningState(*row)
 
