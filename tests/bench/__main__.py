@@ -16,6 +16,7 @@ import importlib
 import json
 import os
 import platform
+import subprocess
 import sys
 import time
 from datetime import UTC, datetime
@@ -25,6 +26,15 @@ from typing import Any
 from .report import SIZES, markdown
 
 SECTIONS = ("core", "cost", "drift", "service")  # module tests.bench.<name>_bench, each with run(size, out)
+
+
+def commit() -> str | None:
+    """The checked-out commit, when this is a git work tree."""
+    try:
+        out = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, timeout=10)
+    except OSError:
+        return None
+    return out.stdout.strip() or None if out.returncode == 0 else None
 
 
 def machine() -> dict[str, Any]:
@@ -40,7 +50,8 @@ def tables_page(result: dict[str, Any]) -> str:
     """Every table of the run in Markdown, with the run's machine and command."""
     m = result["machine"]
     parts = ["# Benchmark tables", "",
-             f"Written by `{result['command'].strip()}` ({result['size']} size) on {result['taken_at']}: "
+             f"Written by `{result['command'].strip()}` ({result['size']} size) on {result['taken_at']}"
+             f" (commit {result.get('commit') or 'unknown'}): "
              f"{m['cpus']} cores, {m['machine']}, Python {m['python']}, numpy {m['numpy']}; "
              f"{result['seconds']} s in all. Interpretation: [README.md](README.md).", ""]
     for name, section in result["sections"].items():
@@ -63,7 +74,7 @@ def main(argv: list[str] | None = None) -> int:
         p.error(f"unknown section(s): {', '.join(unknown)}")
     result: dict[str, Any] = {"taken_at": datetime.now(UTC).isoformat(timespec="seconds"), "size": args.size,
                               "command": "python -m tests.bench " + " ".join(sys.argv[1:] if argv is None else argv),
-                              "machine": machine(), "sections": {}}
+                              "commit": commit(), "machine": machine(), "sections": {}}
     t_all = time.perf_counter()
     for name in names:
         module = importlib.import_module(f"tests.bench.{name}_bench")
