@@ -16,9 +16,8 @@ from .paging import Page, decode_cursor, encode_cursor
 STATES = {"ok", "warning", "alarm", "out_of_tolerance"}
 
 
-def load(repo: Repository, channel_id: str, *, lock: bool = False, config: bool = True
-         ) -> tuple[Channel, ChannelState]:
-    found = repo.channel_and_state(channel_id, lock=lock, config=config)
+def load(repo: Repository, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState]:
+    found = repo.channel_and_state(channel_id, lock=lock)
     if found is None:
         raise ChannelNotFound(f"no channel {channel_id!r}")
     return found

@@ -78,9 +78,6 @@ _CHANNEL = (select(Channel, ChannelState)
             .where(Channel.id == bindparam("cid"))
             .options(defer(ChannelState.model_state, raiseload=True)))
 _CHANNEL_FOR_UPDATE = _CHANNEL.with_for_update(of=ChannelState)
-# learning needs the channel's key and state only; its config is inside the cached model
-_CHANNEL_NO_CONFIG = _CHANNEL.options(defer(Channel.config, raiseload=True))
-_CHANNEL_NO_CONFIG_FOR_UPDATE = _CHANNEL_FOR_UPDATE.options(defer(Channel.config, raiseload=True))
 _STATE_UPDATES: dict[tuple[tuple[str, ...], bool], str] = {}
 CHANNEL_T = cast(Table, Channel.__table__)
 # what learning needs of the state row, as a plain row: cheaper than two ORM objects
@@ -109,15 +106,10 @@ class Repository:
     def get_channel(self, channel_id: str) -> Channel | None:
         return self.session.scalars(select(Channel).where(Channel.id == channel_id)).one_or_none()
 
-    def channel_and_state(self, channel_id: str, *, lock: bool = False, config: bool = True
-                          ) -> tuple[Channel, ChannelState] | None:
+    def channel_and_state(self, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState] | None:
         """The channel with its state row; ``lock`` takes the row lock for a write
-        (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already);
-        ``config=False`` leaves the channel's config unloaded (reading it then raises)."""
-        if config:
-            stmt = _CHANNEL_FOR_UPDATE if lock and self.postgres else _CHANNEL
-        else:
-            stmt = _CHANNEL_NO_CONFIG_FOR_UPDATE if lock and self.postgres else _CHANNEL_NO_CONFIG
+        (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""
+        stmt = _CHANNEL_FOR_UPDATE if lock and self.postgres else _CHANNEL
         row = self.session.execute(stmt, {"cid": channel_id}).one_or_none()
         return None if row is None else (row[0], row[1])
 
