@@ -62,6 +62,13 @@ def empty_postgres(url: str) -> None:
 @pytest.fixture(params=["sqlite", "postgresql"])
 def database_url(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template: Path) -> str:
     """A fresh, migrated store for one test, on each backend."""
+    return fresh_store(request, tmp_path, sqlite_template)
+
+
+def fresh_store(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template: Path) -> str:
+    """A fresh store made by the migrations on the backend named by ``request.param``:
+    a copy of the migrated SQLite template, or the emptied PostgreSQL test database
+    (skips without CURVEKEEPER_TEST_DATABASE_URL)."""
     if request.param == "sqlite":
         path = tmp_path / "store.db"
         shutil.copyfile(sqlite_template, path)

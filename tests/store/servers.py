@@ -5,7 +5,6 @@ can be killed and restarted on the same port and store, a fresh store on each ba
 from __future__ import annotations
 
 import os
-import shutil
 import signal
 import socket
 import subprocess
@@ -20,7 +19,6 @@ import pytest
 from sqlalchemy import create_engine, func, select
 
 from service.store.tables import Channel, ChannelState, Sample
-from tests.conftest import empty_postgres
 
 ADMIN = "ck_store-test-admin-0123456789abcdef"
 START_S = 60.0  # at most this long for a server to answer /healthz
@@ -30,19 +28,6 @@ def free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return int(s.getsockname()[1])
-
-
-def fresh_store(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template: Path) -> str:
-    """A fresh store made by the migrations on the backend named by ``request.param``:
-    a copy of the migrated SQLite template, or the emptied PostgreSQL test database
-    (skips without CURVEKEEPER_TEST_DATABASE_URL)."""
-    if request.param == "sqlite":
-        path = tmp_path / "store.db"
-        shutil.copyfile(sqlite_template, path)
-        return f"sqlite:///{path}"
-    url: str = request.getfixturevalue("postgres_url")
-    empty_postgres(url)
-    return url
 
 
 class Server:

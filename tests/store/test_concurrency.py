@@ -27,8 +27,8 @@ from service.client import Client, ClientError
 from service.store import Repository, Store, migrate
 from service.store.engine import make_engine
 from service.store.tables import ApiKey
-from tests.conftest import LINEAR, empty_postgres
-from tests.store.servers import ADMIN, Server, assert_exactly_once, assert_replays, fresh_store
+from tests.conftest import LINEAR, empty_postgres, fresh_store
+from tests.store.servers import ADMIN, Server, assert_exactly_once, assert_replays
 
 THREADS = 8
 ROUNDS = 30

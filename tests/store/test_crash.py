@@ -24,8 +24,8 @@ from sqlalchemy import create_engine, select
 
 from service.client import Client, ClientError
 from service.store.tables import Channel, ChannelState, Event, Sample, Snapshot
-from tests.conftest import LINEAR
-from tests.store.servers import ADMIN, Server, Triple, assert_exactly_once, assert_replays, fresh_store
+from tests.conftest import LINEAR, fresh_store
+from tests.store.servers import ADMIN, Server, Triple, assert_exactly_once, assert_replays
 from tests.store.workers import read_log, retrying_client, stream
 
 pytestmark = pytest.mark.slow
