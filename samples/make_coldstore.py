@@ -1,4 +1,4 @@
-"""Write the cold-store scenario's data files (the physics is in service/demo/scenario.py).
+"""Write the cold-store scenario's data files (the physics is in service/curvekeeper/demo/scenario.py).
 
 Run from the repository root: ``python samples/make_coldstore.py``. Seeded: the files
 come out the same every time.
@@ -11,7 +11,7 @@ import json
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
-from service.demo import scenario
+from curvekeeper.demo import scenario
 
 HERE = Path(__file__).parent
 T0 = datetime(2026, 10, 1, tzinfo=UTC)

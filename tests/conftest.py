@@ -10,14 +10,13 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from curvekeeper.api import create_app
+from curvekeeper.config import Settings
+from curvekeeper.store import migrate
+from curvekeeper.store.engine import make_engine
+from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, select, text
-
-from service.api import create_app
-from service.config import Settings
-from service.store import migrate
-from service.store.engine import make_engine
-from service.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
 
 ADMIN_SECRET = "ck_test-admin-secret-0123456789abcdef"
 PG_URL = os.environ.get("CURVEKEEPER_TEST_DATABASE_URL")

@@ -77,7 +77,7 @@ def test_drift_detectors_find_a_one_sd_step(smoke: tuple[Path, dict[str, Any]]) 
     h = smoke[1]["sections"]["drift"]["headline"]
     for name in ("page_hinkley", "cusum", "ewma"):
         # about 22 samples to an alarm after a sustained 1 s.d. shift at the defaults
-        # (service/core/drift.py; Siegmund's approximation for CUSUM); a small smoke sample
+        # (service/curvekeeper/core/drift.py; Siegmund's approximation for CUSUM); a small smoke sample
         assert 10 < h[name]["mean_delay"] < 40, (name, h[name])
         assert h[name]["false_alarms_per_10k"] < 5, (name, h[name])
     assert "river ADWIN" in h and "river PageHinkley" in h

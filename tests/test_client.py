@@ -1,4 +1,4 @@
-"""``service.client``: the routes through the in-process app (an ``httpx.MockTransport``
+"""``curvekeeper.client``: the routes through the in-process app (an ``httpx.MockTransport``
 that forwards to the ``client`` fixture's app, on each backend), and the retry rules with
 transports that fail on purpose. Delays go through a fake ``sleep`` that only records
 them, so no test waits."""
@@ -12,11 +12,11 @@ from typing import Any
 
 import httpx
 import pytest
+from curvekeeper.client import Client, ClientError, retry_after
+from curvekeeper.store.tables import Sample
 from fastapi.testclient import TestClient
 from sqlalchemy import func, select
 
-from service.client import Client, ClientError, retry_after
-from service.store.tables import Sample
 from tests.conftest import ADMIN_SECRET, LINEAR, store_fingerprint
 
 Handler = Callable[[httpx.Request], httpx.Response]

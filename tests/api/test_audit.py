@@ -1,4 +1,4 @@
-"""The audit trail (``GET /v1/audit``, ``service/actions/audit.py``), and secrets kept out
+"""The audit trail (``GET /v1/audit``, ``service/curvekeeper/actions/audit.py``), and secrets kept out
 of every answer and every log record.
 
 Every change a technician or admin makes (channel create, patch, calibrate, snapshot,
@@ -14,11 +14,11 @@ from collections.abc import Iterator
 from typing import Any
 
 import pytest
+from curvekeeper.actions import audit
+from curvekeeper.auth import hash_secret
+from curvekeeper.store.tables import Event
 from fastapi.testclient import TestClient
 
-from service.actions import audit
-from service.auth import hash_secret
-from service.store.tables import Event
 from tests.conftest import ADMIN_SECRET, LINEAR, auth, store_fingerprint
 
 Headers = dict[str, str]

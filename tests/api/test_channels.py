@@ -15,11 +15,11 @@ from typing import Any
 import httpx
 import numpy as np
 import pytest
+from curvekeeper.core import ChannelModel
+from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
 from sqlalchemy import select
 
-from service.core import ChannelModel
-from service.store.tables import Channel, ChannelState
 from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
 from tests.conftest import LINEAR, store_fingerprint
 

@@ -1,4 +1,4 @@
-"""Predict, curve and calibrate (``service/api/routes/curves.py``).
+"""Predict, curve and calibrate (``service/curvekeeper/api/routes/curves.py``).
 
 Grouped per route, unauthorised and bad-input cases first. Every failing request
 is checked for its status, ``error.code`` and an unchanged store. Numbers are

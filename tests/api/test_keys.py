@@ -1,5 +1,5 @@
-"""API keys (``service/api/routes/keys.py``), device-key scope, health, readiness, metrics
-(``service/api/routes/health.py``) and the start-up admin key (``CURVEKEEPER_ADMIN_KEY``).
+"""API keys (``service/curvekeeper/api/routes/keys.py``), device-key scope, health, readiness, metrics
+(``service/curvekeeper/api/routes/health.py``) and the start-up admin key (``CURVEKEEPER_ADMIN_KEY``).
 
 Grouped per route, unauthorised and bad-input cases first. Every failing request
 is checked for its status, ``error.code`` and an unchanged store.
@@ -10,13 +10,13 @@ from __future__ import annotations
 from typing import Any
 
 import pytest
+from curvekeeper.api import create_app
+from curvekeeper.auth import hash_secret
+from curvekeeper.config import Settings
+from curvekeeper.store.tables import ApiKey
 from fastapi.testclient import TestClient
 from sqlalchemy import func, select
 
-from service.api import create_app
-from service.auth import hash_secret
-from service.config import Settings
-from service.store.tables import ApiKey
 from tests.api.helpers import Headers, expect_error, ok
 from tests.conftest import ADMIN_SECRET, auth, store_fingerprint
 
@@ -51,7 +51,7 @@ def admin_key_rows(client: TestClient) -> int:
         )
 
 
-# the Authorization header (service/api/deps.py, service/auth.py) ----------------------------
+# the Authorization header (service/curvekeeper/api/deps.py, service/curvekeeper/auth.py) ----------------------------
 def test_only_the_bearer_scheme_is_accepted_even_for_a_recently_used_key(
     client: TestClient, keys: Keys
 ) -> None:

@@ -1,4 +1,4 @@
-"""Per-key rate limiting (``service/ratelimit.py``, applied in ``service/api/deps.principal``).
+"""Per-key rate limiting (``service/curvekeeper/ratelimit.py``, applied in ``service/curvekeeper/api/deps.principal``).
 
 The clock is a fake one the tests move by hand: no sleeping, no timing asserts. A
 refused request answers 429 with code ``rate_limited``, ``Retry-After`` in whole seconds
@@ -13,13 +13,13 @@ from contextlib import contextmanager
 from typing import Any
 
 import pytest
+from curvekeeper import auth
+from curvekeeper.actions import channels
+from curvekeeper.api import create_app
+from curvekeeper.config import Settings
+from curvekeeper.ratelimit import RateLimiter
 from fastapi.testclient import TestClient
 
-from service import auth
-from service.actions import channels
-from service.api import create_app
-from service.config import Settings
-from service.ratelimit import RateLimiter
 from tests.conftest import LINEAR, store_fingerprint
 
 Headers = dict[str, str]

@@ -4,7 +4,7 @@
 Grouped per route; in each group the unauthorised cases come first, then bad input,
 then success. Every failed request must leave the store exactly as it was
 (``store_fingerprint``), and the next good request must behave as if the failed one
-had never been sent. Learning is checked against ``service.core.ChannelModel`` fed the
+had never been sent. Learning is checked against ``curvekeeper.core.ChannelModel`` fed the
 same samples directly: same residuals and same stored state, bit for bit.
 """
 
@@ -22,13 +22,13 @@ from typing import Any
 import httpx
 import numpy as np
 import pytest
+from curvekeeper.api import create_app
+from curvekeeper.config import Settings
+from curvekeeper.core import ChannelModel
+from curvekeeper.store.tables import Channel, ChannelState, Sample, Snapshot
 from fastapi.testclient import TestClient
 from sqlalchemy import select
 
-from service.api import create_app
-from service.config import Settings
-from service.core import ChannelModel
-from service.store.tables import Channel, ChannelState, Sample, Snapshot
 from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
 from tests.conftest import LINEAR, store_fingerprint
 
@@ -982,7 +982,7 @@ def test_export_csv_pages(client: TestClient, keys: Keys, channel: str) -> None:
 
 def test_each_stored_sample_keeps_the_drift_statistic_after_it(client: TestClient, admin: dict[str, str],
                                                                make_channel: Any) -> None:
-    from service.core import ChannelModel
+    from curvekeeper.core import ChannelModel
 
     make_channel("site-a.stat")
     rng = np.random.default_rng(5)

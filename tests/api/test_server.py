@@ -27,7 +27,7 @@ def server(tmp_path: Path) -> Iterator[str]:
     port = free_port()
     env = {**os.environ, "CURVEKEEPER_ADMIN_KEY": SECRET}
     proc = subprocess.Popen(
-        [sys.executable, "-m", "service.cli", "serve", "--port", str(port),
+        [sys.executable, "-m", "curvekeeper.cli", "serve", "--port", str(port),
          "--db", f"sqlite:///{tmp_path / 'served.db'}"],
         env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
     url = f"http://127.0.0.1:{port}"

@@ -1,4 +1,4 @@
-"""Snapshots (list, take, get), rollback and events (``service/api/routes/snapshots.py``).
+"""Snapshots (list, take, get), rollback and events (``service/curvekeeper/api/routes/snapshots.py``).
 
 Grouped per route, unauthorised and bad-input cases first. Every failing request
 is checked for its status, ``error.code`` and an unchanged store. A rollback must

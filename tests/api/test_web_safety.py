@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
+from curvekeeper.api import create_app
+from curvekeeper.config import Settings
 from fastapi.testclient import TestClient
-
-from service.api import create_app
-from service.config import Settings
 
 
 def test_security_headers_on_api_answers_and_html_pages(client: TestClient, admin: dict[str, str]) -> None:

@@ -1,4 +1,4 @@
-"""Where store work runs (service/api/work.py): small requests on SQLite run on the
+"""Where store work runs (service/curvekeeper/api/work.py): small requests on SQLite run on the
 event loop and take the write lock only when it is free; when another writer holds it
 they wait in a worker thread, and past the busy timeout they answer 503 with nothing
 stored."""
@@ -10,11 +10,11 @@ import threading
 from collections.abc import Iterator
 
 import pytest
+from curvekeeper.api.app import create_app
+from curvekeeper.config import Settings
+from curvekeeper.store import Store, WriteLockTaken
 from fastapi.testclient import TestClient
 
-from service.api.app import create_app
-from service.config import Settings
-from service.store import Store, WriteLockTaken
 from tests.conftest import ADMIN_SECRET, LINEAR, auth, store_fingerprint
 
 ADMIN = auth(ADMIN_SECRET)

@@ -39,8 +39,7 @@ def commit() -> str | None:
 
 def machine() -> dict[str, Any]:
     import numpy
-
-    from service import __version__
+    from curvekeeper import __version__
 
     return {"python": platform.python_version(), "platform": platform.platform(), "machine": platform.machine(),
             "cpus": os.cpu_count(), "numpy": numpy.__version__, "curvekeeper": __version__}

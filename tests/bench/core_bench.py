@@ -25,9 +25,8 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from service.core import ChannelModel
-from service.core.config import SCHEDULE_DEFAULTS
+from curvekeeper.core import ChannelModel
+from curvekeeper.core.config import SCHEDULE_DEFAULTS
 
 from . import report
 from .report import Table
@@ -45,7 +44,7 @@ PLAN: dict[str, dict[str, int]] = {
     "full": {"n": 100_000, "n_sk": 2_000, "reps": 7, "peer_reps": 3, "singles": 2_000, "pred": 10_000},
 }
 
-# our learners, schedule settings at their defaults (service/core/config.py)
+# our learners, schedule settings at their defaults (service/curvekeeper/core/config.py)
 OURS: dict[str, dict[str, Any]] = {
     "sgd normalized": {"kind": "sgd", "schedule": {"kind": "normalized"}},
     "sgd constant": {"kind": "sgd", "schedule": {"kind": "constant"}},

@@ -3,7 +3,7 @@ number of samples N.
 
 - Per-sample cost of one ``learn()`` call over a stream of fixed length, for ``sgd``
   (expected O(M)) and ``rls`` (expected O(M^2)). A poly basis allows at most degree 15
-  (M = 16, service/core/config.py), so the curve is also measured with an rbf basis of M
+  (M = 16, service/curvekeeper/core/config.py), so the curve is also measured with an rbf basis of M
   centres (no intercept), which allows M up to 64 (measured up to 64 in the full run); the
   power laws are fitted over all M and over M >= 8 (the per-sample cost includes a fixed
   overhead that flattens the small-M end), and as a + b M^p to separate the overhead.
@@ -28,8 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from service.core import ChannelModel
+from curvekeeper.core import ChannelModel
 
 from . import report
 from .core_bench import Job, interleaved

@@ -30,8 +30,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from service.core.drift import (
+from curvekeeper.core.drift import (
     DETECTOR_DEFAULTS,
     detector_params,
     detector_update,
@@ -62,7 +61,7 @@ PLAN: dict[str, dict[str, Any]] = {
              "step_streams": 3_000, "horizon": 4_000, "calls": 200_000, "repeats": 5},
 }
 
-# what the module docstring of service.core.drift gives at the defaults: in-control samples to an
+# what the module docstring of curvekeeper.core.drift gives at the defaults: in-control samples to an
 # alarm and to a warning, and samples to an alarm after a sustained 1 s.d. shift
 DOCUMENTED = {"page_hinkley": (210_000, 1_280, 22.3), "cusum": (192_000, 1_286, 22.3),
               "ewma": (204_000, 1_376, 23.8)}

@@ -6,10 +6,9 @@ from __future__ import annotations
 
 from typing import Any
 
+from curvekeeper.api.schemas.curves import PredictIn
+from curvekeeper.api.schemas.samples import SamplesIn
 from fastapi import FastAPI
-
-from service.api.schemas.curves import PredictIn
-from service.api.schemas.samples import SamplesIn
 
 app = FastAPI()
 

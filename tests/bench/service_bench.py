@@ -43,7 +43,7 @@ JSON = {"Content-Type": "application/json"}
 CHANNEL: dict[str, Any] = {"inputs": [{"name": "raw", "min": 0, "max": 100}], "basis": {"kind": "poly", "degree": 3}}
 SEED_KEY = "bench-seed"
 SEED_SAMPLES = 3  # samples learned by every seeded channel
-CACHE_SIZE = 4096  # decoded models the server keeps (service/store/cache.py, VersionCache default)
+CACHE_SIZE = 4096  # decoded models the server keeps (service/curvekeeper/store/cache.py, VersionCache default)
 
 
 @dataclass(frozen=True)
@@ -174,7 +174,7 @@ class Fleet:
 
 
 def serve(fleet: Fleet, name: str, db: Path) -> Server:
-    return fleet.spawn(name, ["service.cli", "serve", "--db", f"sqlite:///{db}"], "/readyz")
+    return fleet.spawn(name, ["curvekeeper.cli", "serve", "--db", f"sqlite:///{db}"], "/readyz")
 
 
 def post(client: httpx.Client, path: str, body: bytes) -> httpx.Response:
@@ -254,12 +254,11 @@ def seed(db: Path, n: int, chunk: int = 10_000) -> float:
     others copy its channel, state, sample and event rows in bulk, with their own id in the
     config (in the channel row, the model state and the creation event), a few big
     transactions in all. Replaying any of them gives its stored state back."""
+    from curvekeeper.actions import channels, samples
+    from curvekeeper.actions.samples import SampleIn
+    from curvekeeper.store import Store
+    from curvekeeper.store.tables import Channel, ChannelState, Event, Sample, utcnow
     from sqlalchemy import insert, select
-
-    from service.actions import channels, samples
-    from service.actions.samples import SampleIn
-    from service.store import Store
-    from service.store.tables import Channel, ChannelState, Event, Sample, utcnow
 
     t0 = time.perf_counter()
     store = Store(f"sqlite:///{db}")
@@ -327,7 +326,7 @@ def used_bytes(db: Path) -> int:
 def replay_seconds(db: Path, channel: str) -> float:
     """Wall time of ``curvekeeper replay <channel> --check --quiet``, process start included, seconds."""
     t0 = time.perf_counter()
-    r = subprocess.run([sys.executable, "-m", "service.cli", "replay", channel, "--check", "--quiet",
+    r = subprocess.run([sys.executable, "-m", "curvekeeper.cli", "replay", channel, "--check", "--quiet",
                         "--db", f"sqlite:///{db}"], capture_output=True, text=True, timeout=600)
     took = time.perf_counter() - t0
     if r.returncode != 0 or "bit for bit" not in r.stdout:

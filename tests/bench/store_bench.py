@@ -35,7 +35,7 @@ def free_port() -> int:
 
 def serve(db: str, port: int) -> subprocess.Popen[bytes]:
     env = {**os.environ, "CURVEKEEPER_ADMIN_KEY": SECRET}
-    proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port), "--db", db],
+    proc = subprocess.Popen([sys.executable, "-m", "curvekeeper.cli", "serve", "--port", str(port), "--db", db],
                             env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline:

@@ -5,13 +5,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from curvekeeper.auth import hash_secret
+from curvekeeper.cli import _first_key
+from curvekeeper.config import Settings
+from curvekeeper.store import Store
+from curvekeeper.store.tables import ApiKey, Event
 from sqlalchemy import select
-
-from service.auth import hash_secret
-from service.cli import _first_key
-from service.config import Settings
-from service.store import Store
-from service.store.tables import ApiKey, Event
 
 
 def test_first_start_mints_one_admin_key_and_prints_it_once(tmp_path: Path,

@@ -12,12 +12,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-
-from service import techcli
-from service.cli import main
-from service.client import Client
-from service.config import Settings
-from service.demo.run import start_server
+from curvekeeper import techcli
+from curvekeeper.cli import main
+from curvekeeper.client import Client
+from curvekeeper.config import Settings
+from curvekeeper.demo.run import start_server
 
 SECRET = "ck_techcli-test-admin-0123456789"
 

@@ -6,10 +6,9 @@ import math
 
 import numpy as np
 import pytest
+from curvekeeper.core.basis import HingeBasis, PolyBasis, RBFBasis, make_basis, total_degree_terms
+from curvekeeper.core.scaling import InputScaler
 from numpy.polynomial import chebyshev as C
-
-from service.core.basis import HingeBasis, PolyBasis, RBFBasis, make_basis, total_degree_terms
-from service.core.scaling import InputScaler
 
 
 def scaler(*ranges: tuple[float, float]) -> InputScaler:

@@ -5,8 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 import pytest
-
-from service.core import ConfigError, normalize_config
+from curvekeeper.core import ConfigError, normalize_config
 
 BASE: dict[str, Any] = {"inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}]}
 

@@ -1,4 +1,4 @@
-"""Drift detectors (service/core/drift.py) against sources outside the project.
+"""Drift detectors (service/curvekeeper/core/drift.py) against sources outside the project.
 
 Every reference value here is either quoted from the statistical quality control
 literature (named next to the check, quoted from memory) or computed in this file
@@ -53,11 +53,10 @@ from typing import Any
 
 import numpy as np
 import pytest
+from curvekeeper.core import drift
+from curvekeeper.core.config import normalize_config
 from scipy import integrate
 from scipy.stats import norm
-
-from service.core import drift
-from service.core.config import normalize_config
 
 CHUNK = 10**7  # normals generated per chunk (80 MB of float64)
 

@@ -1,4 +1,4 @@
-"""Closed-form least squares (``service/core/lstsq.py``) and ``ChannelModel.fit_closed_form``.
+"""Closed-form least squares (``service/curvekeeper/core/lstsq.py``) and ``ChannelModel.fit_closed_form``.
 
 References, named next to each check:
 
@@ -20,12 +20,11 @@ from typing import Any
 import numpy as np
 import pytest
 import scipy.linalg
+from curvekeeper.core.errors import FitError
+from curvekeeper.core.lstsq import fit_least_squares
+from curvekeeper.core.model import ChannelModel
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from service.core.errors import FitError
-from service.core.lstsq import fit_least_squares
-from service.core.model import ChannelModel
 
 NIST_DIR = Path(__file__).resolve().parent.parent / "data" / "nist"
 EPS = float(np.finfo(np.float64).eps)

@@ -13,8 +13,7 @@ from typing import Any
 
 import numpy as np
 import pytest
-
-from service.core import ChannelModel
+from curvekeeper.core import ChannelModel
 
 DATA = json.loads((Path(__file__).parents[1] / "data" / "standards.json").read_text())
 PT = DATA["iec60751_pt100"]
@@ -302,7 +301,7 @@ def test_batches_split_anywhere_give_the_same_state() -> None:
 
 
 def test_with_settings_keeps_the_learned_curve_and_refuses_the_basis() -> None:
-    from service.core import ConfigError
+    from curvekeeper.core import ConfigError
 
     x, y = quadratic_stream(21, 300)
     m = ChannelModel.from_config(channel())

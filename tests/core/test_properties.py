@@ -8,10 +8,9 @@ import sys
 from typing import Any
 
 import numpy as np
+from curvekeeper.core import ChannelModel
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from service.core import ChannelModel
 
 learners = st.sampled_from([
     {"kind": "sgd"},
@@ -82,7 +81,7 @@ def test_learning_an_empty_batch_changes_nothing(seed: int, n: int, learner: dic
 
 def test_the_core_imports_no_web_or_database_library() -> None:
     code = (
-        "import sys, service.core;"
+        "import sys, curvekeeper.core;"
         "bad = [m for m in ('fastapi', 'pydantic', 'sqlalchemy', 'starlette', 'httpx', 'uvicorn')"
         " if m in sys.modules]; print(bad)"
     )

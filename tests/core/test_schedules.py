@@ -5,8 +5,7 @@ from __future__ import annotations
 import math
 
 import pytest
-
-from service.core.schedules import eta_at, schedule_params
+from curvekeeper.core.schedules import eta_at, schedule_params
 
 
 @pytest.mark.parametrize(("cfg", "t", "nrm2", "expected"), [

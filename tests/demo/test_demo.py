@@ -7,9 +7,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from service.demo import scenario
-from service.demo.run import run_demo
+from curvekeeper.demo import scenario
+from curvekeeper.demo.run import run_demo
 
 
 def free_port() -> int:
@@ -47,9 +46,9 @@ def test_the_scenario_is_seeded_and_physical() -> None:
 
 def test_simulate_command_posts_the_scenario_once(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
                                                   capsys: pytest.CaptureFixture[str]) -> None:
-    from service.cli import main
-    from service.config import Settings
-    from service.demo.run import start_server
+    from curvekeeper.cli import main
+    from curvekeeper.config import Settings
+    from curvekeeper.demo.run import start_server
 
     secret = "ck_simulate-test-0123456789"
     port = free_port()

@@ -1,7 +1,7 @@
 """deploy/ agrees with the code: the settings example, the image, compose and the systemd unit.
 
 No container engine or systemd runs here: the files are parsed and checked against
-``service.config.Settings`` and ``service.cli.build_parser()``. Where a tool exists
+``curvekeeper.config.Settings`` and ``curvekeeper.cli.build_parser()``. Where a tool exists
 (PyYAML, ``systemd-analyze``) it is used; without it those tests skip and say why.
 """
 
@@ -25,10 +25,9 @@ from pathlib import Path, PurePosixPath
 from typing import Any
 
 import pytest
+from curvekeeper.cli import build_parser
+from curvekeeper.config import PREFIX, Settings
 from sqlalchemy.engine import make_url
-
-from service.cli import build_parser
-from service.config import PREFIX, Settings
 
 ROOT = Path(__file__).parents[2]
 DEPLOY = ROOT / "deploy"
@@ -139,7 +138,7 @@ def test_env_example_says_what_each_setting_does_and_its_true_default() -> None:
 
 
 def test_env_example_values_are_accepted_by_settings_and_the_app() -> None:
-    from service.api import create_app
+    from curvekeeper.api import create_app
 
     environ: dict[str, str] = {}
     for a in sorted(env_assignments(), key=lambda a: a.active):  # active lines win

@@ -12,12 +12,12 @@ from typing import Any
 
 import pytest
 import schemathesis
+from curvekeeper.api import create_app
+from curvekeeper.config import Settings
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, settings
 from schemathesis.specs.openapi.checks import positive_data_acceptance
 
-from service.api import create_app
-from service.config import Settings
 from tests.conftest import ADMIN_SECRET
 
 AUTH = {"Authorization": f"Bearer {ADMIN_SECRET}"}

@@ -16,9 +16,8 @@ from typing import IO
 
 import httpx
 import pytest
+from curvekeeper.store.tables import Channel, ChannelState, Sample
 from sqlalchemy import create_engine, func, select
-
-from service.store.tables import Channel, ChannelState, Sample
 
 ADMIN = "ck_store-test-admin-0123456789abcdef"
 START_S = 60.0  # at most this long for a server to answer /healthz
@@ -52,7 +51,7 @@ class Server:
         self._log.write(f"--- start {self.starts}\n".encode())
         self._log.flush()
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "serve", "--port", str(self.port), "--db", self.db_url],
+            [sys.executable, "-m", "curvekeeper.cli", "serve", "--port", str(self.port), "--db", self.db_url],
             env=self.env, stdout=self._log, stderr=subprocess.STDOUT)
         self.starts += 1
         deadline = time.monotonic() + START_S
@@ -96,7 +95,7 @@ class Server:
 
 def replay_check(db_url: str, channels: Iterable[str]) -> dict[str, subprocess.CompletedProcess[str]]:
     """``curvekeeper replay CHANNEL --check --quiet --db URL`` for each channel, in parallel."""
-    procs = {ch: subprocess.Popen([sys.executable, "-m", "service.cli", "replay", ch, "--check", "--quiet",
+    procs = {ch: subprocess.Popen([sys.executable, "-m", "curvekeeper.cli", "replay", ch, "--check", "--quiet",
                                    "--db", db_url], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
              for ch in channels}
     out = {}

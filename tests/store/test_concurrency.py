@@ -20,13 +20,13 @@ from typing import Any
 
 import httpx
 import pytest
+from curvekeeper import auth
+from curvekeeper.client import Client, ClientError
+from curvekeeper.store import Repository, Store, migrate
+from curvekeeper.store.engine import make_engine
+from curvekeeper.store.tables import ApiKey
 from sqlalchemy import Engine, create_engine, text
 
-from service import auth
-from service.client import Client, ClientError
-from service.store import Repository, Store, migrate
-from service.store.engine import make_engine
-from service.store.tables import ApiKey
 from tests.conftest import LINEAR, empty_postgres, fresh_store
 from tests.store.servers import ADMIN, Server, assert_exactly_once, assert_replays
 

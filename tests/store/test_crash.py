@@ -20,10 +20,10 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from curvekeeper.client import Client, ClientError
+from curvekeeper.store.tables import Channel, ChannelState, Event, Sample, Snapshot
 from sqlalchemy import create_engine, select
 
-from service.client import Client, ClientError
-from service.store.tables import Channel, ChannelState, Event, Sample, Snapshot
 from tests.conftest import LINEAR, fresh_store
 from tests.store.servers import ADMIN, Server, Triple, assert_exactly_once, assert_replays
 from tests.store.workers import read_log, retrying_client, stream

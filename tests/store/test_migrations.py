@@ -10,12 +10,11 @@ from pathlib import Path
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
+from curvekeeper.store import Store, migrate
+from curvekeeper.store.engine import make_engine
+from curvekeeper.store.tables import Base
 from sqlalchemy import create_engine, text
 from sqlalchemy.engine import make_url
-
-from service.store import Store, migrate
-from service.store.engine import make_engine
-from service.store.tables import Base
 
 
 @pytest.fixture(params=["sqlite", "postgresql"])

@@ -10,11 +10,10 @@ from typing import Any
 
 import numpy as np
 import pytest
+from curvekeeper.cli import main
+from curvekeeper.store import Store
 from fastapi.testclient import TestClient
 from sqlalchemy import text
-
-from service.cli import main
-from service.store import Store
 
 
 def feed(client: TestClient, h: dict[str, str], channel: str, n: int, seq0: int, offset: float = 0.0,

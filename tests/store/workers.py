@@ -2,7 +2,7 @@
 imports only the client, so a worker starts fast).
 
 A streamer sends samples keyed by its name (``source``) and an increasing ``seq``, to its own
-channel, to a shared one, and as gateway batches across both, through ``service.client``
+channel, to a shared one, and as gateway batches across both, through ``curvekeeper.client``
 with retries. It writes one JSON line per batch to its file before sending it
 (``{"sent": [...]}``) and one when the server acknowledged it (``{"acked": [...]}``), so the
 test knows what may be stored and what must be.
@@ -18,7 +18,7 @@ from multiprocessing.synchronize import Event
 from pathlib import Path
 from typing import Any
 
-from service.client import Client, ClientError
+from curvekeeper.client import Client, ClientError
 
 
 def retrying_client(url: str, key: str, seed: int) -> Client:

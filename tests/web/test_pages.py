@@ -14,10 +14,9 @@ from typing import Any
 
 import httpx
 import pytest
+from curvekeeper.config import Settings
+from curvekeeper.demo.run import run_demo, start_server
 from fastapi.testclient import TestClient
-
-from service.config import Settings
-from service.demo.run import run_demo, start_server
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",

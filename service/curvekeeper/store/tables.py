@@ -1,4 +1,4 @@
-"""Tables (SQLAlchemy 2, typed). Only ``service.store.repository`` queries them.
+"""Tables (SQLAlchemy 2, typed). Only ``curvekeeper.store.repository`` queries them.
 
 Timestamps are timezone-aware UTC. The sample log is append-only; a channel's
 model state lives in one row of ``channel_state`` that every write locks.

@@ -4,7 +4,7 @@ Probes named in ``gateway`` reach the service through one gateway, which batches
 probe's readings of ``gateway_steps`` time steps into one ``POST /v1/samples``; the other
 probes are devices posting their own readings in batches of ``device_batch`` to
 ``POST /v1/channels/{id}/samples``. Each source numbers its samples (``seq``), so the
-client's retries (connection errors, 503, 429; see ``service.client``) are idempotent.
+client's retries (connection errors, 503, 429; see ``curvekeeper.client``) are idempotent.
 """
 
 from __future__ import annotations

@@ -1,11 +1,11 @@
-"""Alembic environment: runs on a connection the caller passes in (see service.store.migrate)."""
+"""Alembic environment: runs on a connection the caller passes in (see curvekeeper.store.migrate)."""
 
 from __future__ import annotations
 
 from alembic import context
 from sqlalchemy.engine import Connection
 
-from service.store.tables import Base
+from curvekeeper.store.tables import Base
 
 config = context.config
 target_metadata = Base.metadata

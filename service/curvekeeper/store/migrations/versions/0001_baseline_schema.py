@@ -10,7 +10,7 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-import service.store.tables
+import curvekeeper.store.tables
 
 
 revision = '0001'
@@ -26,8 +26,8 @@ def upgrade() -> None:
     sa.Column('role', sa.String(length=16), nullable=False),
     sa.Column('prefixes', sa.JSON(), nullable=False),
     sa.Column('label', sa.Text(), nullable=True),
-    sa.Column('created_at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
-    sa.Column('revoked_at', service.store.tables.UTCDateTime(timezone=True), nullable=True),
+    sa.Column('created_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('revoked_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=True),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_api_key')),
     sa.UniqueConstraint('secret_hash', name=op.f('uq_api_key_secret_hash'))
     )
@@ -35,7 +35,7 @@ def upgrade() -> None:
     sa.Column('pk', sa.Integer(), nullable=False),
     sa.Column('id', sa.String(length=128), nullable=False),
     sa.Column('config', sa.JSON(), nullable=False),
-    sa.Column('created_at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('created_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
     sa.PrimaryKeyConstraint('pk', name=op.f('pk_channel')),
     sa.UniqueConstraint('id', name=op.f('uq_channel_id'))
     )
@@ -48,8 +48,8 @@ def upgrade() -> None:
     sa.Column('drift_state', sa.String(length=16), nullable=False),
     sa.Column('tolerance_state', sa.String(length=24), nullable=True),
     sa.Column('rmse', sa.Float(), nullable=True),
-    sa.Column('last_sample_at', service.store.tables.UTCDateTime(timezone=True), nullable=True),
-    sa.Column('updated_at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('last_sample_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=True),
+    sa.Column('updated_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
     sa.ForeignKeyConstraint(['channel_pk'], ['channel.pk'], name=op.f('fk_channel_state_channel_pk_channel'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('channel_pk', name=op.f('pk_channel_state'))
     )
@@ -59,7 +59,7 @@ def upgrade() -> None:
     sa.Column('kind', sa.String(length=32), nullable=False),
     sa.Column('version', sa.BigInteger(), nullable=True),
     sa.Column('key_id', sa.String(length=40), nullable=True),
-    sa.Column('at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
     sa.Column('details', sa.JSON(), nullable=False),
     sa.ForeignKeyConstraint(['channel_pk'], ['channel.pk'], name=op.f('fk_event_channel_pk_channel'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('pk', name=op.f('pk_event'))
@@ -74,8 +74,8 @@ def upgrade() -> None:
     sa.Column('version', sa.BigInteger(), nullable=False),
     sa.Column('source', sa.String(length=128), nullable=True),
     sa.Column('source_seq', sa.BigInteger(), nullable=True),
-    sa.Column('t', service.store.tables.UTCDateTime(timezone=True), nullable=False),
-    sa.Column('received_at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('t', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('received_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
     sa.Column('x', sa.JSON(), nullable=False),
     sa.Column('y', sa.Float(), nullable=False),
     sa.Column('residual', sa.Float(), nullable=True),
@@ -97,7 +97,7 @@ def upgrade() -> None:
     sa.Column('model_state', sa.JSON(), nullable=False),
     sa.Column('version', sa.BigInteger(), nullable=False),
     sa.Column('n_samples', sa.BigInteger(), nullable=False),
-    sa.Column('created_at', service.store.tables.UTCDateTime(timezone=True), nullable=False),
+    sa.Column('created_at', curvekeeper.store.tables.UTCDateTime(timezone=True), nullable=False),
     sa.ForeignKeyConstraint(['channel_pk'], ['channel.pk'], name=op.f('fk_snapshot_channel_pk_channel'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('pk', name=op.f('pk_snapshot'))
     )

@@ -21,7 +21,7 @@ class SchemaError(ServiceError):
 
 def alembic_config(engine: Engine) -> Config:
     cfg = Config()
-    cfg.set_main_option("script_location", "service.store:migrations")
+    cfg.set_main_option("script_location", "curvekeeper.store:migrations")
     cfg.set_main_option("sqlalchemy.url", engine.url.render_as_string(hide_password=False))
     return cfg
 

@@ -17,7 +17,7 @@ def is_sqlite(url: str) -> bool:
 
 
 def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
-    """An engine for ``url`` (the schema is the migrations' business: ``service.store.migrate``).
+    """An engine for ``url`` (the schema is the migrations' business: ``curvekeeper.store.migrate``).
     SQL parameters are kept out of logs and error messages: they hold readings and key hashes."""
     if is_sqlite(url):
         u = make_url(url)

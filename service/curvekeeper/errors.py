@@ -1,5 +1,5 @@
-"""Domain errors raised below the HTTP layer; ``service.api.errors`` maps them to the
-contract's error body. Core errors (``service.core.errors``) are mapped there too.
+"""Domain errors raised below the HTTP layer; ``curvekeeper.api.errors`` maps them to the
+contract's error body. Core errors (``curvekeeper.core.errors``) are mapped there too.
 
     ServiceError
     ├── Unauthorized      401 missing, unknown or revoked key

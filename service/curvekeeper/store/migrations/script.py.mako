@@ -10,7 +10,7 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-import service.store.tables
+import curvekeeper.store.tables
 
 ${imports if imports else ""}
 revision = ${repr(up_revision)}

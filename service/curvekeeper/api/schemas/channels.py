@@ -1,4 +1,4 @@
-"""Channel schemas. Field rules are checked by the core (``service.core.config``),
+"""Channel schemas. Field rules are checked by the core (``curvekeeper.core.config``),
 which names the field and says why a value is wrong."""
 
 from __future__ import annotations

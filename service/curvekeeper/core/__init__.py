@@ -1,6 +1,6 @@
 """The numeric core: pure computation on numpy arrays, no I/O.
 
-Its public face is ``ChannelModel``; errors are in ``service.core.errors``.
+Its public face is ``ChannelModel``; errors are in ``curvekeeper.core.errors``.
 """
 
 from .config import normalize_config
