@@ -1,14 +1,16 @@
-"""Domain errors raised below the HTTP layer; ``curvekeeper.api.errors`` maps them to the
-contract's error body. Core errors (``curvekeeper.core.errors``) are mapped there too.
+"""Domain errors raised below the HTTP layer. They carry a stable ``code`` and a message,
+never an HTTP status: ``curvekeeper.api.errors`` maps each class to its status (and core
+errors, ``curvekeeper.core.errors``, too).
 
     ServiceError
-    ├── Unauthorized      401 missing, unknown or revoked key
-    ├── Forbidden         403 role or channel prefix not allowed
-    ├── NotFound          404 (ChannelNotFound, SnapshotNotFound, KeyNotFound)
-    ├── Conflict          409 (ChannelExists, ImmutableField)
-    ├── PayloadTooLarge   413 too many samples, points or bytes
-    ├── InvalidRequest    422 a value the schema cannot catch
-    └── StoreBusy         503 the store is locked or unreachable (Retry-After)
+    ├── Unauthorized      missing, unknown or revoked key
+    ├── Forbidden         role or channel prefix not allowed
+    ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
+    ├── Conflict          ChannelExists, ImmutableField
+    ├── PayloadTooLarge   too many samples, points or bytes
+    ├── InvalidRequest    a value the schema cannot catch
+    ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
+    └── StoredStateDamaged a stored model state cannot be restored: the server's fault
 """
 
 from __future__ import annotations
@@ -17,7 +19,6 @@ from typing import Any
 
 
 class ServiceError(Exception):
-    status = 500
     code = "internal_error"
 
     def __init__(self, message: str, details: Any = None) -> None:
@@ -27,17 +28,14 @@ class ServiceError(Exception):
 
 
 class Unauthorized(ServiceError):
-    status = 401
     code = "unauthorized"
 
 
 class Forbidden(ServiceError):
-    status = 403
     code = "forbidden"
 
 
 class NotFound(ServiceError):
-    status = 404
     code = "not_found"
 
 
@@ -54,7 +52,6 @@ class KeyNotFound(NotFound):
 
 
 class Conflict(ServiceError):
-    status = 409
     code = "conflict"
 
 
@@ -67,19 +64,23 @@ class ImmutableField(Conflict):
 
 
 class PayloadTooLarge(ServiceError):
-    status = 413
     code = "payload_too_large"
 
 
 class InvalidRequest(ServiceError):
-    status = 422
     code = "invalid_request"
 
 
 class StoreBusy(ServiceError):
-    status = 503
     code = "store_busy"
 
     def __init__(self, message: str, details: Any = None, retry_after: int = 1) -> None:
         super().__init__(message, details)
         self.retry_after = retry_after
+
+
+class StoredStateDamaged(ServiceError):
+    """A channel's (or snapshot's) stored state cannot be restored: damaged or written by
+    an incompatible version. Nothing the client sent is wrong."""
+
+    code = "stored_state_damaged"

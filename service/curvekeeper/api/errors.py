@@ -13,14 +13,37 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 from starlette.routing import Match
 
-from ..core import CoreError
-from ..errors import ServiceError, StoreBusy
+from ..core import CoreError, StateError
+from ..errors import (
+    Conflict,
+    Forbidden,
+    InvalidRequest,
+    NotFound,
+    PayloadTooLarge,
+    ServiceError,
+    StoreBusy,
+    StoredStateDamaged,
+    Unauthorized,
+)
 from .deps import lookup_key
 
 log = logging.getLogger("curvekeeper.api")
 
 HTTP_CODES = {404: "not_found", 405: "method_not_allowed", 413: "payload_too_large", 401: "unauthorized",
               403: "forbidden", 400: "bad_request", 429: "rate_limited"}
+
+
+#: the HTTP status of each domain error class (the first match in this order wins);
+#: anything else, StoredStateDamaged included, is the server's fault: 500
+STATUS: tuple[tuple[type[ServiceError], int], ...] = (
+    (Unauthorized, 401), (Forbidden, 403), (NotFound, 404), (Conflict, 409), (PayloadTooLarge, 413),
+    (InvalidRequest, 422), (StoreBusy, 503), (StoredStateDamaged, 500),
+)
+
+
+def status_of(exc: ServiceError) -> int:
+    """The HTTP status a domain error answers with."""
+    return next((status for cls, status in STATUS if isinstance(exc, cls)), 500)
 
 
 def error_body(code: str, message: str, details: Any = None) -> dict[str, Any]:
@@ -55,10 +78,18 @@ def install(app: FastAPI) -> None:
         headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy) else None
         if isinstance(exc, StoreBusy):
             log.warning("store busy: %s", exc.details)
-        return error_response(exc.status, exc.code, exc.message, exc.details, headers)
+        status = status_of(exc)
+        if status == 500:
+            log.error("%s: %s (%s)", exc.code, exc.message, exc.details)
+        return error_response(status, exc.code, exc.message, exc.details, headers)
 
     @app.exception_handler(CoreError)
     async def _core(_: Request, exc: CoreError) -> JSONResponse:
+        if isinstance(exc, StateError):
+            # a state the core cannot restore came from the store, not from the client
+            log.error("stored state cannot be restored: %s", exc.message)
+            return error_response(500, StoredStateDamaged.code, "a stored state cannot be restored; "
+                                  "it has been logged", {"field": exc.field})
         return error_response(422, exc.code, exc.message, {"field": exc.field})
 
     @app.exception_handler(RequestValidationError)
@@ -68,7 +99,7 @@ def install(app: FastAPI) -> None:
             try:
                 await run_in_threadpool(lookup_key, request.app.state.ctx, request.headers.get("authorization"))
             except ServiceError as denied:
-                return error_response(denied.status, denied.code, denied.message, denied.details)
+                return error_response(status_of(denied), denied.code, denied.message, denied.details)
         errors = _clean(list(exc.errors()))
         if any(e["type"] == "json_invalid" for e in errors):
             return error_response(400, "malformed_json", "the request body is not valid JSON", errors)

@@ -3,10 +3,10 @@
 The tree::
 
     CoreError
-    ├── ConfigError   a channel configuration is invalid (HTTP 422)
-    ├── InputError    samples or inputs do not fit the channel (HTTP 422)
-    ├── FitError      a closed-form fit cannot be made from the points (HTTP 422)
-    └── StateError    a stored state cannot be restored (HTTP 500 / data error)
+    ├── ConfigError   a channel configuration is invalid
+    ├── InputError    samples or inputs do not fit the channel
+    ├── FitError      a closed-form fit cannot be made from the points
+    └── StateError    a stored state cannot be restored (the store's fault)
 """
 
 from __future__ import annotations
