@@ -51,10 +51,17 @@ def postgres_url() -> Iterator[str]:
 
 
 def empty_postgres(url: str) -> None:
+    """Every table emptied and every id sequence restarted at 1. DELETE of a few rows is
+    much cheaper than TRUNCATE (which rewrites each table's files), and this runs before
+    every PostgreSQL test."""
     engine = create_engine(url)
     with engine.begin() as conn:
-        names = ", ".join(t.name for t in Base.metadata.sorted_tables)
-        conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+        for table in reversed(Base.metadata.sorted_tables):
+            conn.execute(table.delete())
+        sequences = conn.execute(text("SELECT sequence_name FROM information_schema.sequences "
+                                      "WHERE sequence_schema = current_schema()")).scalars().all()
+        for name in sequences:
+            conn.execute(text(f'ALTER SEQUENCE "{name}" RESTART WITH 1'))
     engine.dispose()
 
 
