@@ -8,7 +8,8 @@ contract's error body. Core errors (``curvekeeper.core.errors``) are mapped ther
     ├── Conflict          409 (ChannelExists, ImmutableField)
     ├── PayloadTooLarge   413 too many samples, points or bytes
     ├── InvalidRequest    422 a value the schema cannot catch
-    └── StoreBusy         503 the store is locked or unreachable (Retry-After)
+    ├── StoreBusy         503 the store is locked or unreachable (Retry-After)
+    └── NotReady          503 the service is still starting: the compiled kernels are not built (Retry-After)
 """
 
 from __future__ import annotations
@@ -79,6 +80,15 @@ class InvalidRequest(ServiceError):
 class StoreBusy(ServiceError):
     status = 503
     code = "store_busy"
+
+    def __init__(self, message: str, details: Any = None, retry_after: int = 1) -> None:
+        super().__init__(message, details)
+        self.retry_after = retry_after
+
+
+class NotReady(ServiceError):
+    status = 503
+    code = "not_ready"
 
     def __init__(self, message: str, details: Any = None, retry_after: int = 1) -> None:
         super().__init__(message, details)

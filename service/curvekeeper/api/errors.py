@@ -14,7 +14,7 @@ from starlette.exceptions import HTTPException
 from starlette.routing import Match
 
 from ..core import CoreError
-from ..errors import ServiceError, StoreBusy
+from ..errors import NotReady, ServiceError, StoreBusy
 from .deps import lookup_key
 
 log = logging.getLogger("curvekeeper.api")
@@ -52,7 +52,7 @@ def _leaf_routes(routes: Any) -> list[Any]:
 def install(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service(_: Request, exc: ServiceError) -> JSONResponse:
-        headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy) else None
+        headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy | NotReady) else None
         if isinstance(exc, StoreBusy):
             log.warning("store busy: %s", exc.details)
         return error_response(exc.status, exc.code, exc.message, exc.details, headers)
