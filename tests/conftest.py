@@ -3,15 +3,28 @@
 
 from __future__ import annotations
 
+import atexit
 import os
 import shutil
+import tempfile
 from collections.abc import Iterator
+
+# A fresh numba cache per test session, made before curvekeeper's kernels are defined (they
+# fix their cache directory then): no run reads machine code another run compiled. Servers
+# the tests start inherit it, so the session compiles each kernel once. Kept when given.
+if not os.environ.get("NUMBA_CACHE_DIR"):
+    os.environ["NUMBA_CACHE_DIR"] = tempfile.mkdtemp(prefix="curvekeeper-numba-")
+    atexit.register(shutil.rmtree, os.environ["NUMBA_CACHE_DIR"], ignore_errors=True)
+    import numba
+
+    numba.config.reload_config()  # numba may have been imported already (by a plugin)
 from pathlib import Path
 from typing import Any
 
 import pytest
 from curvekeeper.api import create_app
 from curvekeeper.config import Settings
+from curvekeeper.kernels import PROCESS
 from curvekeeper.store import migrate
 from curvekeeper.store.engine import make_engine
 from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
@@ -85,8 +98,15 @@ def fresh_store(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template:
 
 
 @pytest.fixture
-def settings(database_url: str) -> Settings:
+def settings(database_url: str, kernels_ready: None) -> Settings:
     return Settings(database_url=database_url, admin_key=ADMIN_SECRET)
+
+
+@pytest.fixture(scope="session")
+def kernels_ready() -> None:
+    """This process's compiled kernels, built once: every app after this is ready at once."""
+    PROCESS.start()
+    assert PROCESS.wait(), PROCESS.error
 
 
 @pytest.fixture

@@ -10,6 +10,7 @@ errors, ``curvekeeper.core.errors``, too).
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
     ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
+    ├── NotReady          still starting: the compiled kernels are not built (retry after ``retry_after`` s)
     └── StoredStateDamaged a stored model state cannot be restored: the server's fault
 """
 
@@ -84,3 +85,11 @@ class StoredStateDamaged(ServiceError):
     an incompatible version. Nothing the client sent is wrong."""
 
     code = "stored_state_damaged"
+
+
+class NotReady(ServiceError):
+    code = "not_ready"
+
+    def __init__(self, message: str, details: Any = None, retry_after: int = 1) -> None:
+        super().__init__(message, details)
+        self.retry_after = retry_after

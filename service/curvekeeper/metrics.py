@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from prometheus_client import CollectorRegistry, Counter, Histogram, generate_latest
+from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
+
+from .core.jit import specializations
 
 
 class Metrics:
@@ -17,6 +19,9 @@ class Metrics:
                                registry=self.registry)
         self.drift_alarms = Counter("curvekeeper_drift_alarms_total", "Drift alarms raised",
                                     registry=self.registry)
+        # grows whenever a call compiles or loads machine code: flat while serving means no request waited
+        Gauge("curvekeeper_kernel_specializations", "Compiled kernel specialisations loaded in this process",
+              registry=self.registry).set_function(specializations)
 
     def observe_request(self, method: str, route: str, status: int, seconds: float) -> None:
         self.requests.labels(method, route, str(status)).inc()

@@ -27,6 +27,7 @@ from typing import Any
 import pytest
 from curvekeeper.cli import build_parser
 from curvekeeper.config import PREFIX, Settings
+from curvekeeper.core.jit import cache_dir
 from sqlalchemy.engine import make_url
 
 ROOT = Path(__file__).parents[2]
@@ -247,6 +248,33 @@ def test_containerfile_base_user_volume_and_settings() -> None:
     assert env.get("NUMBA_CACHE_DIR", "").startswith("/var/cache/curvekeeper"), "NUMBA_CACHE_DIR"
     assert any(re.search(r"install -d\b.*-o " + re.escape(user) + r"\b.*/var/cache/curvekeeper", r)
                for r in args_of("RUN")), "the numba cache directory must belong to the service user"
+
+
+def test_containerfile_builds_the_kernels_into_the_cache_as_the_service_user(tmp_path: Path) -> None:
+    steps = instructions()
+    warm = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "build_kernels" in rest]
+    assert len(warm) == 1, "one RUN step builds the compiled kernels"
+    at = warm[0]
+    installed = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "pip install" in rest]
+    assert installed and installed[-1] < at, "the kernels are built after the project is installed"
+    users = [rest for k, rest in steps[:at] if k == "USER"]
+    assert users and users[-1] == args_of("USER")[-1] != "root", "built as the user who reads the cache"
+    env: dict[str, str] = {}
+    for k, rest in steps[:at]:
+        if k == "ENV":
+            env.update(word.partition("=")[::2] for word in shlex.split(rest))
+    assert image_env().items() <= env.items(), "the build sees the cache directory and CPU the service runs with"
+    assert env.get("NUMBA_CPU_NAME") == "generic", "machine code for any host, not the build machine's CPU"
+
+    # the step's command works: run here on a fresh cache directory, it fills the kernels' cache
+    argv = exec_form(steps[at][1], "RUN")
+    assert argv[0] == "python"
+    cache = tmp_path / "numba"
+    run = subprocess.run([sys.executable, *argv[1:]], capture_output=True, text=True, timeout=600,
+                         env={**os.environ, "NUMBA_CACHE_DIR": str(cache), "NUMBA_CPU_NAME": "generic"})
+    assert run.returncode == 0, run.stderr
+    kernels = cache_dir(cache)
+    assert kernels is not None and list(kernels.rglob("learners.learn_batch-*.nbi")), "no kernel was cached"
 
 
 def test_containerfile_installs_the_project_from_the_context_with_pip_only() -> None:

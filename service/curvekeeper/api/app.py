@@ -12,6 +12,7 @@ from threadpoolctl import threadpool_limits
 
 from .. import __version__, auth
 from ..config import Settings
+from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
 from ..store import Store
@@ -27,8 +28,11 @@ readings arrive. Send `Authorization: Bearer <api key>` on every route except
 accredited calibration and the rules that apply where the sensors are used."""
 
 
-def create_app(settings: Settings | None = None) -> FastAPI:
+def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None) -> FastAPI:
+    """The service app. ``kernels``: the build of the compiled kernels that ``/readyz``
+    waits for (default: the process's own, started by the lifespan)."""
     settings = settings or Settings.from_env()
+    build = kernels or PROCESS
     logging.getLogger("curvekeeper").setLevel(settings.log_level.upper())
     metrics = Metrics()
     limiter = RateLimiter.from_settings(settings)
@@ -38,6 +42,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         # one BLAS thread: requests are the unit of parallelism here; on shared cores a
         # multi-threaded BLAS stalled fits and predicts by up to 10x (tests/bench/cost_bench.py)
         threadpool_limits(limits=1)
+        build.start()  # in its own thread: the loop answers /healthz meanwhile
         store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
         try:
             if settings.admin_key:
@@ -46,7 +51,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         except BaseException:
             store.dispose()
             raise
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter)
+        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build)
         try:
             yield
         finally:

@@ -15,6 +15,7 @@ from starlette.concurrency import run_in_threadpool
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
 from ..errors import PayloadTooLarge
+from ..kernels import KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
 from ..store import Store
@@ -54,6 +55,7 @@ class AppContext:
     metrics: Metrics
     keys: KeyCache
     limiter: RateLimiter
+    kernels: KernelBuild
 
 
 async def context(request: Request) -> AppContext:

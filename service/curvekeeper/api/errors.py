@@ -19,6 +19,7 @@ from ..errors import (
     Forbidden,
     InvalidRequest,
     NotFound,
+    NotReady,
     PayloadTooLarge,
     ServiceError,
     StoreBusy,
@@ -37,7 +38,7 @@ HTTP_CODES = {404: "not_found", 405: "method_not_allowed", 413: "payload_too_lar
 #: anything else, StoredStateDamaged included, is the server's fault: 500
 STATUS: tuple[tuple[type[ServiceError], int], ...] = (
     (Unauthorized, 401), (Forbidden, 403), (NotFound, 404), (Conflict, 409), (PayloadTooLarge, 413),
-    (InvalidRequest, 422), (StoreBusy, 503), (StoredStateDamaged, 500),
+    (InvalidRequest, 422), (StoreBusy, 503), (NotReady, 503), (StoredStateDamaged, 500),
 )
 
 
@@ -75,7 +76,7 @@ def _leaf_routes(routes: Any) -> list[Any]:
 def install(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service(_: Request, exc: ServiceError) -> JSONResponse:
-        headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy) else None
+        headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy | NotReady) else None
         if isinstance(exc, StoreBusy):
             log.warning("store busy: %s", exc.details)
         status = status_of(exc)

@@ -6,7 +6,9 @@ transaction itself (measured: a single-sample ingest took 0.7 ms on the loop aga
 small work therefore runs right on the event loop: reads never wait there (WAL), and
 a write takes the write lock only if it is free at once, else it goes to a worker
 thread that waits for the lock up to the busy timeout. Large batches and every
-PostgreSQL transaction (network round trips, row locks) run in worker threads.
+PostgreSQL transaction (network round trips, row locks) run in worker threads, and so
+does all work until the process's compiled kernels are built (a compilation there would
+hold the loop for seconds).
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ from typing import TypeVar
 
 from starlette.concurrency import run_in_threadpool
 
+from ..kernels import PROCESS
 from ..store import Repository, Store, WriteLockTaken
 
 T = TypeVar("T")
@@ -32,7 +35,7 @@ def _in_transaction(store: Store, fn: Callable[[Repository], T], write: bool) ->
 async def run_store(store: Store, fn: Callable[[Repository], T], *, write: bool, items: int = 1) -> T:
     """``fn(repo)`` in one transaction (committed on success), on the loop when small
     enough and the store allows it, else in a worker thread."""
-    if store.inline and items <= INLINE_MAX_ITEMS:
+    if store.inline and items <= INLINE_MAX_ITEMS and PROCESS.ready:
         if not write:
             return _in_transaction(store, fn, write=False)
         try:

@@ -45,8 +45,9 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from numba import njit
 from numpy.typing import NDArray
+
+from .jit import kernel
 
 DETECTORS = {"page_hinkley": 0, "cusum": 1, "ewma": 2}
 STATES = ("ok", "warning", "alarm")
@@ -83,7 +84,7 @@ def new_detector_state() -> NDArray[np.float64]:
     return np.zeros(DS_SIZE)
 
 
-@njit(cache=True)
+@kernel
 def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
     """One standardised residual z into the detector; returns the statistic."""
     clip = dp[3]
@@ -126,7 +127,7 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
     return stat
 
 
-@njit(cache=True)
+@kernel
 def detector_statistic(kind: int, dp: Any, ds: Any) -> float:
     """The current statistic of a detector state, without an update."""
     if kind == 2:
@@ -134,7 +135,7 @@ def detector_statistic(kind: int, dp: Any, ds: Any) -> float:
     return float(ds[0] if ds[0] > ds[1] else ds[1])
 
 
-@njit(cache=True)
+@kernel
 def run_lengths(kind: int, dp: Any, z: Any, level: int, max_runs: int) -> Any:
     """Run lengths to the first state >= ``level`` on a stream z, restarting after each.
 
@@ -162,7 +163,7 @@ def run_lengths(kind: int, dp: Any, z: Any, level: int, max_runs: int) -> Any:
     return out[:count], length
 
 
-@njit(cache=True)
+@kernel
 def first_reach(kind: int, dp: Any, ds: Any, z: Any, level: int) -> int:
     """Feed z into the detector state ds; index of the first sample whose state is
     >= ``level``, or -1."""

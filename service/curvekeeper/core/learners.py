@@ -31,9 +31,9 @@ import math
 from typing import Any
 
 import numpy as np
-from numba import njit
 
 from .drift import detector_statistic, detector_update
+from .jit import kernel
 from .schedules import eta_at
 
 LEARNERS = {"sgd": 0, "rls": 1}
@@ -51,7 +51,7 @@ ST_SIZE = 11
 ACCEPTED, OUTLIER, GUARD = 0, 1, 2
 
 
-@njit(cache=True)
+@kernel
 def _inverse(z: float, code: int, offset: float) -> float:
     if code == 0:
         return z
@@ -64,7 +64,7 @@ def _inverse(z: float, code: int, offset: float) -> float:
     return math.exp(z) - offset
 
 
-@njit(cache=True)
+@kernel
 def _sgd_step(
     w: Any, w_ref: Any, phi: Any, r: float, s: float, warm: bool,
     sk: int, sp: Any, lp: Any, st: Any, wn: Any,
@@ -96,7 +96,7 @@ def _sgd_step(
     return True
 
 
-@njit(cache=True)
+@kernel
 def _rls_step(w: Any, P: Any, phi: Any, r: float, lp: Any, Pphi: Any, wn: Any) -> bool:
     M = w.shape[0]
     lam = lp[LP_FORGET]
@@ -125,7 +125,7 @@ def _rls_step(w: Any, P: Any, phi: Any, r: float, lp: Any, Pphi: Any, wn: Any) -
     return True
 
 
-@njit(cache=True)
+@kernel
 def learn_batch(
     Phi: Any, z: Any, y: Any,
     w: Any, w_ref: Any, P: Any,

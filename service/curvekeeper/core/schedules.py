@@ -16,8 +16,9 @@ import math
 from typing import Any
 
 import numpy as np
-from numba import njit
 from numpy.typing import NDArray
+
+from .jit import kernel
 
 SCHEDULES = {"constant": 0, "inverse_time": 1, "step": 2, "normalized": 3}
 
@@ -39,7 +40,7 @@ def schedule_params(cfg: dict[str, Any]) -> tuple[int, NDArray[np.float64]]:
     return SCHEDULES[cfg["kind"]], sp
 
 
-@njit(cache=True)
+@kernel
 def eta_at(kind: int, sp: Any, t: float, nrm2: float) -> float:
     """Learning rate for step number t (0-based) with |phi|^2 = nrm2."""
     if kind == 0:

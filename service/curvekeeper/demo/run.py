@@ -23,6 +23,7 @@ import uvicorn
 from ..api import create_app
 from ..client import Client
 from ..config import Settings
+from ..kernels import PROCESS
 from . import scenario
 from .simulator import simulate
 
@@ -58,6 +59,9 @@ def start_server(settings: Settings) -> tuple[_Server, threading.Thread]:
         if not thread.is_alive() or time.monotonic() > deadline:
             raise RuntimeError(f"the service did not start on {settings.host}:{settings.port}")
         time.sleep(0.05)
+    # the story's first requests would otherwise wait for the compiled kernels (the app's
+    # lifespan builds them in a thread); a failed build leaves them to compile on first use
+    PROCESS.wait(timeout=max(deadline - time.monotonic(), 0.0))
     return server, thread
 
 

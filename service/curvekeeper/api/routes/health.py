@@ -6,28 +6,37 @@ from typing import Annotated
 
 from fastapi import APIRouter, Header, Response
 
-from ...errors import StoreBusy
+from ...errors import NotReady, StoreBusy
 from ..deps import Ctx, check_rate, lookup_key
 from ..schemas.common import error_responses
+from ..schemas.health import Liveness, Readiness
 
 router = APIRouter(tags=["health"])
 
 
-@router.get("/healthz", summary="Liveness")
-def healthz() -> dict[str, str]:
-    return {"status": "ok"}
+# on the event loop itself, never behind the thread pool: it answers while work is queued there
+@router.get("/healthz", summary="Liveness", response_model=Liveness)
+async def healthz() -> Liveness:
+    return Liveness()
 
 
-@router.get("/readyz", summary="Readiness: the store answers", responses=error_responses(503))
-def readyz(ctx: Ctx) -> dict[str, str]:
+@router.get("/readyz", summary="Readiness: the compiled kernels are built and the store answers",
+            response_model=Readiness, responses=error_responses(503))
+def readyz(ctx: Ctx) -> Readiness:
+    kernels = ctx.kernels
+    if not kernels.ready:
+        if kernels.state == "failed":
+            raise NotReady("building the compiled kernels failed; see the service log",
+                           {"reason": "kernels_failed", "error": kernels.error})
+        raise NotReady("the compiled kernels are still being built", {"reason": "kernels_building"})
     try:
         with ctx.store.transaction(write=False) as repo:
             repo.ping()
     except StoreBusy:
         raise
     except Exception as exc:  # any failure to reach the store means "not ready"
-        raise StoreBusy("the store is not reachable") from exc
-    return {"status": "ready"}
+        raise StoreBusy("the store is not reachable", {"reason": "store_unreachable"}) from exc
+    return Readiness()
 
 
 @router.get("/metrics", summary="Prometheus metrics", response_class=Response,
