@@ -9,6 +9,7 @@ errors, ``curvekeeper.core.errors``, too).
     ├── Conflict          ChannelExists, ImmutableField
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
+    │   └── InvalidConfig a merged channel configuration the declaration refuses
     ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
     ├── NotReady          still starting: the compiled kernels are not built (retry after ``retry_after`` s)
     └── StoredStateDamaged a stored model state cannot be restored: the server's fault
@@ -16,6 +17,7 @@ errors, ``curvekeeper.core.errors``, too).
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
 
@@ -70,6 +72,43 @@ class PayloadTooLarge(ServiceError):
 
 class InvalidRequest(ServiceError):
     code = "invalid_request"
+
+
+class InvalidConfig(InvalidRequest):
+    """A channel configuration refused by its declaration below the request schema (a PATCH
+    merged into the stored settings); the same body as a refused request."""
+
+    code = "validation_error"
+
+    @classmethod
+    def from_errors(cls, errors: Iterable[Mapping[str, Any]]) -> InvalidConfig:
+        """From pydantic's ``errors()`` of the configuration (locations within the body)."""
+        details = validation_details(errors, prefix=("body",))
+        return cls(validation_message(details), details)
+
+
+def field_path(loc: Sequence[Any]) -> str:
+    """A location as the field's name: ``inputs[0].min``, ``drift.tolerance`` (``body`` left out)."""
+    out = ""
+    for part in loc:
+        if part == "body" and not out:
+            continue
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out
+
+
+def validation_details(errors: Iterable[Mapping[str, Any]], prefix: tuple[str, ...] = ()) -> list[dict[str, Any]]:
+    """Validation errors as the error body's details: each ``loc`` (strings), ``msg`` and ``type``."""
+    return [{"loc": [str(p) for p in (*prefix, *e.get("loc", ()))], "msg": str(e.get("msg", "")),
+             "type": str(e.get("type", ""))} for e in errors]
+
+
+def validation_message(errors: Sequence[Mapping[str, Any]]) -> str:
+    """The first error as a sentence that starts with the field's name (``inputs[0].min: ...``)."""
+    if not errors:
+        return "request: invalid request"
+    loc = [int(p) if isinstance(p, str) and p.isdigit() else p for p in errors[0].get("loc", ())]
+    return f"{field_path(loc) or 'request'}: {errors[0].get('msg', '')}"
 
 
 class StoreBusy(ServiceError):

@@ -26,10 +26,24 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Literal
 
+from .channel_config import channel_config
 from .core.jit import kernel_cache_dir
 from .core.warmup import build_kernels
 
 log = logging.getLogger("curvekeeper.kernels")
+
+# the smallest channel of each learner: the kernels' types do not depend on the basis,
+# the transform, the schedule or the detector (those are runtime codes and array sizes)
+WARM_CHANNELS = (
+    {"inputs": [{"name": "raw", "min": 0.0, "max": 1.0}], "learner": {"kind": "sgd"}},
+    {"inputs": [{"name": "raw", "min": 0.0, "max": 1.0}], "learner": {"kind": "rls"}},
+)
+
+
+def warm_kernels() -> None:
+    """Build (or load from the cache) every kernel a channel calls."""
+    build_kernels(channel_config(body) for body in WARM_CHANNELS)
+
 
 State = Literal["pending", "building", "ready", "failed"]
 LOCK_NAME = "build.lock"
@@ -68,7 +82,7 @@ class KernelBuild:
     """One build of the kernels: ``start()`` runs ``build`` in a daemon thread (once);
     ``state`` is pending, building, ready or failed (``error`` says why)."""
 
-    def __init__(self, build: Callable[[], None] = build_kernels, cache_dir: Path | None = None) -> None:
+    def __init__(self, build: Callable[[], None] = warm_kernels, cache_dir: Path | None = None) -> None:
         self._build = build
         self._cache_dir = cache_dir if cache_dir is not None else kernel_cache_dir()
         self._lock = threading.Lock()

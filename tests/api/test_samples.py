@@ -23,6 +23,7 @@ import httpx
 import numpy as np
 import pytest
 from curvekeeper.api import create_app
+from curvekeeper.channel_config import channel_config
 from curvekeeper.config import Settings
 from curvekeeper.core import ChannelModel
 from curvekeeper.store.tables import Channel, ChannelState, Sample, Snapshot
@@ -31,6 +32,12 @@ from sqlalchemy import select
 
 from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
 from tests.conftest import LINEAR, store_fingerprint
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 CHANNELS = "/v1/channels"
 GATEWAY = "/v1/samples"
@@ -100,7 +107,7 @@ def xy(samples: list[dict[str, Any]]) -> tuple[list[list[float]], list[float]]:
 
 def direct_model(channel_id: str, body: dict[str, Any]) -> ChannelModel:
     """The core's model for the channel body the test posted."""
-    return ChannelModel.from_config({"id": channel_id, **copy.deepcopy(body)})
+    return model_of({"id": channel_id, **copy.deepcopy(body)})
 
 
 def json_residuals(res: Any) -> list[float | None]:
@@ -610,7 +617,7 @@ def test_post_a_drift_alarm_writes_events_and_a_snapshot(client: TestClient, key
 
     direct = direct_model(channel, LINEAR)
     direct.learn(*xy(warm))
-    probe = ChannelModel.from_state(direct.to_state())
+    probe = ChannelModel.from_state(direct.config, direct.to_state())
     res = probe.learn(*xy(shifted))
     k = res.drift_state.index("alarm")  # the sample that raised the alarm
     assert b["residuals"] == json_residuals(res)
@@ -644,7 +651,7 @@ def test_post_a_drift_alarm_and_a_periodic_snapshot_in_one_request(client: TestC
     post(client, "site-a.p1", {"samples": shifted}, keys["device"])
     direct = direct_model("site-a.p1", {**LINEAR, "snapshot_every": 210})
     direct.learn(*xy(warm))
-    k = ChannelModel.from_state(direct.to_state()).learn(*xy(shifted)).drift_state.index("alarm")
+    k = ChannelModel.from_state(direct.config, direct.to_state()).learn(*xy(shifted)).drift_state.index("alarm")
     assert k < 10
     direct.learn(*xy(shifted[:k]))
     at_alarm = direct.to_state()
@@ -982,7 +989,6 @@ def test_export_csv_pages(client: TestClient, keys: Keys, channel: str) -> None:
 
 def test_each_stored_sample_keeps_the_drift_statistic_after_it(client: TestClient, admin: dict[str, str],
                                                                make_channel: Any) -> None:
-    from curvekeeper.core import ChannelModel
 
     make_channel("site-a.stat")
     rng = np.random.default_rng(5)
@@ -993,6 +999,6 @@ def test_each_stored_sample_keeps_the_drift_statistic_after_it(client: TestClien
                     json={"samples": [{"x": float(a), "y": float(b)} for a, b in zip(x, y, strict=True)]})
     assert r.status_code == 200
     stored = client.get("/v1/channels/site-a.stat/samples?limit=1000", headers=admin).json()["items"]
-    model = ChannelModel.from_config({"id": "site-a.stat", **LINEAR})
+    model = model_of({"id": "site-a.stat", **LINEAR})
     expected = model.learn(x, y).drift_statistic.tolist()
     assert [s["drift_statistic"] for s in stored] == expected

@@ -25,11 +25,17 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from curvekeeper.channel_config import NormalizedSchedule, channel_config
 from curvekeeper.core import ChannelModel
-from curvekeeper.core.config import SCHEDULE_DEFAULTS
 
 from . import report
 from .report import Table
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 LO, HI = 0.0, 100.0  # declared input range, raw units
 NOISE_SD = 0.01  # s.d. of the reference noise, output units
@@ -44,7 +50,7 @@ PLAN: dict[str, dict[str, int]] = {
     "full": {"n": 100_000, "n_sk": 2_000, "reps": 7, "peer_reps": 3, "singles": 2_000, "pred": 10_000},
 }
 
-# our learners, schedule settings at their defaults (service/curvekeeper/core/config.py)
+# our learners, schedule settings at their defaults (service/curvekeeper/channel_config.py)
 OURS: dict[str, dict[str, Any]] = {
     "sgd normalized": {"kind": "sgd", "schedule": {"kind": "normalized"}},
     "sgd constant": {"kind": "sgd", "schedule": {"kind": "constant"}},
@@ -54,7 +60,7 @@ OURS: dict[str, dict[str, Any]] = {
     "rls, forgetting 1": {"kind": "rls", "forgetting": 1.0},
 }
 RLS_FORGET, RLS_P0 = 0.999, 1e3  # our rls defaults, also given to the numpy RLS loop
-MU = SCHEDULE_DEFAULTS["normalized"]["mu"]  # peers' LMS rate: the average step of our default
+MU = NormalizedSchedule().mu  # peers' LMS rate: the average step of our default
 
 
 def truth(x: np.ndarray) -> np.ndarray:
@@ -209,14 +215,14 @@ def run(size: str, out: Path) -> dict[str, Any]:
     acc: dict[tuple[str, int], float] = {}
     rates: list[str] = []
     for M in MS:
-        probe = ChannelModel.from_config(config(M, OURS["rls"]))
+        probe = model_of(config(M, OURS["rls"]))
         Phi, G = probe.basis.expand(X), probe.basis.expand(GRID.reshape(-1, 1))
         f_opt = G @ np.linalg.lstsq(Phi, y, rcond=None)[0]
         jobs: dict[str, Job] = {}
         for name, learner in OURS.items():
             cfg = config(M, learner)
-            ChannelModel.from_config(cfg).learn(X[:10], y[:10])  # compile or load the compiled loop
-            jobs[name] = (lambda cfg=cfg: ChannelModel.from_config(cfg), lambda m: m.learn(X, y), p["reps"])
+            model_of(cfg).learn(X[:10], y[:10])  # compile or load the compiled loop
+            jobs[name] = (lambda cfg=cfg: model_of(cfg), lambda m: m.learn(X, y), p["reps"])
         peer_list = peers(Phi, y, G, p["n_sk"])
         for peer in peer_list:
             one_call = peer.name.startswith("numpy lstsq")  # one cheap call: more repeats
@@ -227,7 +233,7 @@ def run(size: str, out: Path) -> dict[str, Any]:
         for name in OURS:
             sec, model = timed_jobs[name]
             rows.append((f"ours {name}", n, sec / n * 1e6, model.predict(GRID)[0], name.startswith("rls")))
-            sec1 = one_at_a_time(ChannelModel.from_config(config(M, OURS[name])), X, y, p["singles"])
+            sec1 = one_at_a_time(model_of(config(M, OURS[name])), X, y, p["singles"])
             singles.add(name, M, sec1 * 1e6, sec1 / (sec / n))
         for peer in peer_list:
             sec, model = timed_jobs[peer.name]
@@ -247,7 +253,7 @@ def run(size: str, out: Path) -> dict[str, Any]:
                   f"{p['pred']:,} values, BLAS 1 thread (ms)"])
     for M in MS:
         for name in ("sgd normalized", "rls"):
-            m = ChannelModel.from_config(config(M, OURS[name]))
+            m = model_of(config(M, OURS[name]))
             m.learn(X, y)
             batch = GRID[np.arange(p["pred"]) % GRID.size]
             one = GRID[:1]

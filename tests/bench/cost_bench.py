@@ -3,7 +3,7 @@ number of samples N.
 
 - Per-sample cost of one ``learn()`` call over a stream of fixed length, for ``sgd``
   (expected O(M)) and ``rls`` (expected O(M^2)). A poly basis allows at most degree 15
-  (M = 16, service/curvekeeper/core/config.py), so the curve is also measured with an rbf basis of M
+  (M = 16, service/curvekeeper/channel_config.py), so the curve is also measured with an rbf basis of M
   centres (no intercept), which allows M up to 64 (measured up to 64 in the full run); the
   power laws are fitted over all M and over M >= 8 (the per-sample cost includes a fixed
   overhead that flattens the small-M end), and as a + b M^p to separate the overhead.
@@ -28,11 +28,18 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 
 from . import report
 from .core_bench import Job, interleaved
 from .report import Table
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 LO, HI = 0.0, 100.0  # declared input range, raw units
 MAX_POLY_M = 16  # degree 15 is the largest a poly basis allows
@@ -77,7 +84,7 @@ def config(m: int, kind: str, learner: str) -> dict[str, Any]:
 
 
 def new_model(cfg: dict[str, Any]) -> Callable[[], ChannelModel]:
-    return lambda: ChannelModel.from_config(cfg)
+    return lambda: model_of(cfg)
 
 
 def blas_threads(cases: tuple[tuple[int, int], ...], x: np.ndarray, y: np.ndarray,
@@ -91,7 +98,7 @@ def blas_threads(cases: tuple[tuple[int, int], ...], x: np.ndarray, y: np.ndarra
     for _ in range(max(1, repeats)):
         for N, M in cases:
             for one in (False, True):
-                m = ChannelModel.from_config(config(M, "poly", "sgd"))
+                m = model_of(config(M, "poly", "sgd"))
                 with controller.limit(limits=1) if one else contextlib.nullcontext():
                     t0 = time.perf_counter()
                     m.fit_closed_form(x[:N], y[:N])
@@ -105,7 +112,7 @@ def run(size: str, out: Path) -> dict[str, Any]:
     n = p["n"]
     x, y = stream(n)
     for learner in LEARNERS:  # compile or load the compiled loop
-        ChannelModel.from_config(config(4, "poly", learner)).learn(x[:10], y[:10])
+        model_of(config(4, "poly", learner)).learn(x[:10], y[:10])
 
     # per-sample learning cost against M --------------------------------------------------
     X = x.reshape(-1, 1)

@@ -53,8 +53,8 @@ from typing import Any
 
 import numpy as np
 import pytest
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core import drift
-from curvekeeper.core.config import normalize_config
 from scipy import integrate
 from scipy.stats import norm
 
@@ -73,7 +73,7 @@ def params(detector: str, **kw: Any) -> tuple[int, np.ndarray]:
 def fleet_cfg(detector: str) -> dict[str, Any]:
     """The drift config a channel gets when it only names the detector."""
     body = {"inputs": [{"name": "x", "min": 0.0, "max": 1.0}], "drift": {"detector": detector}}
-    return normalize_config(body)["drift"]
+    return channel_config(body)["drift"]
 
 
 def fleet_params(detector: str) -> tuple[int, np.ndarray]:
@@ -428,9 +428,9 @@ def test_page_hinkley_shift_arl_siegmund(shift: float) -> None:
 
 
 def test_fleet_defaults_are_the_documented_ones() -> None:
-    """normalize_config fills in DETECTOR_DEFAULTS, clip 4, page_hinkley by default."""
+    """The channel declaration fills in DETECTOR_DEFAULTS, clip 4, page_hinkley by default."""
     body = {"inputs": [{"name": "x", "min": 0.0, "max": 1.0}]}
-    assert normalize_config(body)["drift"]["detector"] == "page_hinkley"
+    assert channel_config(body)["drift"]["detector"] == "page_hinkley"
     for d in FLEET:
         cfg = fleet_cfg(d)
         for key, value in drift.DETECTOR_DEFAULTS[d].items():

@@ -11,10 +11,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.core import jit as jit_module
 from curvekeeper.core.jit import kernel_cache_dir, source_key, specializations
-from curvekeeper.core.warmup import build_kernels
+from curvekeeper.kernels import warm_kernels
 
 PACKAGE = Path(jit_module.__file__).parents[1]
 
@@ -35,10 +36,11 @@ CHANNELS: list[dict[str, Any]] = [
 
 
 def test_after_the_warm_up_no_channel_path_compiles() -> None:
-    build_kernels()
+    warm_kernels()
     built = specializations()
     rng = np.random.default_rng(3)
-    for cfg in CHANNELS:
+    for body in CHANNELS:
+        cfg = channel_config(body)
         d = len(cfg["inputs"])
         lo = cfg["inputs"][0]["min"]
         X = lo + rng.random((40, d))
@@ -49,9 +51,9 @@ def test_after_the_warm_up_no_channel_path_compiles() -> None:
         model.learn(X, y)
         model.fit_closed_form(X, y)
         model.learn(X[:1].tolist(), y[:1].tolist())
-        restored = ChannelModel.from_state(model.to_state())
+        restored = ChannelModel.from_state(cfg, model.to_state())
         restored.learn(X[:1], y[:1])
-        restored.with_settings({"learner": {"kind": "rls"}}).learn(X[:1], y[:1])
+        restored.with_settings(channel_config({**body, "learner": {"kind": "rls"}})).learn(X[:1], y[:1])
         restored.summary()
     assert built > 0 and specializations() == built
 
@@ -80,8 +82,9 @@ def test_the_source_key_follows_every_core_module(tmp_path: Path) -> None:
 # a drift statistic after the warm-up, through the compiled learning loop
 LEARN = """
 import numpy as np
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
-m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0.0, "max": 1.0}]})
+m = ChannelModel.from_config(channel_config({"inputs": [{"name": "raw", "min": 0.0, "max": 1.0}]}))
 x = np.linspace(0.0, 1.0, 40).reshape(-1, 1)
 r = m.learn(x, 1.0 + x[:, 0] + 0.01 * np.sin(np.arange(40.0)))
 print(repr(float(r.drift_statistic[-1])))

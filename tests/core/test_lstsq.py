@@ -20,11 +20,18 @@ from typing import Any
 import numpy as np
 import pytest
 import scipy.linalg
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core.errors import FitError
 from curvekeeper.core.lstsq import fit_least_squares
 from curvekeeper.core.model import ChannelModel
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 NIST_DIR = Path(__file__).resolve().parent.parent / "data" / "nist"
 EPS = float(np.finfo(np.float64).eps)
@@ -90,7 +97,7 @@ def fit_nist(record: dict[str, Any]) -> dict[str, Any]:
         for i in range(X.shape[1])
     ]
     basis = {"kind": "poly", "degree": record["degree"], "intercept": record["intercept"]}
-    model = ChannelModel.from_config({"inputs": inputs, "basis": basis})
+    model = model_of({"inputs": inputs, "basis": basis})
     return model.fit_closed_form(X, record["y"])
 
 
@@ -246,7 +253,7 @@ def test_channel_report_gives_none_without_degrees_of_freedom(seed: int, degree:
     # well-separated points inside [lo, lo + span]: one per cell of an even grid
     x = lo + span * (np.arange(M) + rng.uniform(0.25, 0.75, M)) / M
     y = rng.standard_normal(M)
-    model = ChannelModel.from_config({
+    model = model_of({
         "inputs": [{"name": "x", "min": lo, "max": lo + span}],
         "basis": {"kind": "poly", "degree": degree},
     })
@@ -291,7 +298,7 @@ def test_fewer_distinct_inputs_than_terms_raises_fit_error(
     if x.size < degree + 1:
         x = np.concatenate([x, np.full(degree + 1 - x.size, values[0])])
     rng.shuffle(x)
-    model = ChannelModel.from_config({
+    model = model_of({
         "inputs": [{"name": "x", "min": lo, "max": lo + span}],
         "basis": {"kind": "poly", "degree": degree},
     })
@@ -309,7 +316,7 @@ def test_fewer_points_than_terms_raises_fit_error(seed: int, M: int, data: st.Da
         fit_least_squares(rng.standard_normal((n, M)), rng.standard_normal(n), has_intercept=True)
     assert info.value.details == {"n": n, "terms": M}
     # the same through the channel facade: a degree M - 1 polynomial from n points
-    model = ChannelModel.from_config({
+    model = model_of({
         "inputs": [{"name": "x", "min": 0.0, "max": 1.0}],
         "basis": {"kind": "poly", "degree": M - 1},
     })

@@ -13,7 +13,15 @@ from typing import Any
 
 import numpy as np
 import pytest
-from curvekeeper.core import ChannelModel
+from curvekeeper.channel_config import channel_config
+from curvekeeper.core import ChannelModel, ConfigError, StateError
+from curvekeeper.core.learners import ST_SCALE
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 DATA = json.loads((Path(__file__).parents[1] / "data" / "standards.json").read_text())
 PT = DATA["iec60751_pt100"]
@@ -43,7 +51,7 @@ def quadratic_stream(seed: int, n: int = 2000) -> tuple[np.ndarray, np.ndarray]:
 def test_pt100_quadratic_fit_recovers_iec60751_constants() -> None:
     # source: IEC 60751, A = 3.9083e-3, B = -5.775e-7, R0 = 100 ohm
     t = np.linspace(PT["t_min_degC"], PT["t_max_degC"], 86)
-    m = ChannelModel.from_config({
+    m = model_of({
         "inputs": [{"name": "t", "unit": "degC", "min": 0, "max": 850}],
         "output": {"name": "resistance", "unit": "ohm"},
         "basis": {"kind": "poly", "degree": 2},
@@ -61,7 +69,7 @@ def test_pt100_quadratic_fit_recovers_iec60751_constants() -> None:
 def test_pt100_inverse_curve_within_0p01_degC() -> None:
     # temperature from resistance: a degree-5 Chebyshev curve over the IEC 60751 range
     t = np.linspace(0, 850, 86)
-    m = ChannelModel.from_config({
+    m = model_of({
         "inputs": [{"name": "r", "unit": "ohm", "min": 100.0, "max": 390.481125}],
         "output": {"name": "temperature", "unit": "degC"},
         "basis": {"kind": "poly", "degree": 5},
@@ -78,7 +86,7 @@ def test_pt100_inverse_curve_within_0p01_degC() -> None:
 # --- Steinhart-Hart ------------------------------------------------------------------
 
 def thermistor_channel() -> ChannelModel:
-    return ChannelModel.from_config({
+    return model_of({
         "inputs": [{"name": "raw", "unit": "ohm", "min": 300, "max": 40000}],
         "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
         "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
@@ -105,13 +113,13 @@ def test_steinhart_hart_coefficients_recovered_exactly() -> None:
 
 def test_rls_without_forgetting_equals_closed_form() -> None:
     x, y = quadratic_stream(3)
-    exact = ChannelModel.from_config(channel())
+    exact = model_of(channel())
     exact.fit_closed_form(x, y)
-    rls = ChannelModel.from_config(channel(learner={"kind": "rls", "forgetting": 1.0,
+    rls = model_of(channel(learner={"kind": "rls", "forgetting": 1.0,
                                                     "initial_covariance": 1e8}))
     rls.learn(x, y)
-    span = np.ptp(exact.curve_values(exact.s.w))
-    assert rls.max_curve_difference(exact.s.w) < 1e-6 * span
+    span = np.ptp(exact.curve_values(exact.weights))
+    assert rls.max_curve_difference(exact.weights) < 1e-6 * span
     # and numpy's least squares in raw units agrees with both
     ref = np.polynomial.polynomial.polyfit(x, y, 2)
     np.testing.assert_allclose(exact.raw_coefficients()["poly_coefficients"], ref, rtol=1e-9)
@@ -124,24 +132,24 @@ def test_rls_without_forgetting_equals_closed_form() -> None:
 ])
 def test_sgd_converges_to_closed_form_optimum(schedule: dict[str, Any]) -> None:
     x, y = quadratic_stream(4)
-    exact = ChannelModel.from_config(channel())
+    exact = model_of(channel())
     exact.fit_closed_form(x, y)
-    span = np.ptp(exact.curve_values(exact.s.w))
-    m = ChannelModel.from_config(channel(learner={"kind": "sgd", "schedule": schedule}))
+    span = np.ptp(exact.curve_values(exact.weights))
+    m = model_of(channel(learner={"kind": "sgd", "schedule": schedule}))
     rng = np.random.default_rng(5)
     for _ in range(10):
         idx = rng.permutation(x.size)
         m.learn(x[idx], y[idx])
-    assert m.max_curve_difference(exact.s.w) < 0.01 * span
+    assert m.max_curve_difference(exact.weights) < 0.01 * span
 
 
 @pytest.mark.parametrize("scale", [1e-3, 1e-1, 1.0, 1e3, 1e6])
 def test_normalized_sgd_is_stable_whatever_the_input_units(scale: float) -> None:
     x, y = quadratic_stream(6)
-    exact = ChannelModel.from_config(channel())
+    exact = model_of(channel())
     exact.fit_closed_form(x, y)
-    span = np.ptp(exact.curve_values(exact.s.w))
-    m = ChannelModel.from_config(channel(
+    span = np.ptp(exact.curve_values(exact.weights))
+    m = model_of(channel(
         inputs=[{"name": "raw", "min": -5.0 * scale, "max": 20.0 * scale}],
         learner={"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.1}}))
     rng = np.random.default_rng(7)
@@ -149,26 +157,26 @@ def test_normalized_sgd_is_stable_whatever_the_input_units(scale: float) -> None
         idx = rng.permutation(x.size)
         result = m.learn(x[idx] * scale, y[idx])
         assert all(s == "accepted" for s in result.status)
-    assert m.max_curve_difference(exact.s.w) < 0.01 * span
+    assert m.max_curve_difference(exact.weights) < 0.01 * span
 
 
 def test_sgd_step_matches_plain_lms_recursion() -> None:
     # an independent plain-numpy LMS loop on the same design matrix
     x, y = quadratic_stream(8, 300)
-    m = ChannelModel.from_config(channel(learner={"kind": "sgd",
+    m = model_of(channel(learner={"kind": "sgd",
                                                   "schedule": {"kind": "constant", "eta0": 0.05}}))
     Phi = m.basis.expand(x.reshape(-1, 1))
     w = np.zeros(3)
     for phi, target in zip(Phi, y, strict=True):
         w = w + 0.05 * (target - w @ phi) * phi
     m.learn(x, y)
-    np.testing.assert_allclose(m.s.w, w, rtol=1e-12)
+    np.testing.assert_allclose(m.weights, w, rtol=1e-12)
 
 
 def test_rls_matches_textbook_recursion_with_forgetting() -> None:
     x, y = quadratic_stream(9, 300)
     lam, p0 = 0.98, 100.0
-    m = ChannelModel.from_config(channel(learner={"kind": "rls", "forgetting": lam,
+    m = model_of(channel(learner={"kind": "rls", "forgetting": lam,
                                                   "initial_covariance": p0}))
     Phi = m.basis.expand(x.reshape(-1, 1))
     w, P = np.zeros(3), np.eye(3) * p0
@@ -177,7 +185,7 @@ def test_rls_matches_textbook_recursion_with_forgetting() -> None:
         w = w + k * (target - w @ phi)
         P = (P - np.outer(k, phi @ P)) / lam
     m.learn(x, y)
-    np.testing.assert_allclose(m.s.w, w, rtol=1e-9)
+    np.testing.assert_allclose(m.weights, w, rtol=1e-9)
     np.testing.assert_allclose(m.s.cov, P, rtol=1e-7, atol=1e-12)
 
 
@@ -188,7 +196,7 @@ def test_prediction_uncertainty_after_fit_is_the_regression_prediction_interval_
     rng = np.random.default_rng(10)
     x = rng.uniform(0, 100, 40)
     y = 2 + 0.5 * x + rng.normal(0, 0.3, 40)
-    m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 100}]})
+    m = model_of({"inputs": [{"name": "raw", "min": 0, "max": 100}]})
     rep = m.fit_closed_form(x, y)
     X = np.column_stack([np.ones_like(x), x])
     beta, *_ = np.linalg.lstsq(X, y, rcond=None)
@@ -211,7 +219,7 @@ def test_transformed_output_uncertainty_is_first_order_propagation() -> None:
     m.fit_closed_form(R, t)
     y, u = m.predict([5000.0])
     Phi = m.basis.expand(np.array([[5000.0]]))
-    z = float((Phi @ m.s.w)[0])
+    z = float((Phi @ m.weights)[0])
     s = m.residual_sd()
     assert s is not None
     uz = s * np.sqrt(1 + Phi[0] @ m.s.cov @ Phi[0])
@@ -224,22 +232,22 @@ def test_transformed_output_uncertainty_is_first_order_propagation() -> None:
 
 def test_outlier_gate_opens_after_warmup_and_rejects_without_learning() -> None:
     x, y = quadratic_stream(12, 200)
-    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m = model_of(channel(outlier_sd=6.0))
     early = m.learn([1.0], [1000.0])  # before the warm-up: learned
     assert early.status == ["accepted"]
-    m2 = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m2 = model_of(channel(outlier_sd=6.0))
     m2.learn(x, y)
-    w = m2.s.w.copy()
+    w = m2.weights.copy()
     res = m2.learn([1.0], [1000.0])
     assert res.status == ["outlier"]
-    assert np.array_equal(m2.s.w, w)
+    assert np.array_equal(m2.weights, w)
     assert m2.summary()["n_rejected"] == 1
     assert m2.summary()["n_samples"] == 201
 
 
 def test_lasting_step_is_flagged_even_though_the_gate_rejects_it() -> None:
     x, y = quadratic_stream(13, 500)
-    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m = model_of(channel(outlier_sd=6.0))
     m.learn(x, y)
     x2, y2 = quadratic_stream(14, 200)
     res = m.learn(x2, y2 + 5.0)  # about 100 residual s.d.
@@ -250,19 +258,19 @@ def test_lasting_step_is_flagged_even_though_the_gate_rejects_it() -> None:
 
 def test_divergence_guard_halves_an_unstable_step() -> None:
     x, y = quadratic_stream(15, 400)
-    m = ChannelModel.from_config(channel(learner={"kind": "sgd",
+    m = model_of(channel(learner={"kind": "sgd",
                                                   "schedule": {"kind": "constant", "eta0": 20.0}}))
     res = m.learn(x, y)
     guards = [e for e in res.events if e["kind"] == "guard"]
-    assert guards and np.isfinite(m.s.w).all()
-    assert m.s.st[1] == 0.5 ** len(guards)
+    assert guards and np.isfinite(m.weights).all()
+    assert m.s.st[ST_SCALE] == 0.5 ** len(guards)
     # once the step is small enough it learns: the last residuals are at the noise level
     assert np.nanstd(res.residuals[-100:]) < 0.2
 
 
 def test_tolerance_check_against_the_last_calibration() -> None:
     x, y = quadratic_stream(16, 500)
-    m = ChannelModel.from_config(channel(drift={"detector": "cusum", "tolerance": 0.5}))
+    m = model_of(channel(drift={"detector": "cusum", "tolerance": 0.5}))
     m.fit_closed_form(x, y)
     assert m.summary()["drift"]["tolerance_state"] == "ok"
     res = m.learn(*quadratic_stream(17, 300))
@@ -279,45 +287,110 @@ def test_tolerance_check_against_the_last_calibration() -> None:
 def test_state_round_trip_is_bit_for_bit() -> None:
     x, y = quadratic_stream(19, 600)
     for learner in ({"kind": "sgd"}, {"kind": "rls", "forgetting": 0.99}):
-        a = ChannelModel.from_config(channel(learner=learner, outlier_sd=6.0))
+        a = model_of(channel(learner=learner, outlier_sd=6.0))
         a.learn(x[:300], y[:300])
-        b = ChannelModel.from_state(json.loads(json.dumps(a.to_state())))
+        b = ChannelModel.from_state(a.config, json.loads(json.dumps(a.to_state())))
         assert b.to_state() == a.to_state()
         ra = a.learn(x[300:], y[300:])
         rb = b.learn(x[300:], y[300:])
-        assert a.s.w.tobytes() == b.s.w.tobytes()
+        assert a.weights.tobytes() == b.weights.tobytes()
         assert ra.residuals.tobytes() == rb.residuals.tobytes()
         assert a.to_state() == b.to_state()
 
 
 def test_batches_split_anywhere_give_the_same_state() -> None:
     x, y = quadratic_stream(20, 500)
-    whole = ChannelModel.from_config(channel(outlier_sd=6.0))
+    whole = model_of(channel(outlier_sd=6.0))
     whole.learn(x, y)
-    parts = ChannelModel.from_config(channel(outlier_sd=6.0))
+    parts = model_of(channel(outlier_sd=6.0))
     for a, b in [(0, 1), (1, 37), (37, 38), (38, 400), (400, 500)]:
         parts.learn(x[a:b], y[a:b])
     assert whole.to_state() == parts.to_state()
 
 
 def test_with_settings_keeps_the_learned_curve_and_refuses_the_basis() -> None:
-    from curvekeeper.core import ConfigError
-
     x, y = quadratic_stream(21, 300)
-    m = ChannelModel.from_config(channel())
+    m = model_of(channel())
     m.learn(x, y)
-    m2 = m.with_settings({"learner": {"kind": "rls"}, "drift": {"detector": "ewma"}})
-    assert np.array_equal(m2.s.w, m.s.w)
+    m2 = m.with_settings(channel_config({**m.config, "learner": {"kind": "rls"}, "drift": {"detector": "ewma"}}))
+    assert np.array_equal(m2.weights, m.weights)
     assert m2.config["learner"]["kind"] == "rls" and m2.s.cov is not None
     with pytest.raises(ConfigError) as err:
-        m.with_settings({"basis": {"kind": "poly", "degree": 3}})
+        m.with_settings(channel_config({**m.config, "basis": {"kind": "poly", "degree": 3}}))
     assert err.value.field == "immutable"
+
+
+def test_the_state_does_not_carry_the_config() -> None:
+    """The configuration is kept once (the channel's); a state is the learned values only,
+    and restoring it needs the configuration, which must fit it."""
+    x, y = quadratic_stream(23, 200)
+    m = model_of(channel(drift={"detector": "cusum", "tolerance": 0.5}))
+    m.learn(x, y)
+    state = json.loads(json.dumps(m.to_state()))
+    assert "config" not in state and state["format"] == 2
+    restored = ChannelModel.from_state(m.config, state)
+    assert restored.config == m.config and restored.to_state() == m.to_state()
+    with pytest.raises(StateError):  # 3 weights for a 4-term basis
+        ChannelModel.from_state(channel_config(channel(basis={"kind": "poly", "degree": 3})), state)
+    with pytest.raises(StateError):  # a state of the earlier format, config inside
+        ChannelModel.from_state(m.config, {**state, "format": 1, "config": m.config})
+
+
+def test_the_model_answers_by_name() -> None:
+    """Counts, drift and tolerance by name, equal to the summary and to the learn results."""
+    x, y = quadratic_stream(24, 400)
+    m = model_of(channel(outlier_sd=6.0, drift={"detector": "cusum", "tolerance": 0.05}))
+    m.fit_closed_form(x[:50], y[:50])
+    y2 = y.copy()
+    y2[100] += 10.0  # held back by the gate
+    y2[300:] += 0.2  # a step (4 s.d.) the detector alarms on and the curve follows
+    res = m.learn(x, y2)
+    assert m.n_samples == 400
+    assert m.n_accepted == res.accepted
+    assert m.n_rejected == sum(1 for s in res.status if s != "accepted") > 0
+    assert m.drift_state == res.drift_state[-1] == "alarm" and m.in_alarm
+    assert m.drift_statistic == res.drift_statistic[-1]
+    assert m.tolerance_state == "out_of_tolerance" and m.max_curve_change is not None
+    assert m.max_curve_change == m.max_curve_difference(m.s.w_ref)
+    assert m.warmed_up
+    s = m.summary()
+    assert (s["n_samples"], s["n_accepted"], s["n_rejected"], s["rmse"]) == (
+        m.n_samples, m.n_accepted, m.n_rejected, m.rmse)
+    assert s["drift"]["state"] == m.drift_state and s["drift"]["statistic"] == m.drift_statistic
+    with pytest.raises(ValueError):
+        m.weights[0] = 1.0  # read only: learning is the model's business
+
+
+@pytest.mark.parametrize("learner", [{"kind": "sgd"}, {"kind": "rls", "forgetting": 0.99}])
+@pytest.mark.parametrize("split", [0, 150, 301])
+def test_the_state_before_the_alarm_is_that_of_learning_up_to_it(learner: dict[str, Any], split: int) -> None:
+    """One pass keeps the state just before the sample that raised the drift alarm: equal to
+    the state of a model that learned only the samples before it (whatever the batches)."""
+    x, y = quadratic_stream(25, 600)
+    y = y.copy()
+    y[330:] += 1.5
+    body = channel(learner=learner, outlier_sd=None, drift={"detector": "page_hinkley", "tolerance": 0.2})
+    m = model_of(body)
+    m.fit_closed_form(x[:40], y[:40])
+    first = m.learn(x[:split], y[:split])
+    assert first.alarm_index is None and first.before_alarm is None
+    res = m.learn(x[split:], y[split:])
+    assert res.alarm_index is not None and res.before_alarm is not None
+    k = split + res.alarm_index  # the sample that raised the alarm
+    assert res.drift_state[res.alarm_index] == "alarm" and "alarm" not in res.drift_state[:res.alarm_index]
+    direct = model_of(body)
+    direct.fit_closed_form(x[:40], y[:40])
+    direct.learn(x[:k], y[:k])
+    assert res.before_alarm == direct.to_state()
+    assert res.before_alarm["n_samples"] == k
+    # no alarm is raised twice: it stays until the drift watch restarts
+    assert m.learn(x[:50], y[:50]).before_alarm is None
 
 
 def test_detectors_and_gate_wait_for_the_warmup() -> None:
     # the residual s.d. estimate needs 30 accepted samples before it standardises anything
     x, y = quadratic_stream(22, 60)
-    m = ChannelModel.from_config(channel(outlier_sd=6.0))
+    m = model_of(channel(outlier_sd=6.0))
     res = m.learn(x[:29], y[:29])
     assert np.all(res.drift_statistic == 0.0)
     assert not m.summary()["warmed_up"]

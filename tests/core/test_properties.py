@@ -8,9 +8,16 @@ import sys
 from typing import Any
 
 import numpy as np
+from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
+
+def model_of(body: dict[str, Any]) -> ChannelModel:
+    """A fresh model for a channel body, validated as the service validates it."""
+    return ChannelModel.from_config(channel_config(body))
+
 
 learners = st.sampled_from([
     {"kind": "sgd"},
@@ -37,7 +44,7 @@ def test_predictions_do_not_depend_on_input_units(seed: int, exponent: int,
     x, y = stream(seed, 300, 2.0, 9.0)
     models = []
     for scale in (1.0, c):
-        m = ChannelModel.from_config({"inputs": [{"name": "v", "min": 2.0 * scale, "max": 9.0 * scale}],
+        m = model_of({"inputs": [{"name": "v", "min": 2.0 * scale, "max": 9.0 * scale}],
                                       "basis": {"kind": "poly", "degree": 2}, "learner": learner})
         m.learn(x * scale, y)
         models.append((m, scale))
@@ -55,22 +62,22 @@ def test_predictions_do_not_depend_on_input_units(seed: int, exponent: int,
 def test_state_round_trips_through_json(seed: int, n: int, learner: dict[str, Any],
                                         detector: str) -> None:
     x, y = stream(seed, n, 0.0, 1.0)
-    m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 1}],
+    m = model_of({"inputs": [{"name": "raw", "min": 0, "max": 1}],
                                   "basis": {"kind": "poly", "degree": 3}, "learner": learner,
                                   "drift": {"detector": detector, "tolerance": 0.1}})
     m.learn(x, y)
     state = m.to_state()
     text = json.dumps(state, allow_nan=False)
-    restored = ChannelModel.from_state(json.loads(text))
+    restored = ChannelModel.from_state(m.config, json.loads(text))
     assert restored.to_state() == state
-    assert restored.s.w.tobytes() == m.s.w.tobytes()
+    assert restored.weights.tobytes() == m.weights.tobytes()
 
 
 @settings(max_examples=20, deadline=None)
 @given(seed=st.integers(0, 2**32 - 1), n=st.integers(0, 80), learner=learners)
 def test_learning_an_empty_batch_changes_nothing(seed: int, n: int, learner: dict[str, Any]) -> None:
     x, y = stream(seed, n, 0.0, 1.0)
-    m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 1}],
+    m = model_of({"inputs": [{"name": "raw", "min": 0, "max": 1}],
                                   "learner": learner})
     m.learn(x, y)
     before = m.to_state()

@@ -252,7 +252,7 @@ def test_containerfile_base_user_volume_and_settings() -> None:
 
 def test_containerfile_builds_the_kernels_into_the_cache_as_the_service_user(tmp_path: Path) -> None:
     steps = instructions()
-    warm = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "build_kernels" in rest]
+    warm = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "warm_kernels" in rest]
     assert len(warm) == 1, "one RUN step builds the compiled kernels"
     at = warm[0]
     installed = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "pip install" in rest]

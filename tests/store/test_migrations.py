@@ -2,18 +2,26 @@
 
 from __future__ import annotations
 
+import json
 import os
 import uuid
 from collections.abc import Iterator
+from datetime import UTC, datetime
 from pathlib import Path
 
+import numpy as np
 import pytest
+from alembic import command
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
+from curvekeeper.actions import channels
+from curvekeeper.actions.models import read_model
+from curvekeeper.channel_config import channel_config
+from curvekeeper.core import ChannelModel
 from curvekeeper.store import Store, migrate
 from curvekeeper.store.engine import make_engine
-from curvekeeper.store.tables import Base
-from sqlalchemy import create_engine, text
+from curvekeeper.store.tables import Base, Channel, ChannelState, Snapshot, UTCDateTime
+from sqlalchemy import JSON, Engine, column, create_engine, insert, select, table, text
 from sqlalchemy.engine import make_url
 
 
@@ -69,3 +77,71 @@ def test_tables_made_outside_the_migrations_are_refused(empty_url: str) -> None:
             migrate.prepare(engine)
     finally:
         engine.dispose()
+
+
+def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
+    """A store at 0003 keeps the config inside every model state (format 1); after 0004 the
+    channel row has it once, the states do not, a snapshot keeps its own in its column, and
+    the channel loads and learns as before. Downgrading puts it back."""
+    config = channel_config({"id": "site-a.p1", "inputs": [{"name": "raw", "min": 0, "max": 100}],
+                             "drift": {"detector": "cusum", "tolerance": 0.5}})
+    model = ChannelModel.from_config(config)
+    x = np.linspace(0.0, 100.0, 60)
+    model.learn(x, 2.0 * x + 1.0)
+    state = model.to_state()
+    old_state = {**state, "format": 1, "config": config}
+    snap_config = {**config, "description": "before a settings change"}
+    old_snap = {**state, "format": 1, "config": snap_config}
+    now = datetime.now(UTC)
+    engine = make_engine(empty_url)
+    try:
+        migrate.upgrade(engine, "0003")
+        snapshot_0003 = table("snapshot", column("pk"), column("channel_pk"), column("reason"), column("label"),
+                              column("model_state", JSON), column("version"), column("n_samples"),
+                              column("created_at", UTCDateTime))
+        with engine.begin() as conn:
+            conn.execute(insert(Channel.__table__).values(pk=1, id="site-a.p1", config=config, created_at=now))
+            conn.execute(insert(ChannelState.__table__).values(
+                channel_pk=1, model_state=old_state, version=60, n_samples=60, n_rejected=0, drift_state="ok",
+                tolerance_state=None, rmse=model.summary()["rmse"], last_sample_at=None, updated_at=now))
+            conn.execute(insert(snapshot_0003).values(pk=1, channel_pk=1, reason="manual", label=None,
+                                                      model_state=old_snap, version=60, n_samples=60,
+                                                      created_at=now))
+        migrate.upgrade(engine)
+        with engine.connect() as conn:
+            assert conn.execute(select(ChannelState.model_state)).scalar_one() == state
+            assert conn.execute(select(Channel.config)).scalar_one() == config
+            assert conn.execute(select(Snapshot.config, Snapshot.model_state)).one() == (snap_config, state)
+    finally:
+        engine.dispose()
+    store = Store(empty_url)
+    try:
+        with store.transaction(write=False) as repo:
+            got = channels.get(repo, "site-a.p1")
+            assert got["n_samples"] == 60 and got["drift"]["detector"] == "cusum"
+            assert got["rmse"] == model.summary()["rmse"]
+            st = repo.learning_state("site-a.p1", lock=False)
+            assert st is not None
+            loaded = read_model(repo, st)
+            assert loaded.to_state() == state and loaded.config == config
+            snap = repo.get_snapshot(1, 1)
+            assert snap is not None
+            assert ChannelModel.from_state(snap.config, snap.model_state).to_state() == state
+    finally:
+        store.dispose()
+    engine = make_engine(empty_url)
+    try:
+        _downgrade(engine, "0003")
+        with engine.connect() as conn:
+            states = [conn.execute(text(f"SELECT model_state FROM {t}")).scalar_one()
+                      for t in ("channel_state", "snapshot")]
+            assert [json.loads(s) if isinstance(s, str) else s for s in states] == [old_state, old_snap]
+    finally:
+        engine.dispose()
+
+
+def _downgrade(engine: Engine, revision: str) -> None:
+    cfg = migrate.alembic_config(engine)
+    with engine.begin() as conn:
+        cfg.attributes["connection"] = conn
+        command.downgrade(cfg, revision)

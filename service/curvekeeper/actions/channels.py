@@ -4,10 +4,13 @@ from __future__ import annotations
 
 from typing import Any
 
+from pydantic import ValidationError
 from sqlalchemy.exc import IntegrityError
 
+from ..channel_config import ChannelConfig
 from ..core import ChannelModel, ConfigError
-from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidRequest
+from ..core.config import MUTABLE
+from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
 from .models import read_model, save_model, summary_columns, write_model
@@ -41,15 +44,20 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
     return out
 
 
-def create(repo: Repository, body: dict[str, Any], key_id: str) -> dict[str, Any]:
+def validated(body: ChannelConfig | dict[str, Any]) -> dict[str, Any]:
+    """The channel configuration as the store keeps it; raises ``InvalidConfig`` naming the field."""
+    if isinstance(body, ChannelConfig):
+        return body.model_dump(mode="json")
     try:
-        model = ChannelModel.from_config(body)
-    except ConfigError as exc:
-        raise InvalidRequest(exc.message, details={"field": exc.field}) from exc
-    config = model.config
-    channel_id = config.get("id")
-    if not channel_id:
-        raise InvalidRequest("id is required", details={"field": "id"})
+        return ChannelConfig.model_validate(body).model_dump(mode="json")
+    except ValidationError as exc:
+        raise InvalidConfig.from_errors(exc.errors()) from exc
+
+
+def create(repo: Repository, body: ChannelConfig | dict[str, Any], key_id: str) -> dict[str, Any]:
+    config = validated(body)
+    model = ChannelModel.from_config(config)
+    channel_id = config["id"]
     if repo.get_channel(channel_id) is not None:
         raise ChannelExists(f"channel {channel_id!r} exists already")
     try:
@@ -77,26 +85,35 @@ def list_(repo: Repository, *, prefix: str | None, state: str | None, cursor: st
     return Page(items, nxt)
 
 
+def merge(config: dict[str, Any], changes: dict[str, Any]) -> dict[str, Any]:
+    """The settings after a PATCH: a learner of the same kind (or the same detector) is merged
+    field by field (a new schedule replaces the old one), another kind replaces it; other
+    fields are replaced."""
+    merged = {**config, **changes}
+    for section, kind_key in (("learner", "kind"), ("drift", "detector")):
+        new = changes.get(section)
+        if isinstance(new, dict):
+            old = config[section]
+            if new.get(kind_key, old[kind_key]) == old[kind_key]:
+                merged[section] = {**old, **new}
+    return merged
+
+
 def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: str) -> dict[str, Any]:
     ch, st = load(repo, channel_id, lock=True)
+    fixed = sorted(set(changes) - MUTABLE)
+    if fixed:
+        raise ImmutableField(f"{', '.join(fixed)} cannot change after creation; create a new channel",
+                             details={"fields": fixed})
     model = write_model(repo, st)
-    merged = dict(changes)
-    for section, kind_key in (("learner", "kind"), ("drift", "detector")):
-        if isinstance(changes.get(section), dict):
-            old = model.config[section]
-            new = changes[section]
-            if new.get(kind_key, old[kind_key]) == old[kind_key]:
-                base = {k: v for k, v in old.items() if k != "schedule"} if "schedule" in new else old
-                merged[section] = {**base, **new}
+    config = validated(merge(model.config, changes))
     try:
-        updated = model.with_settings(merged)
-    except ConfigError as exc:
-        if exc.field == "immutable":
-            raise ImmutableField(exc.message) from exc
-        raise InvalidRequest(exc.message, details={"field": exc.field}) from exc
+        updated = model.with_settings(config)
+    except ConfigError as exc:  # a setting outside MUTABLE differs after validation
+        raise ImmutableField(exc.message) from exc
     version = st.version + 1
-    repo.save_config(ch, updated.config)
+    repo.save_config(ch, config)
     save_model(repo, st, updated, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
-                         "key_id": key_id, "details": {"changes": changes, "config": updated.config}}])
+                         "key_id": key_id, "details": {"changes": changes, "config": config}}])
     return view(ch, st, updated)

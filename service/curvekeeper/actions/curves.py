@@ -34,7 +34,7 @@ def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple
     snap = repo.get_snapshot(st.channel_pk, snapshot)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
-    return ChannelModel.from_state(snap.model_state), snap.version
+    return ChannelModel.from_state(snap.config, snap.model_state), snap.version
 
 
 def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
@@ -79,7 +79,7 @@ def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
     summary = model.summary()
     out: dict[str, Any] = {
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
-        "weights": model.s.w.tolist(), "k": k, "points": pts,
+        "weights": model.weights.tolist(), "k": k, "points": pts,
         "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "version": st.version,
     }
     out.update(model.raw_coefficients())
@@ -127,10 +127,11 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
         report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False})
         return report
     version = st.version + 1
-    before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, model_state=before_state,
+    before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, config=ch.config,
+                                  model_state=before_state,
                                   version=st.version, n_samples=st.n_samples)
     state = model.to_state()
-    after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, model_state=state,
+    after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=ch.config, model_state=state,
                                  version=version, n_samples=st.n_samples)
     save_model(repo, st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,

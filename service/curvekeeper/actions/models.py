@@ -21,7 +21,7 @@ def read_model(repo: Repository, st: ChannelState | LearningState) -> ChannelMod
     """The channel's current model, shared: read it, never change it."""
     model: ChannelModel | None = repo.cache.get(st.channel_pk, st.version)
     if model is None:
-        model = ChannelModel.from_state(repo.model_state(st.channel_pk))
+        model = ChannelModel.from_state(*repo.config_and_state(st.channel_pk))
         repo.cache.put(st.channel_pk, st.version, model)
     return model
 

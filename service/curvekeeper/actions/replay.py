@@ -66,7 +66,7 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
         snap = repo.get_snapshot(ch.pk, from_snapshot)
         if snap is None:
             raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {from_snapshot}")
-        model = ChannelModel.from_state(snap.model_state)
+        model = ChannelModel.from_state(snap.config, snap.model_state)
         version, seq = snap.version, snap.n_samples
     else:
         created = repo.first_event(ch.pk, "channel_created")
@@ -108,6 +108,8 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
     if check:
         stored = repo.model_state(ch.pk)
         report.mismatches = status_mismatches + _differences(stored, report.state)
+        if model.config != ch.config:
+            report.mismatches.append("config differs: the stored channel config is not the one the log gives")
         report.matches = not report.mismatches
     return report
 
@@ -137,12 +139,12 @@ def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, de
         return model
     if kind == "settings_changed":
         cfg = details["config"]
-        return model.with_settings({k: cfg[k] for k in MUTABLE if k in cfg})
+        return model.with_settings({**model.config, **{k: cfg[k] for k in MUTABLE if k in cfg}})
     if kind == "rollback":
         snap = repo.get_snapshot(channel_pk, details["snapshot"])
         if snap is None:
             raise SnapshotNotFound(f"the log names snapshot {details['snapshot']}, which is missing")
-        restored = ChannelModel.from_state(snap.model_state)
+        restored = ChannelModel.from_state(snap.config, snap.model_state)
         restored.set_reference()
         restored.reset_drift()
         return restored

@@ -10,7 +10,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from ..core import ChannelModel, InputError, LearnResult
+from ..core import InputError, LearnResult
 from ..errors import ChannelNotFound, InvalidRequest
 from ..store import Repository
 from ..store.repository import LearningState, SampleRows
@@ -54,32 +54,6 @@ class ChannelOutcome:
     n_samples: int
     drift: dict[str, Any]
     alarms: int = 0
-
-
-def _learn_with_alarm_snapshot(model: ChannelModel, X: np.ndarray, y: np.ndarray
-                               ) -> tuple[ChannelModel, LearnResult, list[tuple[int, dict[str, Any]]]]:
-    """Learn a segment; when it raises a drift alarm, keep the state from just before the
-    sample that raised it (the last curve not yet pulled by the drift)."""
-    pre = model.copy() if model.s.ds[4] < 2 else None
-    res = model.learn(X, y)
-    alarm = next((e["index"] for e in res.events if e["kind"] == "drift_alarm"), None)
-    if pre is None or alarm is None:
-        return model, res, []
-    # learning is deterministic and split-invariant: redo the segment in two parts
-    again = pre
-    first = again.learn(X[:alarm], y[:alarm])
-    snap = again.to_state()
-    second = again.learn(X[alarm:], y[alarm:])
-    for e in second.events:
-        e["index"] += alarm
-    merged = LearnResult(
-        np.concatenate([first.residuals, second.residuals]),
-        first.status + second.status,
-        first.drift_state + second.drift_state,
-        np.concatenate([first.drift_statistic, second.drift_statistic]),
-        first.events + second.events,
-    )
-    return again, merged, [(alarm, snap)]
 
 
 def _wrong_inputs(i: int, d: int) -> InvalidRequest:
@@ -130,11 +104,13 @@ def ingest_channel(repo: Repository, st: LearningState, samples: Sequence[Sample
     snaps: list[tuple[int, str, dict[str, Any]]] = []
     try:
         for a, b in zip(bounds, bounds[1:], strict=False):
-            model, res, alarm_snaps = _learn_with_alarm_snapshot(model, X[a:b], y[a:b])
+            res = model.learn(X[a:b], y[a:b])
+            if res.alarm_index is not None and res.before_alarm is not None:
+                # the state just before the alarm: the last curve not yet pulled by the drift
+                snaps.append((a + res.alarm_index, "drift-alarm", res.before_alarm))
             for e in res.events:
                 e["index"] += a
             results.append(res)
-            snaps.extend((a + k, "drift-alarm", s) for k, s in alarm_snaps)
             if b in cuts:
                 snaps.append((b, "periodic", model.to_state()))
     except InputError as exc:
@@ -156,8 +132,8 @@ def ingest_channel(repo: Repository, st: LearningState, samples: Sequence[Sample
         x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats, status=status))
     event_rows = []
     for k, kind, state in snaps:
-        snap = repo.insert_snapshot(st.channel_pk, reason=kind, label=None, model_state=state, version=v0 + k,
-                                    n_samples=n0 + k)
+        snap = repo.insert_snapshot(st.channel_pk, reason=kind, label=None, config=model.config, model_state=state,
+                                    version=v0 + k, n_samples=n0 + k)
         if kind == "drift-alarm":
             event_rows.append({"channel_pk": st.channel_pk, "kind": "snapshot", "version": v0 + k, "key_id": key_id,
                                "details": {"snapshot": snap.pk, "reason": kind}})

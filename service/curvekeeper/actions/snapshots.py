@@ -22,8 +22,8 @@ def _item(snap: Snapshot) -> dict[str, Any]:
 
 def take(repo: Repository, channel_id: str, label: str | None, key_id: str | None) -> dict[str, Any]:
     ch, st = load(repo, channel_id, lock=True)
-    snap = repo.insert_snapshot(ch.pk, reason="manual", label=label, model_state=repo.model_state(ch.pk),
-                                version=st.version, n_samples=st.n_samples)
+    snap = repo.insert_snapshot(ch.pk, reason="manual", label=label, config=ch.config,
+                                model_state=repo.model_state(ch.pk), version=st.version, n_samples=st.n_samples)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "snapshot", "version": st.version, "key_id": key_id,
                          "details": {"snapshot": snap.pk, "reason": "manual", "label": label}}])
     return _item(snap)
@@ -42,14 +42,14 @@ def get(repo: Repository, channel_id: str, snapshot_id: int) -> dict[str, Any]:
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
     current = read_model(repo, st)
-    old = ChannelModel.from_state(snap.model_state)
+    old = ChannelModel.from_state(snap.config, snap.model_state)
     summary = old.summary()
     out = _item(snap)
     out.update({
-        "weights": old.s.w.tolist(), "basis": old.config["basis"], "rmse": summary["rmse"],
+        "weights": old.weights.tolist(), "basis": old.config["basis"], "rmse": summary["rmse"],
         "drift": summary["drift"], "config": old.config,
-        "max_difference_from_current": current.max_curve_difference(np.asarray(old.s.w))
-        if old.s.w.shape == current.s.w.shape else None,
+        "max_difference_from_current": current.max_curve_difference(np.asarray(old.weights))
+        if old.weights.shape == current.weights.shape else None,
     })
     out.update(old.raw_coefficients())
     return out
@@ -63,13 +63,14 @@ def rollback(repo: Repository, channel_id: str, snapshot_id: int, key_id: str | 
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
     before = repo.insert_snapshot(ch.pk, reason="before-rollback", label=f"before rollback to {snapshot_id}",
-                                  model_state=repo.model_state(ch.pk), version=st.version,
+                                  config=ch.config, model_state=repo.model_state(ch.pk), version=st.version,
                                   n_samples=st.n_samples)
-    model = ChannelModel.from_state(snap.model_state)
+    model = ChannelModel.from_state(snap.config, snap.model_state)
     model.set_reference()
     model.reset_drift()
     version = st.version + 1
-    repo.save_config(ch, model.config)
+    if model.config != ch.config:  # the settings it was taken under come back with it
+        repo.save_config(ch, model.config)
     save_model(repo, st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk}}])

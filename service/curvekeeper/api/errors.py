@@ -25,6 +25,8 @@ from ..errors import (
     StoreBusy,
     StoredStateDamaged,
     Unauthorized,
+    validation_details,
+    validation_message,
 )
 from .deps import lookup_key
 
@@ -54,14 +56,6 @@ def error_body(code: str, message: str, details: Any = None) -> dict[str, Any]:
 def error_response(status: int, code: str, message: str, details: Any = None,
                    headers: dict[str, str] | None = None) -> JSONResponse:
     return JSONResponse(error_body(code, message, details), status_code=status, headers=headers)
-
-
-def _clean(errors: list[Any]) -> list[dict[str, Any]]:
-    out = []
-    for e in errors:
-        out.append({"loc": [str(p) for p in e.get("loc", ())], "msg": str(e.get("msg", "")),
-                    "type": str(e.get("type", ""))})
-    return out
 
 
 def _leaf_routes(routes: Any) -> list[Any]:
@@ -101,12 +95,10 @@ def install(app: FastAPI) -> None:
                 await run_in_threadpool(lookup_key, request.app.state.ctx, request.headers.get("authorization"))
             except ServiceError as denied:
                 return error_response(status_of(denied), denied.code, denied.message, denied.details)
-        errors = _clean(list(exc.errors()))
+        errors = validation_details(exc.errors())
         if any(e["type"] == "json_invalid" for e in errors):
             return error_response(400, "malformed_json", "the request body is not valid JSON", errors)
-        first = errors[0] if errors else {"loc": [], "msg": "invalid request"}
-        where = ".".join(p for p in first["loc"] if p != "body") or "request"
-        return error_response(422, "validation_error", f"{where}: {first['msg']}", errors)
+        return error_response(422, "validation_error", validation_message(errors), errors)
 
     @app.exception_handler(HTTPException)
     async def _http(request: Request, exc: HTTPException) -> JSONResponse:

@@ -3,7 +3,6 @@
 Its public face is ``ChannelModel``; errors are in ``curvekeeper.core.errors``.
 """
 
-from .config import normalize_config
 from .errors import ConfigError, CoreError, FitError, InputError, StateError
 from .model import ChannelModel, LearnResult
 
@@ -15,5 +14,4 @@ __all__ = [
     "InputError",
     "LearnResult",
     "StateError",
-    "normalize_config",
 ]

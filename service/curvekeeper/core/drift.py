@@ -58,9 +58,13 @@ DETECTOR_DEFAULTS: dict[str, dict[str, Any]] = {
     "ewma": {"lambda": 0.05, "warning": 3.0, "alarm": 4.4, "clip": 4.0},
 }
 
-# layout of the parameter vector dp and the state vector ds
-DP_SIZE = 5  # reference (k, delta or lambda), warning, alarm, clip, mean alpha
-DS_SIZE = 5  # a (S+ / g+ / e), b (S- / g-), running mean, n seen, state code
+# layout of the parameter vector dp: reference (k, delta or lambda), thresholds, clip, mean alpha
+DP_REF, DP_WARNING, DP_ALARM, DP_CLIP, DP_ALPHA = range(5)
+DP_SIZE = 5
+# layout of the state vector ds: a (S+ / g+ / e), b (S- / g-), running mean, n seen, state code
+DS_A, DS_B, DS_MEAN, DS_N, DS_STATE = range(5)
+DS_SIZE = 5
+OK, WARNING, ALARM = range(3)  # state codes, the index into STATES
 
 
 def detector_params(cfg: dict[str, Any]) -> tuple[int, NDArray[np.float64]]:
@@ -68,15 +72,15 @@ def detector_params(cfg: dict[str, Any]) -> tuple[int, NDArray[np.float64]]:
     kind = cfg["detector"]
     dp = np.zeros(DP_SIZE)
     if kind == "cusum":
-        dp[0] = cfg["k"]
+        dp[DP_REF] = cfg["k"]
     elif kind == "page_hinkley":
-        dp[0] = cfg["delta"]
-        dp[4] = 1.0 / cfg["mean_window"]
+        dp[DP_REF] = cfg["delta"]
+        dp[DP_ALPHA] = 1.0 / cfg["mean_window"]
     else:
-        dp[0] = cfg["lambda"]
-    dp[1] = cfg["warning"]
-    dp[2] = cfg["alarm"]
-    dp[3] = cfg["clip"]
+        dp[DP_REF] = cfg["lambda"]
+    dp[DP_WARNING] = cfg["warning"]
+    dp[DP_ALARM] = cfg["alarm"]
+    dp[DP_CLIP] = cfg["clip"]
     return DETECTORS[kind], dp
 
 
@@ -87,43 +91,43 @@ def new_detector_state() -> NDArray[np.float64]:
 @kernel
 def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
     """One standardised residual z into the detector; returns the statistic."""
-    clip = dp[3]
+    clip = dp[DP_CLIP]
     if clip > 0.0:
         if z > clip:
             z = clip
         elif z < -clip:
             z = -clip
-    ds[3] += 1.0
+    ds[DS_N] += 1.0
     if kind == 1:
-        k = dp[0]
-        a = ds[0] + z - k
-        b = ds[1] - z - k
-        ds[0] = a if a > 0.0 else 0.0
-        ds[1] = b if b > 0.0 else 0.0
-        stat = float(ds[0] if ds[0] > ds[1] else ds[1])
+        k = dp[DP_REF]
+        a = ds[DS_A] + z - k
+        b = ds[DS_B] - z - k
+        ds[DS_A] = a if a > 0.0 else 0.0
+        ds[DS_B] = b if b > 0.0 else 0.0
+        stat = float(ds[DS_A] if ds[DS_A] > ds[DS_B] else ds[DS_B])
     elif kind == 0:
-        delta = dp[0]
-        dev = z - ds[2]
-        a = ds[0] + dev - delta
-        b = ds[1] - dev - delta
-        ds[0] = a if a > 0.0 else 0.0
-        ds[1] = b if b > 0.0 else 0.0
-        alpha = 1.0 / ds[3]
-        if alpha < dp[4]:
-            alpha = dp[4]
-        ds[2] += alpha * (z - ds[2])
-        stat = float(ds[0] if ds[0] > ds[1] else ds[1])
+        delta = dp[DP_REF]
+        dev = z - ds[DS_MEAN]
+        a = ds[DS_A] + dev - delta
+        b = ds[DS_B] - dev - delta
+        ds[DS_A] = a if a > 0.0 else 0.0
+        ds[DS_B] = b if b > 0.0 else 0.0
+        alpha = 1.0 / ds[DS_N]
+        if alpha < dp[DP_ALPHA]:
+            alpha = dp[DP_ALPHA]
+        ds[DS_MEAN] += alpha * (z - ds[DS_MEAN])
+        stat = float(ds[DS_A] if ds[DS_A] > ds[DS_B] else ds[DS_B])
     else:
-        lam = dp[0]
-        ds[0] = lam * z + (1.0 - lam) * ds[0]
-        stat = float(abs(ds[0]) / np.sqrt(lam / (2.0 - lam)))
-    if ds[4] < 2.0:
-        if stat > dp[2]:
-            ds[4] = 2.0
-        elif stat > dp[1]:
-            ds[4] = 1.0
+        lam = dp[DP_REF]
+        ds[DS_A] = lam * z + (1.0 - lam) * ds[DS_A]
+        stat = float(abs(ds[DS_A]) / np.sqrt(lam / (2.0 - lam)))
+    if ds[DS_STATE] < ALARM:
+        if stat > dp[DP_ALARM]:
+            ds[DS_STATE] = ALARM
+        elif stat > dp[DP_WARNING]:
+            ds[DS_STATE] = WARNING
         else:
-            ds[4] = 0.0
+            ds[DS_STATE] = OK
     return stat
 
 
@@ -131,8 +135,8 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
 def detector_statistic(kind: int, dp: Any, ds: Any) -> float:
     """The current statistic of a detector state, without an update."""
     if kind == 2:
-        return float(abs(ds[0]) / np.sqrt(dp[0] / (2.0 - dp[0])))
-    return float(ds[0] if ds[0] > ds[1] else ds[1])
+        return float(abs(ds[DS_A]) / np.sqrt(dp[DP_REF] / (2.0 - dp[DP_REF])))
+    return float(ds[DS_A] if ds[DS_A] > ds[DS_B] else ds[DS_B])
 
 
 @kernel
@@ -151,15 +155,15 @@ def run_lengths(kind: int, dp: Any, z: Any, level: int, max_runs: int) -> Any:
     for i in range(z.shape[0]):
         detector_update(kind, dp, ds, z[i])
         length += 1
-        if ds[4] >= level:
+        if ds[DS_STATE] >= level:
             out[count] = length
             count += 1
             if count == max_runs:
                 return out[:count], 0
             length = 0
-            ds[0] = 0.0
-            ds[1] = 0.0
-            ds[4] = 0.0
+            ds[DS_A] = 0.0
+            ds[DS_B] = 0.0
+            ds[DS_STATE] = OK
     return out[:count], length
 
 
@@ -169,6 +173,6 @@ def first_reach(kind: int, dp: Any, ds: Any, z: Any, level: int) -> int:
     >= ``level``, or -1."""
     for i in range(z.shape[0]):
         detector_update(kind, dp, ds, z[i])
-        if ds[4] >= level:
+        if ds[DS_STATE] >= level:
             return i
     return -1

@@ -32,7 +32,7 @@ from typing import Any
 
 import numpy as np
 
-from .drift import detector_statistic, detector_update
+from .drift import ALARM, DS_SIZE, DS_STATE, detector_statistic, detector_update
 from .jit import kernel
 from .schedules import eta_at
 
@@ -132,17 +132,26 @@ def learn_batch(
     ip: Any, sp: Any, lp: Any, dp: Any,
     st: Any, ds: Any,
     out_r: Any, out_status: Any, out_state: Any, out_stat: Any,
-) -> None:
+) -> Any:
     """Learn from the rows of Phi (n, M) in order, updating w, P, st, ds in place.
 
     z : (n,) references in the transformed space; y : (n,) in output units.
     out_r : (n,) prior residuals in output units (NaN where the curve cannot be inverted);
     out_status : (n,) ACCEPTED / OUTLIER / GUARD; out_state, out_stat : drift state and
     statistic after each sample.
+
+    Returns (k, w, P, st, ds): k the index of the sample that raised the drift alarm (-1:
+    none), and copies of the state just before that sample (empty arrays when k is -1).
     """
     n, M = Phi.shape
     wn = np.empty(M)
     Pphi = np.empty(M)
+    ds_before = np.empty(DS_SIZE)
+    alarm_at = -1
+    snap_w = np.empty(0)
+    snap_P = np.empty((0, 0))
+    snap_st = np.empty(0)
+    snap_ds = np.empty(0)
     learner = ip[IP_LEARNER]
     sk = ip[IP_SCHEDULE]
     tcode = ip[IP_TRANSFORM]
@@ -161,10 +170,17 @@ def learn_batch(
         s = math.sqrt(st[ST_RVAR])
         warm = st[ST_RN] >= warmup and s > 0.0
         if warm:
+            watching = ds[DS_STATE] < ALARM
+            if watching:
+                ds_before[:] = ds
             out_stat[i] = detector_update(dk, dp, ds, r / s)
+            if watching and ds[DS_STATE] == ALARM:
+                # w, P and st are still those before this sample: the step comes below
+                alarm_at = i
+                snap_w, snap_P, snap_st, snap_ds = w.copy(), P.copy(), st.copy(), ds_before.copy()
         else:
             out_stat[i] = detector_statistic(dk, dp, ds)
-        out_state[i] = int(ds[4])
+        out_state[i] = int(ds[DS_STATE])
         if warm and outlier > 0.0 and abs(r) > outlier * s:
             out_status[i] = OUTLIER
             st[ST_REJ] += 1.0
@@ -197,3 +213,4 @@ def learn_batch(
             if alpha < alpha_min:
                 alpha = alpha_min
             st[ST_OMS] += alpha * (ro * ro - st[ST_OMS])
+    return alarm_at, snap_w, snap_P, snap_st, snap_ds

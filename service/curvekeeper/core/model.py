@@ -1,6 +1,7 @@
 """``ChannelModel``: one channel's calibration curve, its learner, drift watch and guards.
 
->>> m = ChannelModel.from_config({"inputs": [{"name": "raw", "min": 0, "max": 1000}]})
+>>> from curvekeeper.channel_config import channel_config  # the service's validation
+>>> m = ChannelModel.from_config(channel_config({"inputs": [{"name": "raw", "min": 0, "max": 1000}]}))
 >>> report = m.fit_closed_form([0.0, 500.0, 1000.0], [1.0, 6.0, 11.0])
 >>> [round(c, 9) for c in report["poly_coefficients"]]
 [1.0, 0.01]
@@ -18,13 +19,17 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .basis import Basis, PolyBasis, make_basis
-from .config import normalize_config
-from .drift import STATES, detector_params, detector_statistic
-from .errors import ConfigError, InputError
+from .config import MUTABLE, Config
+from .drift import DS_STATE, STATES, detector_params, detector_statistic
+from .errors import ConfigError, InputError, StateError
 from .learners import (
     ACCEPTED,
     GUARD,
+    IP_DETECTOR,
+    IP_LEARNER,
+    IP_SCHEDULE,
     IP_SIZE,
+    IP_TRANSFORM,
     LEARNERS,
     LP_ALPHA,
     LP_FORGET,
@@ -35,10 +40,13 @@ from .learners import (
     LP_P0,
     LP_SIZE,
     LP_WARMUP,
+    ST_ACC,
     ST_FDOF,
     ST_FVAR,
+    ST_GUARD,
     ST_OMS,
     ST_ON,
+    ST_REJ,
     ST_RN,
     ST_RVAR,
     ST_SCALE,
@@ -58,21 +66,24 @@ WARMUP = 30  # accepted samples before the gate and the detectors start
 RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimate
 CURVE_GRID = 201  # points over the input range for curve comparisons
 
-# settings a channel may change after creation (PATCH); the rest fix the curve's form
-MUTABLE = {"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage_factor"}
+__all__ = ["MUTABLE", "ChannelModel", "LearnResult"]
 
 
 @dataclass
 class LearnResult:
     """Per-sample outcome of ``learn``, each (n,): prior residuals in output units
     (NaN where the curve cannot be inverted), status (``accepted`` / ``outlier`` /
-    ``guard``), drift state and statistic after the sample; plus events."""
+    ``guard``), drift state and statistic after the sample; plus events; and, when a
+    sample raised the drift alarm, its index and the model's state (``to_state`` form)
+    just before it."""
 
     residuals: Array
     status: list[str]
     drift_state: list[str]
     drift_statistic: Array
     events: list[dict[str, Any]] = field(default_factory=list)
+    alarm_index: int | None = None
+    before_alarm: dict[str, Any] | None = None
 
     @property
     def accepted(self) -> int:
@@ -83,9 +94,11 @@ STATUS_NAMES = {ACCEPTED: "accepted", 1: "outlier", GUARD: "guard"}
 
 
 class ChannelModel:
-    """A channel's model; build it with ``from_config`` or ``from_state``."""
+    """A channel's model; build it with ``from_config`` or ``from_state``. ``config`` is
+    the channel's validated configuration (``curvekeeper.core.config``), fixed for the
+    model's life; the learned state is ``to_state()``."""
 
-    def __init__(self, config: dict[str, Any], state: ModelState) -> None:
+    def __init__(self, config: Config, state: ModelState) -> None:
         self.config = config
         self.scaler = InputScaler(config["inputs"])
         self.basis: Basis = make_basis(config["basis"], self.scaler)
@@ -97,9 +110,8 @@ class ChannelModel:
 
     # construction -------------------------------------------------------------
     @classmethod
-    def from_config(cls, cfg: dict[str, Any]) -> ChannelModel:
-        """A fresh model (zero weights) from a channel body; raises ``ConfigError``."""
-        config = normalize_config(cfg)
+    def from_config(cls, config: Config) -> ChannelModel:
+        """A fresh model (zero weights) for a validated channel configuration."""
         size = make_basis(config["basis"], InputScaler(config["inputs"])).size
         state = ModelState.fresh(size)
         if config["learner"]["kind"] == "rls":
@@ -107,10 +119,13 @@ class ChannelModel:
         return cls(config, state)
 
     @classmethod
-    def from_state(cls, state: dict[str, Any]) -> ChannelModel:
-        """Restore a model from ``to_state()``; raises ``StateError`` on a damaged state."""
-        ms = ModelState.from_dict(state)
-        return cls(normalize_config(state.get("config")), ms)
+    def from_state(cls, config: Config, state: dict[str, Any]) -> ChannelModel:
+        """Restore a model from its configuration and ``to_state()``; raises ``StateError``
+        on a damaged state or one that does not fit the configuration."""
+        model = cls(config, ModelState.from_dict(state))
+        if model.s.w.shape[0] != model.basis.size:
+            raise StateError(f"the state has {model.s.w.shape[0]} weights, the basis {model.basis.size}")
+        return model
 
     def copy(self) -> ChannelModel:
         """An independent copy of the learned state sharing the (immutable) settings."""
@@ -120,23 +135,24 @@ class ChannelModel:
         return other
 
     def to_state(self) -> dict[str, Any]:
-        """The whole model as JSON-safe plain types (config included)."""
-        return self.s.to_dict(self.config)
+        """The learned state as JSON-safe plain types (without the configuration)."""
+        return self.s.to_dict()
 
-    def with_settings(self, changes: dict[str, Any]) -> ChannelModel:
-        """A copy with changed learner / drift / guard settings and the same learned state.
+    def with_settings(self, config: Config) -> ChannelModel:
+        """A copy under a new validated configuration that differs only in ``MUTABLE``
+        settings (learner, drift, guards), with the same learned state; the drift watch
+        restarts when the drift settings change.
 
-        Raises ``ConfigError`` with field ``immutable`` for inputs, output or basis.
+        Raises ``ConfigError`` with field ``immutable`` when another setting differs.
         """
-        fixed = sorted(set(changes) - MUTABLE)
+        fixed = sorted(k for k in set(config) | set(self.config)
+                       if k not in MUTABLE and config.get(k) != self.config.get(k))
         if fixed:
             raise ConfigError(
                 f"{', '.join(fixed)} cannot change after creation; create a new channel",
                 field="immutable",
             )
-        merged = {**self.config, **changes}
-        config = normalize_config(merged)
-        state = ModelState.from_dict(self.to_state())
+        state = self.s.copy()
         if config["drift"] != self.config["drift"]:
             state.reset_detector()
         if config["learner"]["kind"] == "rls" and state.cov is None:
@@ -148,17 +164,17 @@ class ChannelModel:
         learner = cfg["learner"]
         self.ip = np.zeros(IP_SIZE, dtype=np.int64)
         self.lp = np.zeros(LP_SIZE)
-        self.ip[0] = LEARNERS[learner["kind"]]
+        self.ip[IP_LEARNER] = LEARNERS[learner["kind"]]
         if learner["kind"] == "sgd":
-            self.ip[1], self.sp = schedule_params(learner["schedule"])
+            self.ip[IP_SCHEDULE], self.sp = schedule_params(learner["schedule"])
             self.lp[LP_L2] = learner["l2"]
             self.lp[LP_HUBER] = learner["huber"] or 0.0
         else:
-            self.ip[1], self.sp = schedule_params({"kind": "constant"})
+            self.ip[IP_SCHEDULE], self.sp = schedule_params({"kind": "constant"})
             self.lp[LP_FORGET] = learner["forgetting"]
             self.lp[LP_P0] = learner["initial_covariance"]
-        self.ip[2] = self.transform.code
-        self.ip[3], self.dp = detector_params(cfg["drift"])
+        self.ip[IP_TRANSFORM] = self.transform.code
+        self.ip[IP_DETECTOR], self.dp = detector_params(cfg["drift"])
         self.lp[LP_OUTLIER] = cfg["outlier_sd"] or 0.0
         self.lp[LP_OFFSET] = self.transform.offset
         self.lp[LP_WARMUP] = WARMUP
@@ -183,25 +199,38 @@ class ChannelModel:
     def learn(self, X: Any, y: Any) -> LearnResult:
         """One step per row of X (n, d) raw inputs with references y (n,), in order.
 
-        Raises ``InputError`` (and changes nothing) when any sample is invalid.
+        Raises ``InputError`` (and changes nothing) when any sample is invalid. When a
+        sample raises the drift alarm, the result keeps the state from just before it.
         """
         Xa, ya = self._samples(X, y)
         n = Xa.shape[0]
         Phi = self.basis.expand(Xa)
         z = self.transform.forward(ya)
         s = self.s
-        before_state = int(s.ds[4])
+        before_state = int(s.ds[DS_STATE])
+        before_n = s.n_samples
         before_tol = s.tolerance_state
         cov = s.cov if s.cov is not None else np.zeros((self.basis.size, self.basis.size))
         out_r = np.empty(n)
         out_status = np.empty(n, dtype=np.int8)
         out_state = np.empty(n, dtype=np.int8)
         out_stat = np.empty(n)
+        alarm_at = -1
         if n:
-            learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp, self.dp,
-                        s.st, s.ds, out_r, out_status, out_state, out_stat)
+            alarm_at, *before = learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp,
+                                            self.dp, s.st, s.ds, out_r, out_status, out_state, out_stat)
             if s.cov is not None:
                 s.cov = cov
+        before_alarm = None
+        if alarm_at >= 0:
+            w, P, st, ds = before
+            snap = ModelState(w, None if s.w_ref is None else s.w_ref.copy(), None if s.cov is None else P, st, ds,
+                              before_n + alarm_at, before_tol, s.max_curve_change)
+            if alarm_at > 0:  # the state as learning the samples before the alarm alone leaves it
+                snap.tolerance_state, mcc = self._tolerance(w)
+                if snap.tolerance_state is not None:
+                    snap.max_curve_change = mcc
+            before_alarm = snap.to_dict()
         s.n_samples += n
         events: list[dict[str, Any]] = []
         prev = before_state
@@ -221,7 +250,8 @@ class ChannelModel:
                 events.append({"kind": s.tolerance_state, "index": n - 1,
                                "max_curve_change": s.max_curve_change})
         return LearnResult(out_r, [STATUS_NAMES[int(c)] for c in out_status],
-                           [STATES[int(c)] for c in out_state], out_stat, events)
+                           [STATES[int(c)] for c in out_state], out_stat, events,
+                           alarm_at if alarm_at >= 0 else None, before_alarm)
 
     def fit_closed_form(self, X: Any, y: Any) -> dict[str, Any]:
         """Least-squares calibration on points X (n, d), y (n,); replaces the weights,
@@ -329,36 +359,92 @@ class ChannelModel:
         self.s.reset_detector()
 
     def _check_tolerance(self) -> None:
-        tol = self.config["drift"]["tolerance"]
-        s = self.s
-        if tol is None or s.w_ref is None:
-            s.tolerance_state = None
-            return
-        change = self.max_curve_difference(s.w_ref)
-        s.max_curve_change = change if np.isfinite(change) else None
-        s.tolerance_state = "ok" if np.isfinite(change) and change <= tol else "out_of_tolerance"
+        self.s.tolerance_state, mcc = self._tolerance(self.s.w)
+        if self.s.tolerance_state is not None:
+            self.s.max_curve_change = mcc
 
-    # summary ------------------------------------------------------------------
+    def _tolerance(self, w: Array) -> tuple[str | None, float | None]:
+        """(tolerance state, largest change from the reference curve) for weights w."""
+        tol = self.config["drift"]["tolerance"]
+        w_ref = self.s.w_ref
+        if tol is None or w_ref is None:
+            return None, None
+        change = float(np.max(np.abs(self.curve_values(w) - self.curve_values(w_ref))))
+        ok = np.isfinite(change) and change <= tol
+        return "ok" if ok else "out_of_tolerance", change if np.isfinite(change) else None
+
+    # what the model knows, by name -----------------------------------------------------
+    @property
+    def weights(self) -> Array:
+        """(M,) current weights, in the basis's scaled space (read only)."""
+        w = self.s.w.view()
+        w.flags.writeable = False
+        return w
+
+    @property
+    def n_samples(self) -> int:
+        """Samples seen, learned or not."""
+        return self.s.n_samples
+
+    @property
+    def n_accepted(self) -> int:
+        return int(self.s.st[ST_ACC])
+
+    @property
+    def n_rejected(self) -> int:
+        """Samples held back: outliers and guarded (unstable) steps."""
+        return int(self.s.st[ST_REJ] + self.s.st[ST_GUARD])
+
+    @property
+    def drift_state(self) -> str:
+        """``ok``, ``warning`` or ``alarm`` (an alarm stays until the drift watch restarts)."""
+        return STATES[int(self.s.ds[DS_STATE])]
+
+    @property
+    def in_alarm(self) -> bool:
+        return self.drift_state == "alarm"
+
+    @property
+    def drift_statistic(self) -> float:
+        """The detector's statistic now, in its own units (compare with warning / alarm)."""
+        return float(detector_statistic(int(self.ip[IP_DETECTOR]), self.dp, self.s.ds))
+
+    @property
+    def tolerance_state(self) -> str | None:
+        """``ok`` / ``out_of_tolerance`` against the reference curve; None without a check."""
+        return self.s.tolerance_state
+
+    @property
+    def max_curve_change(self) -> float | None:
+        """Largest |f_now - f_ref| over the input range at the last check, output units."""
+        return self.s.max_curve_change
+
+    @property
+    def rmse(self) -> float | None:
+        """Running root mean square of the accepted samples' residuals, output units."""
+        return float(np.sqrt(self.s.st[ST_OMS])) if self.s.st[ST_ON] > 0 else None
+
+    @property
+    def warmed_up(self) -> bool:
+        return bool(self.s.st[ST_RN] >= WARMUP)
+
     def summary(self) -> dict[str, Any]:
         """Counts, rmse (output units) and drift state for ``GET /v1/channels/{id}``."""
-        s = self.s
-        kind = int(self.ip[3])
-        stat = float(detector_statistic(kind, self.dp, s.ds))
         return {
-            "n_samples": s.n_samples,
-            "n_accepted": int(s.st[6]),
-            "n_rejected": int(s.st[7] + s.st[8]),
-            "rmse": float(np.sqrt(s.st[ST_OMS])) if s.st[ST_ON] > 0 else None,
+            "n_samples": self.n_samples,
+            "n_accepted": self.n_accepted,
+            "n_rejected": self.n_rejected,
+            "rmse": self.rmse,
             "residual_sd": self.residual_sd(),
             "drift": {
-                "state": STATES[int(s.ds[4])],
-                "statistic": stat,
+                "state": self.drift_state,
+                "statistic": self.drift_statistic,
                 "warning": self.config["drift"]["warning"],
                 "alarm": self.config["drift"]["alarm"],
-                "tolerance_state": s.tolerance_state,
-                "max_curve_change": s.max_curve_change,
+                "tolerance_state": self.tolerance_state,
+                "max_curve_change": self.max_curve_change,
             },
-            "warmed_up": bool(s.st[ST_RN] >= WARMUP),
+            "warmed_up": self.warmed_up,
         }
 
 

@@ -1,4 +1,5 @@
-"""A model's learned state and its versioned, JSON-safe dict form.
+"""A model's learned state and its versioned, JSON-safe dict form (the configuration is
+not part of it: the channel keeps that once).
 
 Floats go through Python's shortest round-trip repr in JSON, so a state written
 and read back restores every weight to the last bit.
@@ -13,13 +14,13 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .drift import DS_SIZE, STATES
+from .drift import DS_MEAN, DS_N, DS_SIZE, DS_STATE, STATES
 from .errors import StateError
 from .learners import ST_SCALE, ST_SIZE
 
 Array = NDArray[np.float64]
 
-STATE_FORMAT = 1
+STATE_FORMAT = 2  # 1 carried the channel's config as well
 RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
     "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
@@ -56,14 +57,13 @@ class ModelState:
         return self.w_ref if self.w_ref is not None else np.zeros_like(self.w)
 
     def reset_detector(self) -> None:
-        mean_n = self.ds[2:4].copy()
+        mean, n = self.ds[DS_MEAN], self.ds[DS_N]
         self.ds[:] = 0.0
-        self.ds[2:4] = mean_n  # Page-Hinkley keeps its running mean of the residuals
+        self.ds[DS_MEAN], self.ds[DS_N] = mean, n  # Page-Hinkley keeps its running mean of the residuals
 
-    def to_dict(self, config: dict[str, Any]) -> dict[str, Any]:
+    def to_dict(self) -> dict[str, Any]:
         return {
             "format": STATE_FORMAT,
-            "config": config,
             "weights": self.w.tolist(),
             "ref_weights": None if self.w_ref is None else self.w_ref.tolist(),
             "cov": None if self.cov is None else self.cov.tolist(),
@@ -95,7 +95,7 @@ class ModelState:
             tol = d["tolerance_state"]
             if tol not in (None, "ok", "out_of_tolerance"):
                 raise StateError("bad tolerance_state")
-            if int(ds[4]) not in range(len(STATES)):
+            if int(ds[DS_STATE]) not in range(len(STATES)):
                 raise StateError("bad detector state")
             mcc = d["max_curve_change"]
             mcc = None if mcc is None else float(mcc)

@@ -127,6 +127,13 @@ class Repository:
             select(ChannelState.model_state).where(ChannelState.channel_pk == channel_pk)).one()
         return state
 
+    def config_and_state(self, channel_pk: int) -> tuple[dict[str, Any], dict[str, Any]]:
+        """A channel's configuration and stored model state, what a model is rebuilt from."""
+        row = self.session.execute(
+            select(Channel.config, ChannelState.model_state).join(ChannelState, ChannelState.channel_pk == Channel.pk)
+            .where(Channel.pk == channel_pk)).one()
+        return row[0], row[1]
+
     def create_channel(self, channel_id: str, config: dict[str, Any], model_state: dict[str, Any],
                        summary: dict[str, Any]) -> tuple[Channel, ChannelState]:
         ch = Channel(id=channel_id, config=config, created_at=utcnow())
@@ -244,9 +251,9 @@ class Repository:
         return list(self.session.scalars(stmt.order_by(Sample.seq).limit(limit)))
 
     # snapshots ----------------------------------------------------------------------
-    def insert_snapshot(self, channel_pk: int, *, reason: str, label: str | None,
+    def insert_snapshot(self, channel_pk: int, *, reason: str, label: str | None, config: dict[str, Any],
                         model_state: dict[str, Any], version: int, n_samples: int) -> Snapshot:
-        snap = Snapshot(channel_pk=channel_pk, reason=reason, label=label, model_state=model_state,
+        snap = Snapshot(channel_pk=channel_pk, reason=reason, label=label, config=config, model_state=model_state,
                         version=version, n_samples=n_samples, created_at=utcnow())
         self.session.add(snap)
         self.session.flush()

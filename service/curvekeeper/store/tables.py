@@ -64,7 +64,8 @@ class Base(DeclarativeBase):
 
 
 class Channel(Base):
-    """A channel's identity and configuration (defaults filled in)."""
+    """A channel's identity and configuration (defaults filled in): the one place the
+    channel's current configuration is kept."""
 
     __tablename__ = "channel"
 
@@ -75,7 +76,8 @@ class Channel(Base):
 
 
 class ChannelState(Base):
-    """The channel's current model state and the summary the list routes filter on."""
+    """The channel's current model state (learned values only) and the summary the list
+    routes filter on."""
 
     __tablename__ = "channel_state"
 
@@ -118,7 +120,8 @@ class Sample(Base):
 
 
 class Snapshot(Base):
-    """A stored copy of a channel's full model state."""
+    """A stored copy of a channel's model state, with the configuration it was taken under
+    (a rollback restores both)."""
 
     __tablename__ = "snapshot"
 
@@ -126,6 +129,7 @@ class Snapshot(Base):
     channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"), index=True)
     reason: Mapped[str] = mapped_column(String(32))
     label: Mapped[str | None] = mapped_column(String(256), nullable=True)
+    config: Mapped[dict[str, Any]] = mapped_column(JSON)
     model_state: Mapped[dict[str, Any]] = mapped_column(JSON)
     version: Mapped[int] = mapped_column(BigInteger)
     n_samples: Mapped[int] = mapped_column(BigInteger)

@@ -8,7 +8,7 @@ from fastapi import APIRouter, Path, Query
 
 from ...actions import channels
 from ..deps import Ctx, Who
-from ..schemas.channels import ChannelCreate, ChannelUpdate
+from ..schemas.channels import ChannelCreate, ChannelPage, ChannelPublic, ChannelUpdate
 from ..schemas.common import COMMON_ERRORS, error_responses
 
 router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON_ERRORS, **error_responses(404, 409)})
@@ -17,14 +17,14 @@ ChannelPath = Annotated[str, Path(pattern=r"^[a-z0-9._-]{1,128}$")]
 Limit = Annotated[int, Query(ge=1, le=1000)]
 
 
-@router.post("", status_code=201, summary="Create a channel")
+@router.post("", status_code=201, summary="Create a channel", response_model=ChannelPublic)
 def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("technician")
     with ctx.store.transaction(write=True) as repo:
-        return channels.create(repo, body.model_dump(exclude_unset=True), who.key_id)
+        return channels.create(repo, body, who.key_id)
 
 
-@router.get("", summary="List channels")
+@router.get("", summary="List channels", response_model=ChannelPage)
 def list_channels(ctx: Ctx, who: Who, prefix: Annotated[str | None, Query(max_length=128)] = None,
                   state: Annotated[str | None, Query(description="ok, warning, alarm or out_of_tolerance")] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
@@ -34,14 +34,15 @@ def list_channels(ctx: Ctx, who: Who, prefix: Annotated[str | None, Query(max_le
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 
-@router.get("/{channel_id}", summary="A channel's configuration and summary")
+@router.get("/{channel_id}", summary="A channel's configuration and summary", response_model=ChannelPublic)
 def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
         return channels.get(repo, channel_id)
 
 
-@router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings")
+@router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings",
+              response_model=ChannelPublic)
 def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=True) as repo:

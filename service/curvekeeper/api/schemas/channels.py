@@ -1,53 +1,80 @@
-"""Channel schemas. Field rules are checked by the core (``curvekeeper.core.config``),
-which names the field and says why a value is wrong."""
+"""Channel schemas. The configuration is declared once, in ``curvekeeper.channel_config``:
+``ChannelCreate`` is that declaration; ``ChannelUpdate`` the settings a PATCH may change
+(merged into the stored ones, then checked by the same declaration); ``ChannelPublic``
+the configuration with the channel's summary."""
 
 from __future__ import annotations
 
-from typing import Any, cast
+from datetime import datetime
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import ChannelId, Label
+from ...channel_config import ChannelConfig, Cusum, Ewma, Integer, PageHinkley, Positive, Text
 
-EXAMPLE: dict[str, Any] = {
-    "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
-    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
-    "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
-    "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
-    "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
-    "drift": {"detector": "page_hinkley", "tolerance": 0.3},
-    "outlier_sd": 6.0, "snapshot_every": 1000,
-}
+ChannelCreate = ChannelConfig
 
-
-class ChannelCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [cast(Any, EXAMPLE)]})
-
-    id: ChannelId
-    description: Label | None = None
-    inputs: list[dict[str, Any]] = Field(min_length=1, max_length=8)
-    output: dict[str, Any] | None = None
-    basis: dict[str, Any] | None = None
-    learner: dict[str, Any] | None = None
-    drift: dict[str, Any] | None = None
-    # numbers are checked by the core, which refuses booleans and says why
-    outlier_sd: Any = Field(6.0, description="residual s.d. beyond which a sample is not learned; null: off")
-    snapshot_every: Any = Field(1000, description="take a snapshot every N samples; null: off")
-    coverage_factor: Any = Field(2.0, description="k of the expanded uncertainty k*u")
+Section = Annotated[dict[str, Any], Field(description="fields to change; see the channel body")]
 
 
 class ChannelUpdate(BaseModel):
-    """Settings that may change; ``inputs``, ``output`` and ``basis`` are refused with 409."""
+    """Settings that may change. ``learner`` of the same kind (``drift`` with the same
+    detector) is merged field by field; another kind replaces it. ``inputs``, ``output``
+    and ``basis`` fix the curve's form and are refused with 409."""
 
     model_config = ConfigDict(extra="forbid", json_schema_extra={
         "examples": [{"drift": {"tolerance": 0.5}, "learner": {"kind": "rls", "forgetting": 0.999}}]})
 
-    description: Label | None = None
-    learner: dict[str, Any] | None = None
-    drift: dict[str, Any] | None = None
-    outlier_sd: Any = None
-    snapshot_every: Any = None
-    coverage_factor: Any = None
-    inputs: Any = None
-    output: Any = None
-    basis: Any = None
+    description: Text | None = None
+    learner: Section | None = None
+    drift: Section | None = None
+    outlier_sd: Annotated[Positive, Field(le=1e6)] | None = None
+    snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None = None
+    coverage_factor: Annotated[Positive, Field(le=10.0)] | None = None
+    inputs: Any = Field(default=None, description="cannot change: 409")
+    output: Any = Field(default=None, description="cannot change: 409")
+    basis: Any = Field(default=None, description="cannot change: 409")
+
+
+class DriftStatus(BaseModel):
+    """Where the drift watch stands."""
+
+    state: Literal["ok", "warning", "alarm"]
+    statistic: float = Field(description="the detector's statistic now (compare with warning and alarm)")
+    tolerance_state: Literal["ok", "out_of_tolerance"] | None = Field(
+        description="the curve against its reference; null: no tolerance check")
+    max_curve_change: float | None = Field(description="largest change from the reference curve at the last "
+                                                       "check, output units")
+
+
+class PageHinkleyPublic(PageHinkley, DriftStatus):
+    pass
+
+
+class CusumPublic(Cusum, DriftStatus):
+    pass
+
+
+class EwmaPublic(Ewma, DriftStatus):
+    pass
+
+
+DriftPublic = Annotated[PageHinkleyPublic | CusumPublic | EwmaPublic, Field(discriminator="detector")]
+
+
+class ChannelPublic(ChannelConfig):
+    """A channel: its configuration (defaults filled in) and its summary."""
+
+    drift: DriftPublic  # the settings plus the watch's state
+    n_samples: int = Field(description="samples stored")
+    n_rejected: int = Field(description="samples stored but not learned")
+    rmse: float | None = Field(description="running root mean square residual of learned samples, output units")
+    residual_sd: float | None = Field(description="residual standard deviation in the fitted space")
+    version: int = Field(description="counts every change of the channel's state")
+    last_sample_at: datetime | None
+    created_at: datetime
+
+
+class ChannelPage(BaseModel):
+    items: list[ChannelPublic]
+    next_cursor: str | None = Field(description="pass as ?cursor= for the next page; null: the last page")

@@ -1,0 +1,396 @@
+"""The channel configuration, declared once: the body of ``POST /v1/channels``.
+
+The declaration gives the defaults, the ranges, the cross-field rules and the
+field-named errors (a ``ValidationError`` whose ``loc`` is the field at fault, e.g.
+``("basis", "knots")`` or ``("inputs", 0, "min")``). ``channel_config(body)`` returns
+the plain dict the core and the store take, every default filled in.
+Numbers are strict: ``true`` or ``"6"`` is not a number.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Annotated, Any, ClassVar, Literal, cast
+
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Discriminator,
+    Field,
+    JsonValue,
+    Tag,
+    ValidationError,
+    model_validator,
+)
+from pydantic_core import InitErrorDetails, PydanticCustomError
+
+from .core.drift import DETECTOR_DEFAULTS
+
+MAX_INPUTS = 8
+MAX_DEGREE = 15
+MAX_BASIS = 128  # basis functions (weights) of one channel
+MAX_CENTERS = 64
+MAX_KNOTS = 64
+MAX_TEXT = 256
+
+
+def _whole(v: Any) -> Any:
+    """2.0 counts as the integer 2 (JSON has one number type); 2.5 and true do not."""
+    return int(v) if isinstance(v, float) and v.is_integer() else v
+
+
+def _count_or_points(v: Any) -> str | None:
+    if isinstance(v, list):
+        return "points"
+    return "count" if isinstance(v, int | float) and not isinstance(v, bool) else None
+
+
+def _point(v: Any) -> Any:
+    """A centre of a one-input rbf basis may be given as a bare number."""
+    return [v] if isinstance(v, int | float) and not isinstance(v, bool) else v
+
+
+#: a finite JSON number of sane size
+Finite = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e300, le=1e300)]
+Positive = Annotated[Finite, Field(gt=0.0)]
+Integer = Annotated[int, BeforeValidator(_whole), Field(strict=True)]
+Text = Annotated[str, Field(max_length=MAX_TEXT)]
+ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["coldroom2.probe07"])]
+
+
+def rule(loc: tuple[str | int, ...], message: str, value: Any) -> ValidationError:
+    """A broken cross-field rule, located at ``loc`` (relative to the model that checks it)."""
+    return ValidationError.from_exception_data("channel", [InitErrorDetails(
+        type=PydanticCustomError("config_rule", message), loc=loc, input=value)])
+
+
+class Strict(BaseModel):
+    """Unknown fields are refused; ``null`` for a field in ``NULL_IS_DEFAULT`` means its default."""
+
+    model_config = ConfigDict(extra="forbid", populate_by_name=False, serialize_by_alias=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _null_is_default(cls, data: Any) -> Any:
+        keep = getattr(cls, "NULL_IS_DEFAULT", ())
+        if isinstance(data, dict) and any(data.get(k, 0) is None for k in keep):
+            return {k: v for k, v in data.items() if not (k in keep and v is None)}
+        return data
+
+
+def _kind(key: str, default: str, kinds: tuple[str, ...]) -> BeforeValidator:
+    """Fill in the default kind of a union and refuse an unknown one, at ``<field>.<key>``."""
+
+    def check(v: Any) -> Any:
+        if v is None:
+            return {key: default}
+        if isinstance(v, dict):
+            kind = v.get(key, default)
+            if kind not in kinds:
+                raise rule((key,), f"must be one of {', '.join(kinds)}, got {kind!r}", kind)
+            return {key: kind, **v}
+        return v
+
+    return BeforeValidator(check)
+
+
+# inputs and output -------------------------------------------------------------------
+class InputSpec(Strict):
+    """One raw input and its declared range [min, max] in its own unit."""
+
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("unit",)
+    name: Text | None = Field(default=None, description="default x0, x1, ... by position")
+    unit: Text = ""
+    min: Finite
+    max: Finite
+
+    @model_validator(mode="after")
+    def _range(self) -> InputSpec:
+        if not self.max > self.min:
+            raise rule((), f"min must be less than max ({self.min:g} >= {self.max:g})", self.min)
+        return self
+
+
+class OutputSpec(Strict):
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("name", "unit")
+    name: Text = "value"
+    unit: Text = ""
+    transform: Literal["none", "reciprocal", "log"] = "none"
+    offset: Finite = Field(default=0.0, description="added to y before the transform, output units")
+
+
+# basis ---------------------------------------------------------------------------------
+class PolyBasis(Strict):
+    """Chebyshev polynomials of the scaled inputs, all terms of total degree <= degree."""
+
+    kind: Literal["poly"] = "poly"
+    degree: Annotated[Integer, Field(ge=0, le=MAX_DEGREE)] = 1
+    intercept: Annotated[bool, Field(strict=True)] = True
+
+    @model_validator(mode="after")
+    def _through_origin(self) -> PolyBasis:
+        if not self.intercept and self.degree < 1:
+            raise rule(("degree",), "must be at least 1 when intercept is false", self.degree)
+        return self
+
+
+class RbfBasis(Strict):
+    """Gaussian bumps at ``centers`` (scaled units, width in scaled units)."""
+
+    kind: Literal["rbf"]
+    centers: Annotated[
+        Annotated[Annotated[Integer, Field(ge=2, le=MAX_CENTERS)], Tag("count")]
+        | Annotated[list[Annotated[list[Finite], BeforeValidator(_point)]],
+                    Field(min_length=1, max_length=MAX_CENTERS), Tag("points")],
+        Discriminator(_count_or_points, custom_error_type="config_rule",
+                      custom_error_message=f"must be a count (2 to {MAX_CENTERS}) or a list of centre points"),
+    ] = Field(default=8, description="a count (evenly spread, one input) or the centre points, one "
+                                     "coordinate per input")
+    width: Annotated[Positive, Field(le=100.0)] | None = Field(default=None, description="default: the centre spacing")
+    intercept: Annotated[bool, Field(strict=True)] = True
+
+
+class LogPolyBasis(Strict):
+    """Powers of ln x (one input above zero), e.g. [0, 1, 3] for a thermistor."""
+
+    kind: Literal["log_poly"]
+    powers: Annotated[list[Annotated[Integer, Field(ge=0, le=7)]], Field(min_length=1, max_length=8)] = [0, 1, 3]
+
+    @model_validator(mode="after")
+    def _distinct(self) -> LogPolyBasis:
+        if len(set(self.powers)) != len(self.powers):
+            raise rule(("powers",), "must not repeat a power", self.powers)
+        return self
+
+
+class HingeBasis(Strict):
+    """Piecewise-linear in one input with ``knots`` strictly inside its range."""
+
+    kind: Literal["hinge"]
+    knots: Annotated[list[Finite], Field(min_length=1, max_length=MAX_KNOTS)]
+    intercept: Annotated[bool, Field(strict=True)] = True
+
+    @model_validator(mode="after")
+    def _increasing(self) -> HingeBasis:
+        if any(b <= a for a, b in zip(self.knots, self.knots[1:], strict=False)):
+            raise rule(("knots",), "must be strictly increasing", self.knots)
+        return self
+
+
+Basis = Annotated[PolyBasis | RbfBasis | LogPolyBasis | HingeBasis, Field(discriminator="kind"),
+                  _kind("kind", "poly", ("poly", "rbf", "log_poly", "hinge"))]
+
+
+# learner -------------------------------------------------------------------------------
+class ConstantSchedule(Strict):
+    kind: Literal["constant"]
+    eta0: Annotated[Positive, Field(le=1e6)] = 0.05
+
+
+class InverseTimeSchedule(Strict):
+    kind: Literal["inverse_time"]
+    eta0: Annotated[Positive, Field(le=1e6)] = 0.5
+    tau: Positive = 100.0
+    power: Annotated[Positive, Field(le=2.0)] = 0.6
+
+
+class StepSchedule(Strict):
+    kind: Literal["step"]
+    eta0: Annotated[Positive, Field(le=1e6)] = 0.1
+    gamma: Annotated[Positive, Field(le=1.0)] = 0.5
+    every: Annotated[Integer, Field(ge=1, le=10**9)] = 1000
+
+
+class NormalizedSchedule(Strict):
+    """Normalised LMS, eta = mu / (eps + |phi|^2) with 0 < mu < 2."""
+
+    kind: Literal["normalized"] = "normalized"
+    mu: Annotated[Positive, Field(lt=2.0)] = 0.1
+    eps: Positive = 1e-6
+
+
+Schedule = Annotated[ConstantSchedule | InverseTimeSchedule | StepSchedule | NormalizedSchedule,
+                     Field(discriminator="kind"),
+                     _kind("kind", "normalized", ("constant", "inverse_time", "step", "normalized"))]
+
+
+class SgdLearner(Strict):
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("schedule",)
+    kind: Literal["sgd"] = "sgd"
+    schedule: Schedule = NormalizedSchedule()
+    l2: Annotated[Finite, Field(ge=0.0, le=1e6)] = Field(default=0.0, description="pull toward the reference weights")
+    huber: Annotated[Positive, Field(le=1e3)] | None = Field(default=None, description="clip residuals at huber s.d.")
+
+
+class RlsLearner(Strict):
+    kind: Literal["rls"]
+    forgetting: Annotated[Positive, Field(le=1.0)] = 0.999
+    initial_covariance: Annotated[Positive, Field(le=1e12)] = 1e3
+
+
+Learner = Annotated[SgdLearner | RlsLearner, Field(discriminator="kind"), _kind("kind", "sgd", ("sgd", "rls"))]
+
+
+# drift ---------------------------------------------------------------------------------
+PH, CU, EW = (DETECTOR_DEFAULTS[k] for k in ("page_hinkley", "cusum", "ewma"))
+Threshold = Annotated[Finite, Field(ge=0.0, le=1e6)]
+Clip = Annotated[Finite, Field(ge=0.0, le=1e3, description="residuals clipped at +-clip s.d.; 0: off")]
+
+
+class DriftBase(Strict):
+    tolerance: Positive | None = Field(default=None, description="largest curve change from the reference, output "
+                                                         "units; null: no tolerance check")
+
+    @model_validator(mode="after")
+    def _alarm_above_warning(self) -> DriftBase:
+        warning, alarm = getattr(self, "warning"), getattr(self, "alarm")  # noqa: B009 (set by subclasses)
+        if not alarm > warning:
+            raise rule(("alarm",), f"must be greater than drift.warning ({alarm:g} <= {warning:g})", alarm)
+        return self
+
+
+class PageHinkley(DriftBase):
+    detector: Literal["page_hinkley"] = "page_hinkley"
+    delta: Threshold = PH["delta"]
+    warning: Threshold = PH["warning"]
+    alarm: Threshold = PH["alarm"]
+    mean_window: Annotated[Integer, Field(ge=10, le=10**7)] = PH["mean_window"]
+    clip: Clip = PH["clip"]
+
+
+class Cusum(DriftBase):
+    detector: Literal["cusum"]
+    k: Threshold = CU["k"]
+    warning: Threshold = CU["warning"]
+    alarm: Threshold = CU["alarm"]
+    clip: Clip = CU["clip"]
+
+
+class Ewma(DriftBase):
+    detector: Literal["ewma"]
+    lambda_: Annotated[Positive, Field(le=1.0)] = Field(default=EW["lambda"], alias="lambda")
+    warning: Threshold = EW["warning"]
+    alarm: Threshold = EW["alarm"]
+    clip: Clip = EW["clip"]
+
+
+DETECTORS = tuple(DETECTOR_DEFAULTS)
+Drift = Annotated[PageHinkley | Cusum | Ewma, Field(discriminator="detector"),
+                  _kind("detector", "page_hinkley", DETECTORS)]
+
+
+# the channel ---------------------------------------------------------------------------
+EXAMPLE: dict[str, Any] = {
+    "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
+    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
+    "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
+    "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
+    "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
+    "drift": {"detector": "page_hinkley", "tolerance": 0.3},
+    "outlier_sd": 6.0, "snapshot_every": 1000,
+}
+_UNIONS = {"basis", "learner", "schedule", "drift", "centers"}
+_TAGS = {"poly", "rbf", "log_poly", "hinge", "sgd", "rls", "constant", "inverse_time", "step", "normalized",
+         "count", "points", *DETECTORS}
+
+
+def _without_tags(loc: tuple[str | int, ...]) -> tuple[str | int, ...]:
+    """pydantic puts the chosen member of a union in ``loc`` (basis.poly.degree): drop it."""
+    return tuple(p for i, p in enumerate(loc) if not (p in _TAGS and i and loc[i - 1] in _UNIONS))
+
+
+class ChannelSettings(Strict):
+    """A channel's configuration without its id; see the module docstring."""
+
+    model_config = ConfigDict(extra="forbid", serialize_by_alias=True)
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("description", "output", "basis", "learner", "drift")
+
+    description: Text = ""
+    inputs: Annotated[list[InputSpec], Field(min_length=1, max_length=MAX_INPUTS)]
+    output: OutputSpec = OutputSpec()
+    basis: Basis = PolyBasis()
+    learner: Learner = SgdLearner()
+    drift: Drift = PageHinkley()
+    outlier_sd: Annotated[Positive, Field(le=1e6)] | None = Field(
+        6.0, description="residual s.d. beyond which a sample is stored but not learned; null: off")
+    snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None = Field(
+        1000, description="take a snapshot every N samples; null: off")
+    coverage_factor: Annotated[Positive, Field(le=10.0)] = Field(default=2.0, description="k of the expanded "
+                                                                                  "uncertainty k u")
+
+    @model_validator(mode="wrap")
+    @classmethod
+    def _name_the_field(cls, data: Any, handler: Any) -> Any:
+        try:
+            return handler(data)
+        except ValidationError as exc:
+            raise ValidationError.from_exception_data(exc.title, [InitErrorDetails(
+                type=PydanticCustomError(e["type"], e["msg"].replace("{", "{{").replace("}", "}}")),
+                loc=_without_tags(e["loc"]), input=e.get("input")) for e in exc.errors()]) from None
+
+    @model_validator(mode="after")
+    def _fits_the_inputs(self) -> ChannelSettings:
+        names: set[str] = set()
+        for i, spec in enumerate(self.inputs):
+            if spec.name is None:
+                spec.name = f"x{i}"
+            if spec.name in names:
+                raise rule(("inputs", i, "name"), f"{spec.name!r} is used twice", spec.name)
+            names.add(spec.name)
+        self.basis = _fit_basis(self.basis, self.inputs)
+        return self
+
+
+def _fit_basis(b: PolyBasis | RbfBasis | LogPolyBasis | HingeBasis, inputs: list[InputSpec]
+               ) -> PolyBasis | RbfBasis | LogPolyBasis | HingeBasis:
+    """The rules between the basis and the inputs; an rbf count becomes its centre points."""
+    d = len(inputs)
+    lo, hi = inputs[0].min, inputs[0].max
+    if isinstance(b, PolyBasis):
+        size = math.comb(b.degree + d, d) - (0 if b.intercept else 1)
+        if size > MAX_BASIS:
+            raise rule(("basis", "degree"), f"gives {size} terms ({d} inputs, degree {b.degree}); at most "
+                       f"{MAX_BASIS} are allowed", b.degree)
+        if not b.intercept and d > 1:
+            raise rule(("basis", "intercept"), "false needs a single input", b.intercept)
+        return b
+    if isinstance(b, RbfBasis):
+        if isinstance(b.centers, int):
+            if d != 1:
+                raise rule(("basis", "centers"), "must list the centre points when there are several inputs",
+                           b.centers)
+            n = b.centers
+            points = [[lo + (hi - lo) * i / (n - 1)] for i in range(n)]
+        else:
+            points = b.centers
+            for i, p in enumerate(points):
+                if len(p) != d:
+                    raise rule(("basis", "centers", i), f"must have {d} coordinate(s), one per input", p)
+        width = b.width if b.width is not None else 2.0 / max(len(points) - 1, 1)
+        return RbfBasis(kind="rbf", centers=points, width=width, intercept=b.intercept)
+    if d != 1:
+        raise rule(("basis", "kind"), f"{b.kind} takes a single input", b.kind)
+    if isinstance(b, LogPolyBasis):
+        if lo <= 0.0:
+            raise rule(("inputs", 0, "min"), "must be above zero for the log_poly basis (ln x)", lo)
+        return b
+    if b.knots[0] <= lo or b.knots[-1] >= hi:
+        raise rule(("basis", "knots"), f"must lie inside the input range ({lo:g}, {hi:g})", b.knots)
+    return b
+
+
+class ChannelConfig(ChannelSettings):
+    """The body of ``POST /v1/channels``: the settings and the channel's id."""
+
+    model_config = ConfigDict(extra="forbid", serialize_by_alias=True,
+                              json_schema_extra={"examples": [cast(JsonValue, EXAMPLE)]})
+
+    id: ChannelId
+
+
+def channel_config(body: Any) -> dict[str, Any]:
+    """A channel body validated (``ValidationError`` names the field) with every default
+    filled in, as plain JSON types: what the store keeps and the core takes."""
+    model = ChannelConfig if isinstance(body, dict) and "id" in body else ChannelSettings
+    return model.model_validate(body).model_dump(mode="json")

@@ -1,0 +1,199 @@
+"""The channel configuration's declaration (``curvekeeper.channel_config``): defaults, and
+for each rule a ``ValidationError`` located at the field at fault, saying why."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pytest
+from curvekeeper.channel_config import ChannelConfig, channel_config
+from curvekeeper.core.drift import DETECTOR_DEFAULTS
+from pydantic import ValidationError
+
+BASE: dict[str, Any] = {"inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}]}
+ONE = {"min": 0, "max": 1}
+
+
+def with_(**over: Any) -> dict[str, Any]:
+    return {**BASE, **over}
+
+
+def test_defaults_are_those_of_the_contract() -> None:
+    cfg = channel_config(BASE)
+    assert cfg["description"] == ""
+    assert cfg["output"] == {"name": "value", "unit": "", "transform": "none", "offset": 0.0}
+    assert cfg["basis"] == {"kind": "poly", "degree": 1, "intercept": True}
+    assert cfg["learner"] == {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.1, "eps": 1e-6},
+                              "l2": 0.0, "huber": None}
+    assert cfg["drift"] == {"detector": "page_hinkley", "tolerance": None, **DETECTOR_DEFAULTS["page_hinkley"]}
+    assert cfg["outlier_sd"] == 6.0 and cfg["snapshot_every"] == 1000
+    assert cfg["coverage_factor"] == 2.0
+    assert channel_config(cfg) == cfg  # idempotent
+    assert "id" not in cfg and channel_config({"id": "a.b", **BASE})["id"] == "a.b"
+
+
+@pytest.mark.parametrize(("section", "body", "expected"), [
+    ("learner", {"kind": "rls"}, {"kind": "rls", "forgetting": 0.999, "initial_covariance": 1e3}),
+    ("learner", {"schedule": {"kind": "constant"}}, {"kind": "sgd", "schedule": {"kind": "constant", "eta0": 0.05},
+                                                     "l2": 0.0, "huber": None}),
+    ("learner", {"schedule": {"kind": "inverse_time"}},
+     {"kind": "sgd", "schedule": {"kind": "inverse_time", "eta0": 0.5, "tau": 100.0, "power": 0.6}, "l2": 0.0,
+      "huber": None}),
+    ("learner", {"schedule": {"kind": "step"}},
+     {"kind": "sgd", "schedule": {"kind": "step", "eta0": 0.1, "gamma": 0.5, "every": 1000}, "l2": 0.0,
+      "huber": None}),
+    ("drift", {"detector": "cusum"}, {"detector": "cusum", "tolerance": None, **DETECTOR_DEFAULTS["cusum"]}),
+    ("drift", {"detector": "ewma"}, {"detector": "ewma", "tolerance": None, **DETECTOR_DEFAULTS["ewma"]}),
+    ("basis", {"kind": "log_poly"}, {"kind": "log_poly", "powers": [0, 1, 3]}),
+    ("basis", {"kind": "rbf", "centers": 3}, {"kind": "rbf", "centers": [[1000.0], [20500.0], [40000.0]],
+                                              "width": 1.0, "intercept": True}),
+    ("basis", {"kind": "rbf"}, {"kind": "rbf", "centers": [[1000 + 39000 * i / 7] for i in range(8)],
+                                "width": 2 / 7, "intercept": True}),
+    ("basis", {"kind": "rbf", "centers": [1500, 2000], "width": 0.5},
+     {"kind": "rbf", "centers": [[1500.0], [2000.0]], "width": 0.5, "intercept": True}),
+    ("basis", {"kind": "hinge", "knots": [5000, 20000]}, {"kind": "hinge", "knots": [5000.0, 20000.0],
+                                                          "intercept": True}),
+])
+def test_each_kind_gets_its_defaults(section: str, body: dict[str, Any], expected: dict[str, Any]) -> None:
+    assert channel_config(with_(**{section: body}))[section] == expected
+
+
+def test_null_means_the_default_where_it_cannot_mean_off() -> None:
+    cfg = channel_config(with_(description=None, output=None, basis=None, learner=None, drift=None,
+                               outlier_sd=None, snapshot_every=None))
+    assert cfg["description"] == "" and cfg["basis"]["kind"] == "poly" and cfg["drift"]["detector"] == "page_hinkley"
+    assert cfg["outlier_sd"] is None and cfg["snapshot_every"] is None  # null: the gate and snapshots off
+
+
+def test_inputs_are_named_by_position_by_default_and_integral_numbers_are_integers() -> None:
+    cfg = channel_config(with_(inputs=[ONE, {**ONE, "name": "t"}], snapshot_every=50.0,
+                               basis={"kind": "poly", "degree": 2.0}))
+    assert [i["name"] for i in cfg["inputs"]] == ["x0", "t"]
+    assert cfg["snapshot_every"] == 50 and isinstance(cfg["snapshot_every"], int)
+    assert cfg["basis"]["degree"] == 2
+
+
+def test_the_design_example_is_valid() -> None:
+    cfg = channel_config({
+        "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
+        "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
+        "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
+        "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
+        "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
+        "drift": {"detector": "page_hinkley", "tolerance": 0.3},
+        "outlier_sd": 6.0, "snapshot_every": 1000,
+    })
+    assert cfg["basis"]["powers"] == [0, 1, 3]
+    assert cfg["drift"]["tolerance"] == 0.3
+    assert cfg["learner"]["schedule"] == {"kind": "normalized", "mu": 0.2, "eps": 1e-6}
+
+
+BAD = [
+    # (body changes, loc of the field at fault, words of the reason)
+    ({"basis": {"kind": "spline"}}, ("basis", "kind"), "poly, rbf, log_poly, hinge"),
+    ({"basis": {"kind": "poly", "degree": -1}}, ("basis", "degree"), "greater than or equal to 0"),
+    ({"basis": {"kind": "poly", "degree": 16}}, ("basis", "degree"), "less than or equal to 15"),
+    ({"basis": {"kind": "poly", "degree": 0, "intercept": False}}, ("basis", "degree"), "at least 1"),
+    ({"basis": {"kind": "poly", "intercept": "no"}}, ("basis", "intercept"), "valid boolean"),
+    ({"basis": {"kind": "poly", "degree": 1, "knots": [1]}}, ("basis", "knots"), "Extra inputs"),
+    ({"inputs": [ONE] * 8, "basis": {"kind": "poly", "degree": 5}}, ("basis", "degree"), "at most 128"),
+    ({"inputs": [ONE] * 2, "basis": {"kind": "poly", "degree": 2, "intercept": False}},
+     ("basis", "intercept"), "single input"),
+    ({"basis": {"kind": "rbf", "centers": 1}}, ("basis", "centers"), "greater than or equal to 2"),
+    ({"basis": {"kind": "rbf", "centers": 65}}, ("basis", "centers"), "less than or equal to 64"),
+    ({"basis": {"kind": "rbf", "centers": "many"}}, ("basis", "centers"), "a count (2 to 64) or a list"),
+    ({"basis": {"kind": "rbf", "centers": []}}, ("basis", "centers"), "at least 1 item"),
+    ({"inputs": [ONE] * 2, "basis": {"kind": "rbf", "centers": 4}}, ("basis", "centers"), "list the centre points"),
+    ({"inputs": [ONE] * 2, "basis": {"kind": "rbf", "centers": [[0, 0], [1]]}}, ("basis", "centers", 1),
+     "2 coordinate(s)"),
+    ({"basis": {"kind": "rbf", "width": 0}}, ("basis", "width"), "greater than 0"),
+    ({"basis": {"kind": "rbf", "width": 101}}, ("basis", "width"), "less than or equal to 100"),
+    ({"basis": {"kind": "log_poly", "powers": [0, 1, 1]}}, ("basis", "powers"), "repeat"),
+    ({"basis": {"kind": "log_poly", "powers": [8]}}, ("basis", "powers", 0), "less than or equal to 7"),
+    ({"basis": {"kind": "log_poly", "powers": []}}, ("basis", "powers"), "at least 1 item"),
+    ({"inputs": [{"name": "raw", "min": -1, "max": 5}], "basis": {"kind": "log_poly"}},
+     ("inputs", 0, "min"), "above zero"),
+    ({"inputs": [{"min": 1, "max": 2}] * 2, "basis": {"kind": "log_poly"}}, ("basis", "kind"), "single input"),
+    ({"basis": {"kind": "hinge"}}, ("basis", "knots"), "Field required"),
+    ({"basis": {"kind": "hinge", "knots": [500]}}, ("basis", "knots"), "inside the input range"),
+    ({"basis": {"kind": "hinge", "knots": [5000, 40000]}}, ("basis", "knots"), "inside the input range"),
+    ({"basis": {"kind": "hinge", "knots": [5000, 3000]}}, ("basis", "knots"), "increasing"),
+    ({"inputs": [ONE] * 2, "basis": {"kind": "hinge", "knots": [0.5]}}, ("basis", "kind"), "single input"),
+    ({"learner": {"kind": "adam"}}, ("learner", "kind"), "sgd, rls"),
+    ({"learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 2.0}}},
+     ("learner", "schedule", "mu"), "less than 2"),
+    ({"learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0}}},
+     ("learner", "schedule", "mu"), "greater than 0"),
+    ({"learner": {"schedule": {"kind": "cosine"}}}, ("learner", "schedule", "kind"), "constant, inverse_time"),
+    ({"learner": {"schedule": {"kind": "step", "every": 0}}}, ("learner", "schedule", "every"), "greater than"),
+    ({"learner": {"schedule": {"kind": "step", "gamma": 1.5}}}, ("learner", "schedule", "gamma"), "less than"),
+    ({"learner": {"schedule": {"kind": "inverse_time", "power": 3}}}, ("learner", "schedule", "power"), "less"),
+    ({"learner": {"schedule": {"kind": "constant", "eta0": 0}}}, ("learner", "schedule", "eta0"), "greater"),
+    ({"learner": {"schedule": {"kind": "constant", "tau": 1}}}, ("learner", "schedule", "tau"), "Extra inputs"),
+    ({"learner": {"l2": -1}}, ("learner", "l2"), "greater than or equal to 0"),
+    ({"learner": {"huber": 0}}, ("learner", "huber"), "greater than 0"),
+    ({"learner": {"kind": "rls", "forgetting": 0}}, ("learner", "forgetting"), "greater than 0"),
+    ({"learner": {"kind": "rls", "forgetting": 1.01}}, ("learner", "forgetting"), "less than or equal to 1"),
+    ({"learner": {"kind": "rls", "initial_covariance": 0}}, ("learner", "initial_covariance"), "greater than 0"),
+    ({"learner": {"kind": "rls", "l2": 0.1}}, ("learner", "l2"), "Extra inputs"),
+    ({"inputs": [{"name": "raw", "min": 5, "max": 5}]}, ("inputs", 0), "less than max"),
+    ({"inputs": [{"name": "raw", "min": 6, "max": 5}]}, ("inputs", 0), "less than max"),
+    ({"inputs": [{"name": "raw", "min": 0}]}, ("inputs", 0, "max"), "Field required"),
+    ({"inputs": [{"name": "raw", "min": 0, "max": 1, "offset": 2}]}, ("inputs", 0, "offset"), "Extra inputs"),
+    ({"inputs": []}, ("inputs",), "at least 1 item"),
+    ({"inputs": [ONE] * 9}, ("inputs",), "at most 8 items"),
+    ({"inputs": [ONE, {"name": "x0", **ONE}]}, ("inputs", 1, "name"), "used twice"),
+    ({"inputs": [{"name": "raw", "min": float("nan"), "max": 5}]}, ("inputs", 0, "min"), "finite"),
+    ({"inputs": [{"name": "raw", "min": -1e301, "max": 5}]}, ("inputs", 0, "min"), "greater than or equal"),
+    ({"inputs": [{"name": "raw", "min": True, "max": 5}]}, ("inputs", 0, "min"), "valid number"),
+    ({"inputs": [{"name": "raw", "min": "0", "max": 5}]}, ("inputs", 0, "min"), "valid number"),
+    ({"inputs": [{"name": "r" * 257, "min": 0, "max": 5}]}, ("inputs", 0, "name"), "at most 256"),
+    ({"output": {"transform": "sqrt"}}, ("output", "transform"), "'none', 'reciprocal' or 'log'"),
+    ({"output": {"offset": float("inf")}}, ("output", "offset"), "finite"),
+    ({"drift": {"detector": "adwin"}}, ("drift", "detector"), "page_hinkley, cusum, ewma"),
+    ({"drift": {"detector": "cusum", "warning": 5, "alarm": 4}}, ("drift", "alarm"), "greater than drift.warning"),
+    ({"drift": {"warning": 11}}, ("drift", "alarm"), "greater than drift.warning"),
+    ({"drift": {"detector": "cusum", "delta": 1}}, ("drift", "delta"), "Extra inputs"),
+    ({"drift": {"detector": "ewma", "lambda": 0}}, ("drift", "lambda"), "greater than 0"),
+    ({"drift": {"detector": "ewma", "lambda_": 0.1}}, ("drift", "lambda_"), "Extra inputs"),
+    ({"drift": {"mean_window": 9}}, ("drift", "mean_window"), "greater than or equal to 10"),
+    ({"drift": {"clip": -1}}, ("drift", "clip"), "greater than or equal to 0"),
+    ({"drift": {"tolerance": 0}}, ("drift", "tolerance"), "greater than 0"),
+    ({"outlier_sd": -1}, ("outlier_sd",), "greater than 0"),
+    ({"outlier_sd": True}, ("outlier_sd",), "valid number"),
+    ({"snapshot_every": 0}, ("snapshot_every",), "greater than or equal to 1"),
+    ({"snapshot_every": 2.5}, ("snapshot_every",), "valid integer"),
+    ({"snapshot_every": True}, ("snapshot_every",), "valid integer"),
+    ({"coverage_factor": 0}, ("coverage_factor",), "greater than 0"),
+    ({"coverage_factor": 10.5}, ("coverage_factor",), "less than or equal to 10"),
+    ({"description": 7}, ("description",), "valid string"),
+    ({"id": "Cold Room!"}, ("id",), "pattern"),
+    ({"colour": "red"}, ("colour",), "Extra inputs"),
+]
+
+
+@pytest.mark.parametrize(("over", "loc", "words"), BAD)
+def test_a_broken_rule_names_the_field_and_says_why(over: dict[str, Any], loc: tuple[Any, ...], words: str) -> None:
+    with pytest.raises(ValidationError) as err:
+        channel_config(with_(**over))
+    first = err.value.errors()[0]
+    assert first["loc"] == loc
+    assert words in first["msg"]
+
+
+def test_not_an_object() -> None:
+    with pytest.raises(ValidationError):
+        channel_config([1, 2])
+
+
+def test_the_schema_describes_each_kind() -> None:
+    """The declaration is what /openapi.json shows: one schema per kind, told apart by its tag."""
+    schema = ChannelConfig.model_json_schema()
+    props = schema["properties"]
+    assert props["basis"]["discriminator"]["propertyName"] == "kind"
+    assert set(props["basis"]["discriminator"]["mapping"]) == {"poly", "rbf", "log_poly", "hinge"}
+    assert set(props["learner"]["discriminator"]["mapping"]) == {"sgd", "rls"}
+    assert set(props["drift"]["discriminator"]["mapping"]) == set(DETECTOR_DEFAULTS)
+    sgd = schema["$defs"]["SgdLearner"]["properties"]["schedule"]
+    assert set(sgd["discriminator"]["mapping"]) == {"constant", "inverse_time", "step", "normalized"}
+    assert set(schema["required"]) == {"id", "inputs"}
