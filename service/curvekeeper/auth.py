@@ -62,29 +62,26 @@ def authenticate(repo: Repository, authorization: str | None) -> Principal:
     return Principal(key.id, key.role, list(key.prefixes or []))
 
 
+def new_key(*, role: str, prefixes: list[str], label: str | None, secret: str | None = None
+            ) -> tuple[ApiKey, str]:
+    """A new key row, not yet stored, and its secret (shown once)."""
+    secret = secret or new_secret()
+    return ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role=role, prefixes=prefixes,
+                  label=label, created_at=utcnow()), secret
+
+
 def create_key(repo: Repository, *, role: str, prefixes: list[str], label: str | None,
                secret: str | None = None) -> tuple[ApiKey, str]:
-    """A new key; returns the row and the secret (shown once)."""
-    secret = secret or new_secret()
-    key = ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role=role, prefixes=prefixes,
-                 label=label, created_at=utcnow())
+    """A new key stored without an event (tests); the service makes keys through
+    ``curvekeeper.actions.keys``, which also records who made them."""
+    key, secret = new_key(role=role, prefixes=prefixes, label=label, secret=secret)
     repo.insert_key(key)
     return key, secret
 
 
 def ensure_admin_key(repo: Repository, secret: str) -> ApiKey:
-    """Make sure an admin key with this secret exists (CURVEKEEPER_ADMIN_KEY)."""
-    key = repo.key_by_hash(hash_secret(secret))
-    if key is not None and key.revoked_at is None and key.role == "admin":
-        return key
-    if key is not None:
-        raise ValueError("CURVEKEEPER_ADMIN_KEY matches a revoked or non-admin key; choose another secret")
-    new = ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role="admin", prefixes=[],
-                 label="admin key from CURVEKEEPER_ADMIN_KEY", created_at=utcnow())
-    if repo.insert_key_unless_taken(new):
-        repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": None,
-                             "details": {"id": new.id, "role": "admin", "prefixes": [], "label": new.label,
-                                         "by": "CURVEKEEPER_ADMIN_KEY at start-up"}}])
-        return new
-    # another process made it between our look-up and our insert
-    return ensure_admin_key(repo, secret)
+    """Make sure an admin key with this secret exists (CURVEKEEPER_ADMIN_KEY); see
+    ``curvekeeper.actions.keys.ensure_admin_key``."""
+    from .actions import keys  # the actions import this module: keys are made there
+
+    return keys.ensure_admin_key(repo, secret)

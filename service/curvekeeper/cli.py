@@ -3,11 +3,22 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 from .config import Settings
+
+EXISTING_DB = ("SQLAlchemy URL of an existing store (default: CURVEKEEPER_DATABASE_URL, "
+               "else sqlite:///curvekeeper.db)")
+
+
+def _admin(name: str) -> Callable[[argparse.Namespace], int]:
+    """An admin command of ``curvekeeper.admin``, imported when it runs (it needs SQLAlchemy)."""
+    def run(args: argparse.Namespace) -> int:
+        from . import admin
+
+        return int(getattr(admin, name)(args))
+    return run
 
 
 def _settings(args: argparse.Namespace) -> Settings:
@@ -18,12 +29,13 @@ def _settings(args: argparse.Namespace) -> Settings:
 def cmd_serve(args: argparse.Namespace) -> int:
     import uvicorn
 
+    from .admin import masked
     from .api import create_app
 
     settings = _settings(args)
     _first_key(settings)
     app = create_app(settings)
-    print(f"curvekeeper {settings.database_url} -> http://{settings.host}:{settings.port}/  "
+    print(f"curvekeeper {masked(settings.database_url)} -> http://{settings.host}:{settings.port}/  "
           f"(API docs at http://{settings.host}:{settings.port}/docs; Ctrl-C stops)", flush=True)
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level,
                 access_log=args.access_log)
@@ -33,24 +45,19 @@ def cmd_serve(args: argparse.Namespace) -> int:
 def _first_key(settings: Settings) -> None:
     """On a store with no keys at all (and no CURVEKEEPER_ADMIN_KEY), mint an admin key and
     print it once, so a fresh install can be used at once."""
-    from . import auth
+    from .actions import keys
     from .store import Store
-    from .store.tables import ApiKey
 
     if settings.admin_key:
         return
     store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
     try:
         with store.transaction(write=True) as repo:
-            if repo.count_rows(ApiKey):
-                return
-            key, secret = auth.create_key(repo, role="admin", prefixes=[], label="first admin key")
-            repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": None,
-                                 "details": {"id": key.id, "role": "admin", "prefixes": [], "label": key.label,
-                                             "by": "first start"}}])
-        print(f"first start: admin key {key.id} created; its secret (shown once): {secret}", flush=True)
+            key = keys.first_admin_key(repo)
     finally:
         store.dispose()
+    if key is not None:
+        print(f"first start: admin key {key['id']} created; its secret (shown once): {key['secret']}", flush=True)
 
 
 def _simulate(args: argparse.Namespace) -> int:
@@ -96,103 +103,6 @@ def _demo(args: argparse.Namespace) -> int:
     return demo_command(args)
 
 
-def cmd_keys_create(args: argparse.Namespace) -> int:
-    from . import auth
-    from .store import Store
-
-    if args.prefix and args.role != "device":
-        print("--prefix limits device keys only", file=sys.stderr)
-        return 2
-    store = Store(_settings(args).database_url)
-    try:
-        with store.transaction(write=True) as repo:
-            key, secret = auth.create_key(repo, role=args.role, prefixes=args.prefix or [], label=args.label)
-            repo.insert_events([{"channel_pk": None, "kind": "key_created", "key_id": None,
-                                 "details": {"id": key.id, "role": key.role, "prefixes": key.prefixes,
-                                             "label": key.label, "by": "command line"}}])
-    finally:
-        store.dispose()
-    print(json.dumps({"id": key.id, "role": key.role, "prefixes": key.prefixes, "secret": secret}))
-    print("keep the secret now: it is not stored and cannot be shown again", file=sys.stderr)
-    return 0
-
-
-def cmd_db_upgrade(args: argparse.Namespace) -> int:
-    from .store import migrate
-    from .store.engine import make_engine
-
-    engine = make_engine(_settings(args).database_url)
-    try:
-        before = migrate.current_revision(engine)
-        migrate.upgrade(engine)
-        print(f"schema at revision {migrate.current_revision(engine)} (was {before or 'empty'})")
-    finally:
-        engine.dispose()
-    return 0
-
-
-def cmd_db_backup(args: argparse.Namespace) -> int:
-    import sqlite3
-    from pathlib import Path
-
-    from sqlalchemy.engine import make_url
-
-    url = make_url(_settings(args).database_url)
-    if url.get_backend_name() != "sqlite" or not url.database:
-        print("db backup copies SQLite stores; back up PostgreSQL with pg_dump (see the README)", file=sys.stderr)
-        return 2
-    target = Path(args.path)
-    if target.exists():
-        print(f"{target} exists; choose a new path", file=sys.stderr)
-        return 2
-    src = sqlite3.connect(f"file:{url.database}?mode=ro", uri=True)
-    dst = sqlite3.connect(target)
-    try:
-        # SQLite's online backup: a consistent copy while the service keeps writing
-        src.backup(dst, pages=1024)
-        ok = dst.execute("PRAGMA integrity_check").fetchone()[0]
-    finally:
-        dst.close()
-        src.close()
-    print(f"backup of {url.database} written to {target} (integrity: {ok})")
-    return 0 if ok == "ok" else 1
-
-
-def cmd_replay(args: argparse.Namespace) -> int:
-    from tqdm import tqdm
-
-    from .actions.replay import replay
-    from .errors import ServiceError
-    from .store import Store
-
-    store = Store(_settings(args).database_url)
-    try:
-        with store.transaction(write=False) as repo, tqdm(unit="sample", desc=args.channel,
-                                                          disable=args.quiet or None) as bar:
-            report = replay(repo, args.channel, from_snapshot=args.from_snapshot, check=args.check,
-                            progress=bar.update)
-    except ServiceError as exc:
-        print(f"replay: {exc.message}", file=sys.stderr)
-        return 2
-    finally:
-        store.dispose()
-    print(f"{report.channel}: replayed {report.replayed_samples} samples and {report.replayed_events} "
-          f"state changes from version {report.start_version} to {report.version}")
-    if args.check:
-        if report.matches:
-            print("check: the replayed state equals the stored state, bit for bit")
-            return 0
-        print("check: MISMATCH", file=sys.stderr)
-        for line in report.mismatches:
-            print(f"  {line}", file=sys.stderr)
-        return 1
-    if args.output:
-        from pathlib import Path
-
-        Path(args.output).write_text(json.dumps(report.state))
-    return 0
-
-
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="curvekeeper", description="Online calibration service for sensor fleets.")
     sub = p.add_subparsers(dest="command", required=True)
@@ -220,33 +130,35 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--seed", type=int, default=7)
     sim.set_defaults(func=_simulate)
 
-    keys = sub.add_parser("keys", help="manage API keys directly in the store")
+    keys = sub.add_parser("keys", help="manage API keys directly in an existing store (never creates one)")
     keys_sub = keys.add_subparsers(dest="keys_command", required=True)
     create = keys_sub.add_parser("create", help="mint a key and print its secret once")
     create.add_argument("--role", required=True, choices=["admin", "technician", "device"])
     create.add_argument("--prefix", action="append", help="channel-id prefix a device key may use (repeatable)")
     create.add_argument("--label", help="what the key is for")
-    create.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
-    create.set_defaults(func=cmd_keys_create)
+    create.add_argument("--db", help=EXISTING_DB)
+    create.set_defaults(func=_admin("cmd_keys_create"))
 
-    db = sub.add_parser("db", help="store maintenance")
+    db = sub.add_parser("db", help="maintenance of an existing store (never creates one)")
     db_sub = db.add_subparsers(dest="db_command", required=True)
-    up = db_sub.add_parser("upgrade", help="bring the store's schema to this version (migrations)")
-    up.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
-    up.set_defaults(func=cmd_db_upgrade)
+    up = db_sub.add_parser("upgrade", help="bring the store's schema to this version (migrations); makes the schema "
+                                         "in an existing empty database, refuses a missing SQLite file")
+    up.add_argument("--db", help=EXISTING_DB)
+    up.set_defaults(func=_admin("cmd_db_upgrade"))
     backup = db_sub.add_parser("backup", help="consistent online copy of a SQLite store")
     backup.add_argument("path", help="file to write (must not exist)")
-    backup.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
-    backup.set_defaults(func=cmd_db_backup)
+    backup.add_argument("--db", help=EXISTING_DB)
+    backup.set_defaults(func=_admin("cmd_db_backup"))
 
-    rp = sub.add_parser("replay", help="rebuild a channel's state from its log; --check compares it")
+    rp = sub.add_parser("replay", help="rebuild a channel's state from its log in an existing store; --check "
+                                   "compares it")
     rp.add_argument("channel")
     rp.add_argument("--from-snapshot", type=int, help="start from this snapshot instead of the creation")
     rp.add_argument("--check", action="store_true", help="compare with the stored state; exit 1 on a mismatch")
     rp.add_argument("--output", help="write the replayed state (JSON) to this file")
     rp.add_argument("--quiet", action="store_true", help="no progress bar")
-    rp.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
-    rp.set_defaults(func=cmd_replay)
+    rp.add_argument("--db", help=EXISTING_DB)
+    rp.set_defaults(func=_admin("cmd_replay"))
 
     from . import techcli
 

@@ -210,7 +210,7 @@ def test_get_snapshot_with_a_device_key_is_403(
 def test_get_snapshot_bad_id_is_422(
     client: TestClient, keys: Keys, channel: dict[str, Any]
 ) -> None:
-    for sid in ("abc", "1.5"):
+    for sid in ("abc", "1.5", str(2**31)):  # past the snapshot key (int4 on PostgreSQL): bad input, not a 500
         expect_error(
             client, "GET", f"{SNAPSHOTS}/{sid}", 422, "validation_error", headers=keys["technician"]
         )
@@ -221,7 +221,7 @@ def test_get_snapshot_unknown_or_of_another_channel_is_404(
 ) -> None:
     tech = keys["technician"]
     take(client, tech)
-    for sid in (987654, other_snapshot):
+    for sid in (987654, 2**31 - 1, other_snapshot):
         expect_error(client, "GET", f"{SNAPSHOTS}/{sid}", 404, "snapshot_not_found", headers=tech)
     expect_error(
         client,
@@ -266,6 +266,80 @@ def test_get_snapshot_contents(client: TestClient, keys: Keys, channel: dict[str
     expected = max(abs(d0 - c0), abs(d0 - c0 + 100 * (d1 - c1)))
     assert again["max_difference_from_current"] == pytest.approx(expected, rel=1e-9)
     assert again["weights"] == rep["weights"]  # the snapshot itself does not change
+
+
+def test_get_snapshot_bad_against_is_422(client: TestClient, keys: Keys, channel: dict[str, Any]) -> None:
+    sid = take(client, keys["technician"])["id"]
+    for against in ("abc", "1.5", str(2**31)):
+        expect_error(client, "GET", f"{SNAPSHOTS}/{sid}", 422, "validation_error", headers=keys["technician"],
+                     params={"against": against})
+
+
+def test_get_snapshot_against_an_unknown_snapshot_is_404(
+    client: TestClient, keys: Keys, channel: dict[str, Any], other_snapshot: int
+) -> None:
+    tech = keys["technician"]
+    sid = take(client, tech)["id"]
+    for against in (987654, 2**31 - 1, other_snapshot):
+        expect_error(client, "GET", f"{SNAPSHOTS}/{sid}", 404, "snapshot_not_found", headers=tech,
+                     params={"against": against})
+
+
+def test_curve_difference_is_the_largest_on_the_standard_grid_and_where(
+    client: TestClient, keys: Keys, make_channel: Any
+) -> None:
+    """One figure for the page, the command line and the API: the largest difference on the
+    model's standard grid (201 points over [0, 100]), with where it is."""
+    tech = keys["technician"]
+    base = "/v1/channels/site-a.bow"
+    make_channel("site-a.bow", basis={"kind": "poly", "degree": 2})
+
+    def fit(ys: list[float]) -> dict[str, Any]:
+        body = {"points": [{"x": x, "y": y} for x, y in zip(BENCH_X, ys, strict=True)]}
+        return ok(client.post(f"{base}/calibrate", json=body, headers=tech))  # type: ignore[no-any-return]
+
+    first = fit(BENCH_Y)
+    # a bow: the difference is largest inside the range, at x = 100/3, between grid points
+    bowed = fit([y + 1.0 - 0.0002 * (x - 100 / 3) ** 2 for x, y in zip(BENCH_X, BENCH_Y, strict=True)])
+    grid = np.linspace(0.0, 100.0, 201)  # the standard grid, by numpy
+    old, new = (np.polynomial.Polynomial(r["poly_coefficients"]) for r in (first, bowed))
+    gap = np.abs(new(grid) - old(grid))
+    snap = ok(client.get(f"{base}/snapshots/{first['snapshot_after']}", headers=tech))
+    assert snap["curve_difference"] == {"against": None, "max": pytest.approx(gap.max(), rel=1e-9),
+                                        "at": grid[np.argmax(gap)], "grid_points": 201, "left_out": 0}
+    assert snap["curve_difference"]["at"] == 33.5
+    assert snap["max_difference_from_current"] == snap["curve_difference"]["max"]
+    # against another snapshot: the same figure both ways; the current curve plays no part
+    fit(BENCH_Y)
+    ab = ok(client.get(f"{base}/snapshots/{first['snapshot_after']}", headers=tech,
+                       params={"against": bowed["snapshot_after"]}))["curve_difference"]
+    ba = ok(client.get(f"{base}/snapshots/{bowed['snapshot_after']}", headers=tech,
+                       params={"against": first["snapshot_after"]}))["curve_difference"]
+    assert ab == {**snap["curve_difference"], "against": bowed["snapshot_after"]}
+    assert (ba["max"], ba["at"]) == (ab["max"], ab["at"])
+    same = ok(client.get(f"{base}/snapshots/{first['snapshot_after']}", headers=tech,
+                         params={"against": first["snapshot_after"]}))["curve_difference"]
+    assert (same["max"], same["at"]) == (0.0, 0.0)  # equal curves: zero, at the first grid point
+
+
+def test_curve_difference_of_a_two_input_channel_names_both_inputs(
+    client: TestClient, keys: Keys, make_channel: Any
+) -> None:
+    tech = keys["technician"]
+    base = "/v1/channels/site-a.two"
+    make_channel("site-a.two", inputs=[{"name": "raw", "min": 0.0, "max": 10.0},
+                                       {"name": "tc", "min": 0.0, "max": 40.0}])
+    pts = [(a, b) for a in (0.0, 5.0, 10.0) for b in (0.0, 20.0, 40.0)]
+
+    def fit(c: tuple[float, float, float]) -> dict[str, Any]:
+        body = {"points": [{"x": [a, b], "y": c[0] + c[1] * a + c[2] * b} for a, b in pts]}
+        return ok(client.post(f"{base}/calibrate", json=body, headers=tech))  # type: ignore[no-any-return]
+
+    first = fit((1.0, 2.0, 0.1))
+    fit((1.0, 2.0, 0.1 + 0.005))  # differs by 0.005 tc: largest where tc is largest
+    d = ok(client.get(f"{base}/snapshots/{first['snapshot_after']}", headers=tech))["curve_difference"]
+    assert d["max"] == pytest.approx(0.005 * 40.0, rel=1e-9) and d["left_out"] == 0
+    assert d["at"][1] == 40.0 and 0.0 <= d["at"][0] <= 10.0 and len(d["at"]) == 2
 
 
 # POST /v1/channels/{id}/rollback --------------------------------------------------------------

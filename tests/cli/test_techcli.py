@@ -11,6 +11,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 from curvekeeper import techcli
 from curvekeeper.cli import main
@@ -209,6 +210,40 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     assert main(["rollback", cid, str(taken), "--yes"]) == 0
     assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
     capsys.readouterr()
+
+
+def test_diff_and_rollback_show_the_services_figure(api: Client, tmp_path: Path,
+                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    """The command line prints the service's largest difference and where it is, computed on
+    the model's standard grid; it computes none itself."""
+    cid = "cal.diff"
+    api.create_channel(poly(cid, degree=2))
+    xs = [0, 20, 40, 60, 80, 100]
+    line = [[x, 1.0 + 0.5 * x] for x in xs]
+    # the second curve differs by 1 - 0.0002 (x - 100/3)^2: largest at x = 100/3, between grid points
+    bowed = [[x, y + 1.0 - 0.0002 * (x - 100 / 3) ** 2] for x, y in line]
+    assert main(["calibrate", cid, str(write_csv(tmp_path / "a.csv", ["x", "y"], line)), "--yes"]) == 0
+    assert main(["calibrate", cid, str(write_csv(tmp_path / "b.csv", ["x", "y"], bowed)), "--yes"]) == 0
+    first = int(capsys.readouterr().out.rsplit("rollback cal.diff ", 1)[1].split()[0])  # the line, kept before
+    assert main(["snapshots", "take", cid]) == 0
+    second = int(capsys.readouterr().out.split()[1])  # the bowed curve
+    served = api.request("GET", f"/v1/channels/{cid}/snapshots/{first}?against={second}")["curve_difference"]
+    assert served["against"] == second and served["grid_points"] == 201 and served["left_out"] == 0
+    # the standard grid: 201 points over [0, 100] (numpy), so the largest is at 33.5, not 100/3
+    grid = np.linspace(0.0, 100.0, 201)
+    gap = np.abs(1.0 - 0.0002 * (grid - 100 / 3) ** 2)
+    assert served["at"] == grid[np.argmax(gap)] == 33.5
+    assert served["max"] == pytest.approx(gap.max(), rel=1e-9)
+
+    assert main(["snapshots", "diff", cid, str(first), str(second)]) == 0
+    out = capsys.readouterr().out
+    assert f"largest curve difference {techcli.common._num(served['max'])} degC at raw = 33.5 mV" in out
+    now = api.request("GET", f"/v1/channels/{cid}/snapshots/{first}")
+    assert now["curve_difference"] == {**served, "against": None}  # the current curve is the second
+    assert now["max_difference_from_current"] == served["max"]
+    assert main(["rollback", cid, str(first)]) == 2  # not confirmed: shows the difference, changes nothing
+    assert f"now vs the snapshot: largest curve difference {techcli.common._num(served['max'])} degC at raw = " \
+           "33.5 mV" in capsys.readouterr().out
 
 
 def test_calibrate_refuses_bad_files_and_reports_service_refusals(api: Client, tmp_path: Path,

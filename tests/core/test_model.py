@@ -16,6 +16,7 @@ import pytest
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel, ConfigError, StateError
 from curvekeeper.core.learners import ST_SCALE
+from curvekeeper.core.model import CURVE_GRID
 
 
 def model_of(body: dict[str, Any]) -> ChannelModel:
@@ -107,6 +108,33 @@ def test_steinhart_hart_coefficients_recovered_exactly() -> None:
     # check points are rounded to 0.1 ohm or better: 0.002 degC covers that rounding
     np.testing.assert_allclose(y, pts[:, 1], atol=2e-3)
     assert np.all(u < 1e-6)
+
+
+# --- curve differences ------------------------------------------------------------------
+
+def test_curve_difference_leaves_out_points_where_a_curve_is_not_finite() -> None:
+    """The largest difference over the standard grid (numpy's linspace of CURVE_GRID points),
+    among points where both curves are finite; max_curve_difference is not finite then."""
+    m = model_of({
+        "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 10.0}],
+        "output": {"name": "flow", "unit": "l/min", "transform": "log", "offset": 1.0},
+        "basis": {"kind": "poly", "degree": 1},
+    })
+    m.s.w = np.array([0.0, 800.0])  # ln(y + 1) = 800 t on t in [-1, 1]: exp overflows near the top
+    flat = np.zeros(2)  # y = e^0 - 1 = 0 everywhere
+    t = np.linspace(-1.0, 1.0, CURVE_GRID)
+    with np.errstate(over="ignore"):
+        gap = np.abs(np.exp(800.0 * t) - 1.0)
+    finite = np.isfinite(gap)
+    largest, at, left_out = m.curve_difference(flat)
+    assert 0 < left_out == CURVE_GRID - finite.sum()
+    assert largest == pytest.approx(gap[finite].max(), rel=1e-12)
+    assert at is not None and at[0] == pytest.approx(5.0 + 5.0 * t[finite][-1], rel=1e-12)
+    assert not np.isfinite(m.max_curve_difference(flat))
+    same, where, n = m.curve_difference(m.s.w)  # itself: zero where finite, first at the grid's start
+    assert (same, n) == (0.0, left_out) and where is not None and where[0] == 0.0
+    m.s.w = np.array([np.nan, 0.0])  # nowhere finite
+    assert m.curve_difference(flat) == (None, None, CURVE_GRID)
 
 
 # --- learners against the closed form -----------------------------------------------

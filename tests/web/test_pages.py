@@ -230,9 +230,15 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     text = page.text_content("#overlay-result")
     assert "largest difference" in text and "degC" in text and "ohm" in text
     assert page.evaluate("document.getElementById('curve-plot').data.length") == 6
-    expected = served.api.get(f"/v1/channels/{cid}/snapshots/{day0['id']}").json()["max_difference_from_current"]
-    shown = float(text.split("current curve ")[1].split(" degC")[0])
-    assert shown == pytest.approx(expected, rel=0.05, abs=1e-3)  # the grid's maximum vs the service's
+    # the figure is the service's, not one the page computes: the same number, and its text
+    # is that number to 3 significant digits, where it is to 4 (the page's CK.num)
+    served_snapshot = served.api.get(f"/v1/channels/{cid}/snapshots/{day0['id']}").json()
+    diff = served_snapshot["curve_difference"]
+    assert diff["max"] == served_snapshot["max_difference_from_current"] and diff["against"] is None
+    assert float(page.get_attribute("#overlay-result", "data-max-difference") or "nan") == diff["max"]
+    shown, at = text.split("current curve ")[1].split(" degC at ")
+    assert float(shown) == float(f"{diff['max']:.3g}")
+    assert float(at.split(" ohm")[0]) == float(f"{diff['at']:.4g}")
     shot(page, "channel-overlay.png")
     if not README_SHOT.exists() or os.environ.get("CURVEKEEPER_UPDATE_SCREENSHOTS") == "1":
         README_SHOT.parent.mkdir(parents=True, exist_ok=True)

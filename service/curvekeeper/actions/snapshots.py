@@ -36,20 +36,44 @@ def list_(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) 
                 encode_cursor(rows[limit - 1].pk) if len(rows) > limit else None)
 
 
-def get(repo: Repository, channel_id: str, snapshot_id: int) -> dict[str, Any]:
+def difference(reference: ChannelModel, other: ChannelModel) -> dict[str, Any]:
+    """The largest difference between two curves over the reference's standard grid
+    (``ChannelModel.curve_difference``): ``max`` in output units, ``at`` the raw inputs
+    where it is (a number for one input, a list for several), ``grid_points``, and
+    ``left_out``, the points where either curve is not finite. ``max`` and ``at`` are
+    None when the curves cannot be compared (no common finite point, another basis)."""
+    grid_points = len(reference.curve_values(reference.weights))
+    if other.weights.shape != reference.weights.shape:
+        return {"max": None, "at": None, "grid_points": grid_points, "left_out": grid_points}
+    largest, at, left_out = reference.curve_difference(np.asarray(other.weights))
+    where = None if at is None else (float(at[0]) if at.size == 1 else at.tolist())
+    return {"max": largest, "at": where, "grid_points": grid_points, "left_out": left_out}
+
+
+def get(repo: Repository, channel_id: str, snapshot_id: int, against: int | None = None) -> dict[str, Any]:
+    """One snapshot with its curve summary and its largest difference from the current
+    curve; ``curve_difference`` compares it with snapshot ``against`` instead, if given."""
     ch, st = load(repo, channel_id)
-    snap = repo.get_snapshot(ch.pk, snapshot_id)
-    if snap is None:
-        raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot_id}")
+    snaps: dict[int, Snapshot] = {}
+    for sid in (snapshot_id,) if against is None else (snapshot_id, against):
+        snap = repo.get_snapshot(ch.pk, sid)
+        if snap is None:
+            raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {sid}")
+        snaps[sid] = snap
+    snap = snaps[snapshot_id]
     current = read_model(repo, st)
     old = ChannelModel.from_state(snap.config, snap.model_state)
+    from_current = difference(current, old)
     summary = old.summary()
     out = _item(snap)
     out.update({
         "weights": old.weights.tolist(), "basis": old.config["basis"], "rmse": summary["rmse"],
         "drift": summary["drift"], "config": old.config,
-        "max_difference_from_current": current.max_curve_difference(np.asarray(old.weights))
-        if old.weights.shape == current.weights.shape else None,
+        "max_difference_from_current": from_current["max"],
+        "curve_difference": {"against": against, **(
+            from_current if against is None else difference(ChannelModel.from_state(snaps[against].config,
+                                                                               snaps[against].model_state),
+                                                            old))},
     })
     out.update(old.raw_coefficients())
     return out

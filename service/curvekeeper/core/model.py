@@ -105,6 +105,7 @@ class ChannelModel:
         out = config["output"]
         self.transform = OutputTransform(out["transform"], out["offset"])
         self.s = state
+        self._grid_x: Array | None = None  # the standard grid, (g, d) raw inputs
         self._grid_phi: Array | None = None
         self._compile_params()
 
@@ -261,7 +262,7 @@ class ChannelModel:
         Phi = self.basis.expand(Xa)
         z = self.transform.forward(ya)
         fit = fit_least_squares(Phi, z, has_intercept=self.basis.has_intercept)
-        old = self.curve_values(self.s.w)
+        old = self.s.w.copy()
         s = self.s
         s.w = fit.weights.copy()
         s.w_ref = fit.weights.copy()
@@ -281,7 +282,7 @@ class ChannelModel:
         s.reset_detector()
         s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
         s.max_curve_change = 0.0
-        change = float(np.max(np.abs(self.curve_values(s.w) - old)))
+        change = self.max_curve_difference(old)
         report: dict[str, Any] = {
             "weights": fit.weights.tolist(),
             "weight_sd": _nan_to_none(fit.weight_sd),
@@ -338,16 +339,40 @@ class ChannelModel:
     def out_of_range(self, X: Any) -> NDArray[np.bool_]:
         return self.scaler.out_of_range(self.scaler.check(X))
 
+    def _grid(self) -> tuple[Array, Array]:
+        """The standard grid, (g, d) raw inputs, and its basis (g, p), made once."""
+        if self._grid_x is None or self._grid_phi is None:
+            self._grid_x = self.scaler.grid(CURVE_GRID)
+            self._grid_phi = self.basis.expand(self._grid_x)
+        return self._grid_x, self._grid_phi
+
     def curve_values(self, weights: Array) -> Array:
         """The curve with the given weights on the standard grid, output units."""
-        if self._grid_phi is None:
-            self._grid_phi = self.basis.expand(self.scaler.grid(CURVE_GRID))
-        y, _ = self.transform.inverse(self._grid_phi @ weights)
+        y, _ = self.transform.inverse(self._grid()[1] @ weights)
         return y
 
+    def _gap(self, weights: Array) -> Array:
+        """|f_now(x) - f_other(x)| on the standard grid (g,), output units (NaN where both
+        curves overflow alike)."""
+        with np.errstate(invalid="ignore"):
+            return np.abs(self.curve_values(self.s.w) - self.curve_values(weights))
+
     def max_curve_difference(self, weights: Array) -> float:
-        """Largest |f_now(x) - f_other(x)| over the input range, output units."""
-        return float(np.max(np.abs(self.curve_values(self.s.w) - self.curve_values(weights))))
+        """Largest |f_now(x) - f_other(x)| over the input range, output units (not finite
+        when either curve is not finite somewhere on the grid)."""
+        return float(np.max(self._gap(weights)))
+
+    def curve_difference(self, weights: Array) -> tuple[float | None, Array | None, int]:
+        """``max_curve_difference`` among the grid points where both curves are finite, with
+        the raw inputs x (d,) where it is and how many grid points were left out as not
+        finite; ``(None, None, g)`` when no point is finite in both."""
+        gap = self._gap(weights)
+        finite = np.isfinite(gap)
+        left_out = int(gap.size - np.count_nonzero(finite))
+        if left_out == gap.size:
+            return None, None, left_out
+        i = int(np.argmax(np.where(finite, gap, -np.inf)))  # the first of equal largest
+        return float(gap[i]), self._grid()[0][i].copy(), left_out
 
     def set_reference(self) -> None:
         """Accept the current curve as the reference for the tolerance check and l2 pull."""

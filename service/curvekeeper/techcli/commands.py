@@ -11,7 +11,7 @@ from typing import Any, TextIO
 from urllib.parse import urlencode
 
 from ..client import Client, ClientError
-from .common import EXPORT_FIELDS, LocalError, _confirm, _json, _largest_difference, _num, _pages, _table, _unit
+from .common import EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
 from .csvfiles import read_points
 
 
@@ -142,14 +142,14 @@ def snapshots_take(client: Client, args: argparse.Namespace) -> int:
 
 
 def snapshots_diff(client: Client, args: argparse.Namespace) -> int:
-    _, line = _largest_difference(client, args.channel, args.a, args.b)
+    _, line = _difference(client, args.channel, args.a, args.b)
     print(f"{args.channel}: snapshot {args.a} vs snapshot {args.b}: {line}")
     return 0
 
 
 def rollback(client: Client, args: argparse.Namespace) -> int:
-    snap = client.request("GET", f"/v1/channels/{args.channel}/snapshots/{args.snapshot}")
-    cfg, line = _largest_difference(client, args.channel, None, args.snapshot)
+    cfg = client.get_channel(args.channel)
+    snap, line = _difference(client, args.channel, args.snapshot, None)
     label = f" '{snap['label']}'" if snap.get("label") else ""
     print(f"{args.channel}: roll back from version {cfg.get('version')} to snapshot {args.snapshot}{label} "
           f"({snap.get('reason')}, version {snap.get('version')}, {snap.get('created_at')})")

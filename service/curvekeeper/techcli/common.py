@@ -19,7 +19,6 @@ from ..client import Client, ClientError
 DEFAULT_URL = "http://127.0.0.1:8000"
 CHANNEL_ID = re.compile(r"^[a-z0-9._-]{1,128}$")
 PAGE = 1000  # the service's largest page
-DIFF_POINTS = 201  # grid points over one input's range for curve differences; several inputs: <= 4096 in all
 EXPORT_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "y", "residual", "accepted", "reason"]
 
 
@@ -149,47 +148,19 @@ def _unit(cfg: dict[str, Any]) -> str:
     return str(cfg.get("output", {}).get("unit") or "")
 
 
-def _grid(inputs: list[dict[str, Any]]) -> list[Any]:
-    """Points over the declared input ranges: a list of numbers for one input, of lists for several."""
-    import numpy as np
-
-    if len(inputs) == 1:
-        return [float(v) for v in np.linspace(inputs[0]["min"], inputs[0]["max"], DIFF_POINTS)]
-    per_axis = max(3, int(round(4096 ** (1.0 / len(inputs)))))
-    axes = [np.linspace(i["min"], i["max"], per_axis) for i in inputs]
-    mesh = np.meshgrid(*axes, indexing="ij")
-    return [list(map(float, row)) for row in np.stack([m.ravel() for m in mesh], axis=1)]
-
-
-def _largest_difference(client: Client, channel: str, a: int | None, b: int | None
-                        ) -> tuple[dict[str, Any], str]:
-    """The channel and a line on max |f_a(x) - f_b(x)| over its input range and where it is;
-    ``None`` as a snapshot is the current state."""
-    cfg = client.get_channel(channel)
-    grid = _grid(cfg["inputs"])
-    ya = client.predict(channel, grid, snapshot=a)["y"]
-    yb = client.predict(channel, grid, snapshot=b)["y"]
-    for name, ys in ((a, ya), (b, yb)):
-        if all(v is None for v in ys):
-            what = "the current curve" if name is None else f"snapshot {name}"
-            return cfg, (f"{what} has no finite values over the input range (not calibrated yet?), "
-                         "so it cannot be compared")
-    best: float | None = None
-    where: Any = None
-    skipped = 0
-    for x, p, q in zip(grid, ya, yb, strict=True):
-        if p is None or q is None:
-            skipped += 1
-            continue
-        d = abs(p - q)
-        if best is None or d > best:
-            best, where = d, x
-    if best is None:
-        return cfg, "the two curves have no finite values at the same inputs: they cannot be compared"
-    line = f"largest curve difference {_num(best)} {_unit(cfg)}".rstrip() + f" at {_at(cfg, where)}"
-    if skipped:
-        line += f" ({skipped} of {len(grid)} grid points without a finite value left out)"
-    return cfg, line
+def _difference(client: Client, channel: str, snapshot: int, against: int | None
+                ) -> tuple[dict[str, Any], str]:
+    """The snapshot (as the service answers it) and a line on the largest difference between
+    its curve and the current one, or snapshot ``against``'s: the service's figure and where."""
+    query = "" if against is None else f"?{urlencode({'against': against})}"
+    snap = client.request("GET", f"/v1/channels/{channel}/snapshots/{snapshot}{query}")
+    d, cfg = snap["curve_difference"], snap["config"]
+    if d["max"] is None:
+        return snap, "the two curves have no finite values at the same inputs: they cannot be compared"
+    line = f"largest curve difference {_num(d['max'])} {_unit(cfg)}".rstrip() + f" at {_at(cfg, d['at'])}"
+    if d["left_out"]:
+        line += f" ({d['left_out']} of {d['grid_points']} grid points without a finite value left out)"
+    return snap, line
 
 
 def _at(cfg: dict[str, Any], x: Any) -> str:

@@ -5,12 +5,16 @@ from __future__ import annotations
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query
+from fastapi import Path as FastApiPath
 
 from ...actions import events, snapshots
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import RollbackIn, SnapshotIn
 from .channels import ChannelPath, Limit
+
+MAX_ID = 2**31 - 1  # the snapshot key is a 32-bit integer on PostgreSQL: a larger id is bad input
+SnapshotId = Annotated[int, FastApiPath(le=MAX_ID)]
 
 router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["snapshots"],
                    responses={**COMMON_ERRORS, **error_responses(404)})
@@ -33,10 +37,13 @@ def take_snapshot(channel_id: ChannelPath, ctx: Ctx, who: Who, body: SnapshotIn 
 
 
 @router.get("/snapshots/{snapshot_id}", summary="One snapshot with its curve summary")
-def get_snapshot(channel_id: ChannelPath, snapshot_id: int, ctx: Ctx, who: Who) -> dict[str, Any]:
+def get_snapshot(channel_id: ChannelPath, snapshot_id: SnapshotId, ctx: Ctx, who: Who,
+                 against: Annotated[int | None, Query(le=MAX_ID, description="compare the snapshot's curve with "
+                                                      "this snapshot's instead of the current one")] = None
+                 ) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
-        return snapshots.get(repo, channel_id, snapshot_id)
+        return snapshots.get(repo, channel_id, snapshot_id, against)
 
 
 @router.post("/rollback", summary="Restore a snapshot (the current state is snapshotted first)")

@@ -10,7 +10,6 @@ const page = { id: decodeURIComponent(location.pathname.replace(/^\/ui\/channels
                ch: null, curve: null, samples: [], snapshots: [], events: [], overlay: null, rollbackTarget: null };
 const path = (rest = "") => `/v1/channels/${encodeURIComponent(page.id)}${rest}`;
 const outUnit = () => page.ch.output.unit || "";
-const inUnit = () => page.ch.inputs[0].unit || "";
 const firstX = (x) => (Array.isArray(x) ? x[0] : x);
 
 function cursorAfter(seq) {  // the API's cursor: base64url of "v1:<seq>"
@@ -202,30 +201,33 @@ async function loadAll() {
   document.body.dataset.loaded = String(page.ch.version);
 }
 
-async function compareWith(snapshot) {
-  const pts = page.curve.points;
-  const res = await CK.api("POST", path("/predict"), { x: pts.map((p) => p.x), snapshot: snapshot.id });
-  let worst = { diff: -1, x: null };
-  res.y.forEach((y, i) => {
-    const now = pts[i].y;
-    if (y === null || now === null) return;
-    const diff = Math.abs(y - now);
-    if (diff > worst.diff) worst = { diff, x: firstX(pts[i].x) };
-  });
-  return { y: res.y, worst };
+// The largest difference from the current curve is the service's figure (one grid, one
+// computation for the page, the command line and the API); the page only draws.
+async function difference(snapshot) {
+  return (await CK.api("GET", path(`/snapshots/${snapshot.id}`))).curve_difference;
+}
+
+function differenceParts(d) {  // the service's figure and where, for the text; null when not comparable
+  if (d.max === null) return null;
+  const at = (Array.isArray(d.at) ? d.at : [d.at]).map((v, i) => CK.num(v, page.ch.inputs[i].unit || "")).join(", ");
+  return { figure: CK.num(d.max, outUnit(), 3), at };
 }
 
 async function overlaySnapshot(snapshot, quiet = false) {
   const out = document.getElementById("overlay-result");
   try {
-    const { y, worst } = await compareWith(snapshot);
-    page.overlay = { snapshot, worst, trace: {
-      x: page.curve.points.map((p) => firstX(p.x)), y, mode: "lines", uid: "overlay",
+    const pts = page.curve.points;
+    const [res, diff] = await Promise.all([
+      CK.api("POST", path("/predict"), { x: pts.map((p) => p.x), snapshot: snapshot.id }), difference(snapshot)]);
+    page.overlay = { snapshot, diff, trace: {
+      x: pts.map((p) => firstX(p.x)), y: res.y, mode: "lines", uid: "overlay",
       name: `snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version})`,
       line: { color: COLOURS.overlay, width: 2, dash: "dash" } } };
+    const parts = differenceParts(diff);
     out.textContent = `Snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version}) overlaid: ` +
-      `largest difference from the current curve ${CK.num(worst.diff, outUnit(), 3)} at ` +
-      `${CK.num(worst.x, inUnit())}.`;
+      (parts ? `largest difference from the current curve ${parts.figure} at ${parts.at}.`
+             : "the two curves have no finite values in common, so no difference can be given.");
+    out.dataset.maxDifference = String(diff.max);
     out.dataset.snapshot = String(snapshot.id);
     if (!quiet) await renderCurve();
   } catch (e) {
@@ -234,14 +236,14 @@ async function overlaySnapshot(snapshot, quiet = false) {
 }
 
 async function askRollback(snapshot) {
-  const { el, num } = CK;
+  const { el } = CK;
   const text = document.getElementById("rollback-text");
   const dialog = document.getElementById("rollback-dialog");
   page.rollbackTarget = snapshot;
   let diff = "an amount that could not be computed";
   try {
-    const { worst } = await compareWith(snapshot);
-    diff = `up to ${num(worst.diff, outUnit(), 3)} (at ${num(worst.x, inUnit())})`;
+    const parts = differenceParts(await difference(snapshot));
+    if (parts) diff = `up to ${parts.figure} (at ${parts.at})`;
   } catch (_) { /* the dialog still says what will change */ }
   const ch = page.ch;
   text.replaceChildren(
