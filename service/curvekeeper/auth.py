@@ -77,11 +77,3 @@ def create_key(repo: Repository, *, role: str, prefixes: list[str], label: str |
     key, secret = new_key(role=role, prefixes=prefixes, label=label, secret=secret)
     repo.insert_key(key)
     return key, secret
-
-
-def ensure_admin_key(repo: Repository, secret: str) -> ApiKey:
-    """Make sure an admin key with this secret exists (CURVEKEEPER_ADMIN_KEY); see
-    ``curvekeeper.actions.keys.ensure_admin_key``."""
-    from .actions import keys  # the actions import this module: keys are made there
-
-    return keys.ensure_admin_key(repo, secret)

@@ -43,7 +43,7 @@ JSON = {"Content-Type": "application/json"}
 CHANNEL: dict[str, Any] = {"inputs": [{"name": "raw", "min": 0, "max": 100}], "basis": {"kind": "poly", "degree": 3}}
 SEED_KEY = "bench-seed"
 SEED_SAMPLES = 3  # samples learned by every seeded channel
-CACHE_SIZE = 4096  # decoded models the server keeps (service/curvekeeper/store/cache.py, VersionCache default)
+CACHE_SIZE = 4096  # decoded models the server keeps (curvekeeper.actions.unit.CACHE_SIZE)
 
 
 @dataclass(frozen=True)
@@ -256,6 +256,7 @@ def seed(db: Path, n: int, chunk: int = 10_000) -> float:
     transactions in all. Replaying any of them gives its stored state back."""
     from curvekeeper.actions import channels, samples
     from curvekeeper.actions.samples import SampleIn
+    from curvekeeper.actions.unit import Work
     from curvekeeper.store import Store
     from curvekeeper.store.tables import Channel, ChannelState, Event, Sample, utcnow
     from sqlalchemy import insert, select
@@ -264,10 +265,10 @@ def seed(db: Path, n: int, chunk: int = 10_000) -> float:
     store = Store(f"sqlite:///{db}")
     try:
         first = channel_id(0)
-        with store.transaction(write=True) as repo:
-            channels.create(repo, {"id": first, **CHANNEL}, SEED_KEY)
+        with Work(store).unit(write=True) as unit:
+            channels.create(unit.repo, {"id": first, **CHANNEL}, SEED_KEY)
             rs = [reading(k) for k in range(SEED_SAMPLES)]
-            samples.ingest(repo, first, [SampleIn(r["x"], r["y"], seq=r["seq"]) for r in rs], "seed", SEED_KEY)
+            samples.ingest(unit, first, [SampleIn(r["x"], r["y"], seq=r["seq"]) for r in rs], "seed", SEED_KEY)
         tables = {name: cast(Any, t.__table__) for name, t in
                   (("channel", Channel), ("state", ChannelState), ("sample", Sample), ("event", Event))}
         rows: dict[str, list[dict[str, Any]]] = {}

@@ -15,7 +15,7 @@ from alembic import command
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
 from curvekeeper.actions import channels
-from curvekeeper.actions.models import read_model
+from curvekeeper.actions.unit import Work
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.store import Store, migrate
@@ -116,13 +116,14 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
         engine.dispose()
     store = Store(empty_url)
     try:
-        with store.transaction(write=False) as repo:
-            got = channels.get(repo, "site-a.p1")
+        with Work(store).unit(write=False) as unit:
+            repo = unit.repo
+            got = channels.get(unit, "site-a.p1")
             assert got["n_samples"] == 60 and got["drift"]["detector"] == "cusum"
             assert got["rmse"] == model.summary()["rmse"]
             st = repo.learning_state("site-a.p1", lock=False)
             assert st is not None
-            loaded = read_model(repo, st)
+            loaded = unit.read_model(st)
             assert loaded.to_state() == state and loaded.config == config
             snap = repo.get_snapshot(1, 1)
             assert snap is not None

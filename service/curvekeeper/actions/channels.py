@@ -13,8 +13,8 @@ from ..core.config import MUTABLE
 from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
-from .models import read_model, save_model, summary_columns, write_model
 from .paging import Page, decode_cursor, encode_cursor
+from .unit import Unit, summary_columns
 
 STATES = {"ok", "warning", "alarm", "out_of_tolerance"}
 
@@ -69,18 +69,20 @@ def create(repo: Repository, body: ChannelConfig | dict[str, Any], key_id: str) 
     return view(ch, st, model)
 
 
-def get(repo: Repository, channel_id: str) -> dict[str, Any]:
+def get(unit: Unit, channel_id: str) -> dict[str, Any]:
+    repo = unit.repo
     ch, st = load(repo, channel_id)
-    return view(ch, st, read_model(repo, st))
+    return view(ch, st, unit.read_model(st))
 
 
-def list_(repo: Repository, *, prefix: str | None, state: str | None, cursor: str | None,
+def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | None,
           limit: int) -> Page:
+    repo = unit.repo
     if state is not None and state not in STATES:
         raise InvalidRequest(f"state must be one of {', '.join(sorted(STATES))}", details={"field": "state"})
     after = decode_cursor(cursor)
     rows = repo.list_channels(prefix=prefix, state=state, after_pk=after, limit=limit + 1)
-    items = [view(ch, st, read_model(repo, st)) for ch, st in rows[:limit]]
+    items = [view(ch, st, unit.read_model(st)) for ch, st in rows[:limit]]
     nxt = encode_cursor(rows[limit - 1][0].pk) if len(rows) > limit else None
     return Page(items, nxt)
 
@@ -99,13 +101,14 @@ def merge(config: dict[str, Any], changes: dict[str, Any]) -> dict[str, Any]:
     return merged
 
 
-def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: str) -> dict[str, Any]:
+def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> dict[str, Any]:
+    repo = unit.repo
     ch, st = load(repo, channel_id, lock=True)
     fixed = sorted(set(changes) - MUTABLE)
     if fixed:
         raise ImmutableField(f"{', '.join(fixed)} cannot change after creation; create a new channel",
                              details={"fields": fixed})
-    model = write_model(repo, st)
+    model = unit.write_model(st)
     config = validated(merge(model.config, changes))
     try:
         updated = model.with_settings(config)
@@ -113,7 +116,7 @@ def patch(repo: Repository, channel_id: str, changes: dict[str, Any], key_id: st
         raise ImmutableField(exc.message) from exc
     version = st.version + 1
     repo.save_config(ch, config)
-    save_model(repo, st, updated, version)
+    unit.save_model(st, updated, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes, "config": config}}])
     return view(ch, st, updated)

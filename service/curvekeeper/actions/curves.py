@@ -10,9 +10,8 @@ import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
 from ..errors import ChannelNotFound, InvalidRequest, PayloadTooLarge, SnapshotNotFound
-from ..store import Repository
 from .channels import load
-from .models import read_model, save_model, write_model
+from .unit import Unit, restore
 
 HISTORY_LIMIT = 1_000_000
 
@@ -25,16 +24,17 @@ def _floats(a: np.ndarray) -> list[float | None]:
     return out
 
 
-def _model_for(repo: Repository, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
+def _model_for(unit: Unit, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
+    repo = unit.repo
     st = repo.learning_state(channel_id, lock=False)  # a plain row: the cached model holds the rest
     if st is None:
         raise ChannelNotFound(f"no channel {channel_id!r}")
     if snapshot is None:
-        return read_model(repo, st), st.version
+        return unit.read_model(st), st.version
     snap = repo.get_snapshot(st.channel_pk, snapshot)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
-    return ChannelModel.from_state(snap.config, snap.model_state), snap.version
+    return restore(snap.config, snap.model_state, f"snapshot {snap.pk}"), snap.version
 
 
 def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
@@ -51,8 +51,8 @@ def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
     raise InvalidRequest(f"x must be {shape}", details={"field": "x"})
 
 
-def predict(repo: Repository, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
-    model, version = _model_for(repo, channel_id, snapshot)
+def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
+    model, version = _model_for(unit, channel_id, snapshot)
     X = _inputs(model, x)
     try:
         y, u = model.predict(X)
@@ -63,9 +63,10 @@ def predict(repo: Repository, channel_id: str, x: list[Any], snapshot: int | Non
             "unit": model.config["output"]["unit"]}
 
 
-def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
+def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
+    repo = unit.repo
     ch, st = load(repo, channel_id)
-    model = read_model(repo, st)
+    model = unit.read_model(st)
     grid = model.scaler.grid(points)
     y, u = model.predict(grid)
     k = model.config["coverage_factor"]
@@ -86,13 +87,14 @@ def curve(repo: Repository, channel_id: str, points: int) -> dict[str, Any]:
     return out
 
 
-def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[float], float]],
+def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], float]],
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None, dry_run: bool = False) -> dict[str, Any]:
     """Fit the points (and/or stored history) and make the fit the channel's curve; with
     ``dry_run``, only report what the fit would be, changing nothing."""
+    repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
-    model = write_model(repo, st)
+    model = unit.write_model(st)
     d = len(model.config["inputs"])
     xs: list[list[float]] = []
     ys: list[float] = []
@@ -133,7 +135,7 @@ def calibrate(repo: Repository, channel_id: str, *, points: list[tuple[list[floa
     state = model.to_state()
     after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=ch.config, model_state=state,
                                  version=version, n_samples=st.n_samples)
-    save_model(repo, st, model, version)
+    unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
                          "details": {"label": label, "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],

@@ -23,6 +23,7 @@ from ..errors import InvalidRequest, SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Sample
 from .channels import load
+from .unit import restore
 
 STATE_EVENTS = ("channel_created", "calibration", "settings_changed", "rollback")
 BATCH = 5000
@@ -66,7 +67,7 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
         snap = repo.get_snapshot(ch.pk, from_snapshot)
         if snap is None:
             raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {from_snapshot}")
-        model = ChannelModel.from_state(snap.config, snap.model_state)
+        model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
         version, seq = snap.version, snap.n_samples
     else:
         created = repo.first_event(ch.pk, "channel_created")
@@ -144,7 +145,7 @@ def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, de
         snap = repo.get_snapshot(channel_pk, details["snapshot"])
         if snap is None:
             raise SnapshotNotFound(f"the log names snapshot {details['snapshot']}, which is missing")
-        restored = ChannelModel.from_state(snap.config, snap.model_state)
+        restored = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
         restored.set_reference()
         restored.reset_drift()
         return restored

@@ -16,8 +16,8 @@ from ..store import Repository
 from ..store.repository import LearningState, SampleRows
 from ..store.tables import utcnow
 from .channels import load
-from .models import save_model, write_model
 from .paging import Page, decode_cursor, encode_cursor
+from .unit import Unit
 
 
 class SampleLike(Protocol):
@@ -61,11 +61,12 @@ def _wrong_inputs(i: int, d: int) -> InvalidRequest:
                           details={"index": i, "field": "x"})
 
 
-def ingest_channel(repo: Repository, st: LearningState, samples: Sequence[SampleLike],
+def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
                    source: str | None, key_id: str | None) -> ChannelOutcome:
     """Learn ``samples`` (in order) on a locked channel and write everything for it."""
+    repo = unit.repo
     now = utcnow()
-    model = write_model(repo, st)
+    model = unit.write_model(st)
     d = len(model.config["inputs"])
     seen: set[int] = set()
     if source is not None:
@@ -150,7 +151,7 @@ def ingest_channel(repo: Repository, st: LearningState, samples: Sequence[Sample
     if times:
         latest = max(times)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
-    save_model(repo, st, model, v0 + n_kept, **values)
+    unit.save_model(st, model, v0 + n_kept, **values)
     per_request: list[float | None] = [None] * len(samples)
     for k, i in enumerate(keep):
         per_request[i] = resid_list[k]
@@ -169,15 +170,16 @@ def _learning(repo: Repository, channel_id: str) -> LearningState:
     return st
 
 
-def ingest(repo: Repository, channel_id: str, samples: Sequence[SampleLike], source: str | None,
+def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike], source: str | None,
            key_id: str | None) -> ChannelOutcome:
-    return ingest_channel(repo, _learning(repo, channel_id), samples, source, key_id)
+    return ingest_channel(unit, _learning(unit.repo, channel_id), samples, source, key_id)
 
 
-def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], source: str | None,
+def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: str | None,
                    key_id: str | None) -> dict[str, Any]:
     """A gateway batch across channels: each channel's samples in request order, channels
     locked in id order, all in one transaction."""
+    repo = unit.repo
     groups: dict[str, list[int]] = {}
     for i, (cid, _) in enumerate(items):
         groups.setdefault(cid, []).append(i)
@@ -189,7 +191,7 @@ def ingest_gateway(repo: Repository, items: Sequence[tuple[str, SampleLike]], so
         idx = groups[cid]
         st = _learning(repo, cid)
         try:
-            out = ingest_channel(repo, st, [items[i][1] for i in idx], source, key_id)
+            out = ingest_channel(unit, st, [items[i][1] for i in idx], source, key_id)
         except InvalidRequest as exc:
             local = exc.details.get("index") if isinstance(exc.details, dict) else None
             where = idx[local] if local is not None else None

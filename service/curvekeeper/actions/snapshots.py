@@ -11,8 +11,8 @@ from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
 from .channels import load, view
-from .models import read_model, save_model
 from .paging import Page, decode_cursor, encode_cursor
+from .unit import Unit, restore
 
 
 def _item(snap: Snapshot) -> dict[str, Any]:
@@ -50,9 +50,10 @@ def difference(reference: ChannelModel, other: ChannelModel) -> dict[str, Any]:
     return {"max": largest, "at": where, "grid_points": grid_points, "left_out": left_out}
 
 
-def get(repo: Repository, channel_id: str, snapshot_id: int, against: int | None = None) -> dict[str, Any]:
+def get(unit: Unit, channel_id: str, snapshot_id: int, against: int | None = None) -> dict[str, Any]:
     """One snapshot with its curve summary and its largest difference from the current
     curve; ``curve_difference`` compares it with snapshot ``against`` instead, if given."""
+    repo = unit.repo
     ch, st = load(repo, channel_id)
     snaps: dict[int, Snapshot] = {}
     for sid in (snapshot_id,) if against is None else (snapshot_id, against):
@@ -61,8 +62,8 @@ def get(repo: Repository, channel_id: str, snapshot_id: int, against: int | None
             raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {sid}")
         snaps[sid] = snap
     snap = snaps[snapshot_id]
-    current = read_model(repo, st)
-    old = ChannelModel.from_state(snap.config, snap.model_state)
+    current = unit.read_model(st)
+    old = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
     from_current = difference(current, old)
     summary = old.summary()
     out = _item(snap)
@@ -71,17 +72,18 @@ def get(repo: Repository, channel_id: str, snapshot_id: int, against: int | None
         "drift": summary["drift"], "config": old.config,
         "max_difference_from_current": from_current["max"],
         "curve_difference": {"against": against, **(
-            from_current if against is None else difference(ChannelModel.from_state(snaps[against].config,
-                                                                               snaps[against].model_state),
+            from_current if against is None else difference(restore(snaps[against].config, snaps[against].model_state,
+                                                                   f"snapshot {against}"),
                                                             old))},
     })
     out.update(old.raw_coefficients())
     return out
 
 
-def rollback(repo: Repository, channel_id: str, snapshot_id: int, key_id: str | None) -> dict[str, Any]:
+def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None) -> dict[str, Any]:
     """Restore a snapshot's state; the current state is snapshotted first. The restored
     curve becomes the reference for the tolerance check and the drift watch restarts."""
+    repo = unit.repo
     ch, st = load(repo, channel_id, lock=True)
     snap = repo.get_snapshot(ch.pk, snapshot_id)
     if snap is None:
@@ -89,13 +91,13 @@ def rollback(repo: Repository, channel_id: str, snapshot_id: int, key_id: str | 
     before = repo.insert_snapshot(ch.pk, reason="before-rollback", label=f"before rollback to {snapshot_id}",
                                   config=ch.config, model_state=repo.model_state(ch.pk), version=st.version,
                                   n_samples=st.n_samples)
-    model = ChannelModel.from_state(snap.config, snap.model_state)
+    model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
     model.set_reference()
     model.reset_drift()
     version = st.version + 1
     if model.config != ch.config:  # the settings it was taken under come back with it
         repo.save_config(ch, model.config)
-    save_model(repo, st, model, version)
+    unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk}}])
     out = view(ch, st, model)

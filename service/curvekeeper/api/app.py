@@ -10,7 +10,9 @@ from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 from threadpoolctl import threadpool_limits
 
-from .. import __version__, auth
+from .. import __version__
+from ..actions import keys as keys_actions
+from ..actions.unit import Work
 from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics
@@ -47,11 +49,11 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         try:
             if settings.admin_key:
                 with store.transaction(write=True) as repo:
-                    auth.ensure_admin_key(repo, settings.admin_key)
+                    keys_actions.ensure_admin_key(repo, settings.admin_key)
         except BaseException:
             store.dispose()
             raise
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build)
+        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, Work(store))
         try:
             yield
         finally:

@@ -12,6 +12,7 @@ from typing import Annotated
 from fastapi import Depends, Header, HTTPException, Request
 from starlette.concurrency import run_in_threadpool
 
+from ..actions.unit import Work
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
 from ..errors import PayloadTooLarge
@@ -56,6 +57,8 @@ class AppContext:
     keys: KeyCache
     limiter: RateLimiter
     kernels: KernelBuild
+    #: units of work over the store, with the process's cache of decoded models
+    work: Work
 
 
 async def context(request: Request) -> AppContext:

@@ -18,8 +18,9 @@ from typing import TypeVar
 
 from starlette.concurrency import run_in_threadpool
 
+from ..actions.unit import Unit, Work
 from ..kernels import PROCESS
-from ..store import Repository, Store, WriteLockTaken
+from ..store import WriteLockTaken
 
 T = TypeVar("T")
 
@@ -27,20 +28,20 @@ T = TypeVar("T")
 INLINE_MAX_ITEMS = 1000
 
 
-def _in_transaction(store: Store, fn: Callable[[Repository], T], write: bool) -> T:
-    with store.transaction(write=write) as repo:
-        return fn(repo)
+def _in_unit(work: Work, fn: Callable[[Unit], T], write: bool) -> T:
+    with work.unit(write=write) as unit:
+        return fn(unit)
 
 
-async def run_store(store: Store, fn: Callable[[Repository], T], *, write: bool, items: int = 1) -> T:
-    """``fn(repo)`` in one transaction (committed on success), on the loop when small
+async def run_store(work: Work, fn: Callable[[Unit], T], *, write: bool, items: int = 1) -> T:
+    """``fn(unit)`` in one unit of work (committed on success), on the loop when small
     enough and the store allows it, else in a worker thread."""
-    if store.inline and items <= INLINE_MAX_ITEMS and PROCESS.ready:
+    if work.store.inline and items <= INLINE_MAX_ITEMS and PROCESS.ready:
         if not write:
-            return _in_transaction(store, fn, write=False)
+            return _in_unit(work, fn, write=False)
         try:
-            with store.transaction(write=True, wait=False) as repo:
-                return fn(repo)
+            with work.unit(write=True, wait=False) as unit:
+                return fn(unit)
         except WriteLockTaken:
             pass
-    return await run_in_threadpool(_in_transaction, store, fn, write)
+    return await run_in_threadpool(_in_unit, work, fn, write)

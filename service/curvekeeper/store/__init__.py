@@ -11,7 +11,6 @@ from sqlalchemy.orm import sessionmaker
 
 from ..errors import StoreBusy
 from . import migrate
-from .cache import VersionCache
 from .engine import is_sqlite, make_engine
 from .repository import Repository
 
@@ -46,7 +45,6 @@ class Store:
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
         self._write_now = sessionmaker(self.engine.execution_options(immediate=True, wait=False),
                                        expire_on_commit=False)
-        self.models = VersionCache()
         self.inline = is_sqlite(url)
 
     @contextmanager
@@ -61,7 +59,7 @@ class Store:
         else:
             session = (self._write if write else self._read)()
         try:
-            repo = Repository(session, self.models)
+            repo = Repository(session)
             yield repo
             session.commit()
         except OperationalError as exc:
@@ -74,8 +72,6 @@ class Store:
             raise
         finally:
             session.close()
-        for fn in repo.committed:
-            fn()
 
     def dispose(self) -> None:
         self.engine.dispose()

@@ -4,7 +4,7 @@ session scope commits or rolls back the whole request at once."""
 from __future__ import annotations
 
 import json
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from itertools import repeat
@@ -17,7 +17,6 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
-from .cache import VersionCache
 from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
@@ -93,14 +92,11 @@ EVENT_T = cast(Table, Event.__table__)
 
 
 class Repository:
-    """SQL for one transaction. ``cache`` holds decoded model states by (channel, version);
-    functions in ``committed`` run once the transaction has committed."""
+    """SQL for one transaction (the caller's unit of work commits or rolls it back)."""
 
-    def __init__(self, session: Session, cache: VersionCache | None = None) -> None:
+    def __init__(self, session: Session) -> None:
         self.session = session
         self.postgres = session.get_bind().dialect.name == "postgresql"
-        self.cache = cache if cache is not None else VersionCache(0)
-        self.committed: list[Callable[[], None]] = []
 
     # channels ---------------------------------------------------------------------
     def get_channel(self, channel_id: str) -> Channel | None:

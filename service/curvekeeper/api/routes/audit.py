@@ -19,6 +19,6 @@ def list_audit(ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None
                kind: Annotated[str | None, Query(max_length=32)] = None,
                key_id: Annotated[str | None, Query(max_length=40)] = None) -> dict[str, Any]:
     who.require("admin")
-    with ctx.store.transaction(write=False) as repo:
-        page = audit.list_(repo, kind=kind, key_id=key_id, cursor=cursor, limit=limit)
+    with ctx.work.unit(write=False) as unit:
+        page = audit.list_(unit.repo, kind=kind, key_id=key_id, cursor=cursor, limit=limit)
     return {"items": page.items, "next_cursor": page.next_cursor}

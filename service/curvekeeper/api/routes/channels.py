@@ -20,8 +20,8 @@ Limit = Annotated[int, Query(ge=1, le=1000)]
 @router.post("", status_code=201, summary="Create a channel", response_model=ChannelPublic)
 def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("technician")
-    with ctx.store.transaction(write=True) as repo:
-        return channels.create(repo, body, who.key_id)
+    with ctx.work.unit(write=True) as unit:
+        return channels.create(unit.repo, body, who.key_id)
 
 
 @router.get("", summary="List channels", response_model=ChannelPage)
@@ -29,21 +29,21 @@ def list_channels(ctx: Ctx, who: Who, prefix: Annotated[str | None, Query(max_le
                   state: Annotated[str | None, Query(description="ok, warning, alarm or out_of_tolerance")] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")
-    with ctx.store.transaction(write=False) as repo:
-        page = channels.list_(repo, prefix=prefix, state=state, cursor=cursor, limit=limit)
+    with ctx.work.unit(write=False) as unit:
+        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit)
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 
 @router.get("/{channel_id}", summary="A channel's configuration and summary", response_model=ChannelPublic)
 def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
-    with ctx.store.transaction(write=False) as repo:
-        return channels.get(repo, channel_id)
+    with ctx.work.unit(write=False) as unit:
+        return channels.get(unit, channel_id)
 
 
 @router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings",
               response_model=ChannelPublic)
 def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
-    with ctx.store.transaction(write=True) as repo:
-        return channels.patch(repo, channel_id, body.model_dump(exclude_unset=True), who.key_id)
+    with ctx.work.unit(write=True) as unit:
+        return channels.patch(unit, channel_id, body.model_dump(exclude_unset=True), who.key_id)

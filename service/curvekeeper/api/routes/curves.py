@@ -24,7 +24,7 @@ async def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) 
     if len(body.x) > ctx.settings.max_predict:
         raise PayloadTooLarge(f"at most {ctx.settings.max_predict} values per request")
     # 10,000 values take about 1 ms to compute: small enough for the loop
-    out = await run_store(ctx.store, lambda repo: curves.predict(repo, channel_id, body.x, body.snapshot),
+    out = await run_store(ctx.work, lambda unit: curves.predict(unit, channel_id, body.x, body.snapshot),
                           write=False, items=len(body.x) // 10)
     return out
 
@@ -35,14 +35,14 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
     who.require_channel(channel_id, "technician")
     if points > ctx.settings.max_curve_points:
         raise PayloadTooLarge(f"at most {ctx.settings.max_curve_points} points")
-    with ctx.store.transaction(write=False) as repo:
-        return curves.curve(repo, channel_id, points)
+    with ctx.work.unit(write=False) as unit:
+        return curves.curve(unit, channel_id, points)
 
 
 @router.post("/calibrate", summary="Closed-form least-squares calibration")
 def calibrate(channel_id: ChannelPath, body: CalibrateIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
-    with ctx.store.transaction(write=not body.dry_run) as repo:
-        return curves.calibrate(repo, channel_id, points=[(p.inputs(), p.y) for p in body.points],
+    with ctx.work.unit(write=not body.dry_run) as unit:
+        return curves.calibrate(unit, channel_id, points=[(p.inputs(), p.y) for p in body.points],
                                 include_history=body.include_history, since=body.since, until=body.until,
                                 last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run)

@@ -18,22 +18,22 @@ router = APIRouter(prefix="/v1/keys", tags=["keys"], responses={**COMMON_ERRORS,
 @router.post("", status_code=201, summary="Create a key (the secret is shown once)")
 def create_key(body: KeyCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("admin")
-    with ctx.store.transaction(write=True) as repo:
-        return keys.create(repo, role=body.role, prefixes=body.prefixes, label=body.label, key_id=who.key_id)
+    with ctx.work.unit(write=True) as unit:
+        return keys.create(unit.repo, role=body.role, prefixes=body.prefixes, label=body.label, key_id=who.key_id)
 
 
 @router.get("", summary="List keys (never their secrets)")
 def list_keys(ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("admin")
-    with ctx.store.transaction(write=False) as repo:
-        page = keys.list_(repo, cursor=cursor, limit=limit)
+    with ctx.work.unit(write=False) as unit:
+        page = keys.list_(unit.repo, cursor=cursor, limit=limit)
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 
 @router.delete("/{kid}", summary="Revoke a key")
 def revoke_key(kid: Annotated[str, Path(max_length=40)], ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("admin")
-    with ctx.store.transaction(write=True) as repo:
-        out = keys.revoke(repo, kid, who.key_id)
+    with ctx.work.unit(write=True) as unit:
+        out = keys.revoke(unit.repo, kid, who.key_id)
     ctx.keys.clear()
     return out

@@ -22,7 +22,7 @@ router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_respons
 async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
-    out = await run_store(ctx.store, lambda repo: samples.ingest(repo, channel_id, body.samples, body.source,
+    out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
                                                                  who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     return {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
@@ -35,7 +35,7 @@ async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
-    out = await run_store(ctx.store, lambda repo: samples.ingest_gateway(repo, items, body.source, who.key_id),
+    out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id),
                           write=True, items=len(items))
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
     return out
@@ -50,8 +50,8 @@ CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "resi
 def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
                 format: Annotated[str, Query(pattern="^(json|csv)$")] = "json") -> dict[str, Any] | Response:
     who.require_channel(channel_id, "technician")
-    with ctx.store.transaction(write=False) as repo:
-        page = samples.export(repo, channel_id, cursor=cursor, limit=limit)
+    with ctx.work.unit(write=False) as unit:
+        page = samples.export(unit.repo, channel_id, cursor=cursor, limit=limit)
     if format == "json":
         return {"items": page.items, "next_cursor": page.next_cursor}
     buf = io.StringIO()

@@ -1,0 +1,129 @@
+"""The unit of work: one request's transaction, the models it reads and writes, and what
+happens once it has committed.
+
+``Work`` belongs to the process: it holds the store and the cache of decoded models.
+``Work.unit(write=...)`` opens one transaction and yields a ``Unit``; the actions read and
+write SQL through ``unit.repo`` and models through ``unit.read_model`` /
+``unit.write_model`` / ``unit.save_model``. Nothing commits but the unit's end, and a
+model saved in a transaction enters the cache only once that transaction has committed.
+"""
+
+from __future__ import annotations
+
+from collections import OrderedDict
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from threading import Lock
+from typing import Any
+
+from ..core import ChannelModel, StateError
+from ..errors import StoredStateDamaged
+from ..store import Repository, Store
+from ..store.repository import LearningState
+from ..store.tables import ChannelState
+
+#: decoded models a process keeps (about 5 KB each)
+CACHE_SIZE = 4096
+
+
+class ModelCache:
+    """Decoded models by channel, each tagged with the channel's version.
+
+    Versions only grow, so an entry is either exactly the stored state or stale (and then
+    never asked for again): the cache stays coherent with several processes on one store.
+    """
+
+    def __init__(self, size: int = CACHE_SIZE) -> None:
+        self.size = size
+        self._items: OrderedDict[int, tuple[int, ChannelModel]] = OrderedDict()
+        self._lock = Lock()
+
+    def get(self, channel_pk: int, version: int) -> ChannelModel | None:
+        with self._lock:
+            hit = self._items.get(channel_pk)
+            if hit is None or hit[0] != version:
+                return None
+            self._items.move_to_end(channel_pk)
+            return hit[1]
+
+    def put(self, channel_pk: int, version: int, model: ChannelModel) -> None:
+        with self._lock:
+            old = self._items.get(channel_pk)
+            if old is not None and old[0] > version:
+                return
+            self._items[channel_pk] = (version, model)
+            self._items.move_to_end(channel_pk)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+
+
+def summary_columns(model: ChannelModel) -> dict[str, Any]:
+    """The denormalised summary the list filters use, from a model."""
+    return {"drift_state": model.drift_state, "tolerance_state": model.tolerance_state, "rmse": model.rmse}
+
+
+def restore(config: dict[str, Any], state: dict[str, Any], what: str) -> ChannelModel:
+    """A model from stored config and state; a state the core refuses is the store's
+    fault (``StoredStateDamaged``), never the client's."""
+    try:
+        return ChannelModel.from_state(config, state)
+    except StateError as exc:
+        raise StoredStateDamaged(f"the stored state of {what} cannot be restored; it has been logged",
+                                 details={"reason": exc.message}) from exc
+
+
+class Unit:
+    """One transaction's work: ``repo`` for SQL, the process's models, and steps to run
+    once the transaction has committed (never if it rolls back)."""
+
+    def __init__(self, repo: Repository, models: ModelCache) -> None:
+        self.repo = repo
+        self.models = models
+        self._after: list[Callable[[], None]] = []
+
+    def after_commit(self, step: Callable[[], None]) -> None:
+        self._after.append(step)
+
+    def read_model(self, st: ChannelState | LearningState) -> ChannelModel:
+        """The channel's current model, shared: read it, never change it."""
+        model = self.models.get(st.channel_pk, st.version)
+        if model is None:
+            config, state = self.repo.config_and_state(st.channel_pk)
+            model = restore(config, state, f"channel {st.channel_pk}")
+            self.models.put(st.channel_pk, st.version, model)
+        return model
+
+    def write_model(self, st: ChannelState | LearningState) -> ChannelModel:
+        """A private copy of the channel's current model, to change and then ``save_model``."""
+        return self.read_model(st).copy()
+
+    def save_model(self, st: ChannelState | LearningState, model: ChannelModel, version: int,
+                   **columns: Any) -> None:
+        """Write the model as the channel's state at ``version`` (one UPDATE); once the
+        transaction commits, the cache holds it."""
+        self.repo.save_state(st, model_state=model.to_state(), version=version, **summary_columns(model),
+                             **columns)
+        pk = st.channel_pk
+        self.after_commit(lambda: self.models.put(pk, version, model))
+
+
+class Work:
+    """The process's way into the store: opens units of work over one model cache."""
+
+    def __init__(self, store: Store, models: ModelCache | None = None) -> None:
+        self.store = store
+        self.models = models if models is not None else ModelCache()
+
+    @contextmanager
+    def unit(self, *, write: bool, wait: bool = True) -> Iterator[Unit]:
+        """One transaction (see ``Store.transaction``): committed when the block ends
+        without an error, rolled back otherwise; the unit's after-commit steps then run."""
+        with self.store.transaction(write=write, wait=wait) as repo:
+            unit = Unit(repo, self.models)
+            yield unit
+        for step in unit._after:
+            step()
