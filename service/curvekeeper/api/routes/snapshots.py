@@ -2,14 +2,22 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated
 
 from fastapi import APIRouter, Query
 
 from ...actions import events, snapshots
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
-from ..schemas.curves import RollbackIn, SnapshotIn
+from ..schemas.events import EventPage
+from ..schemas.snapshots import (
+    RollbackAnswer,
+    RollbackIn,
+    SnapshotDetail,
+    SnapshotIn,
+    SnapshotPage,
+    SnapshotPublic,
+)
 from .channels import ChannelPath, Limit
 
 router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["snapshots"],
@@ -18,38 +26,41 @@ router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["snapshots"],
 
 @router.get("/snapshots", summary="List snapshots")
 def list_snapshots(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100,
-                   cursor: str | None = None) -> dict[str, Any]:
+                   cursor: str | None = None) -> SnapshotPage:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
         page = snapshots.list_(repo, channel_id, cursor=cursor, limit=limit)
-    return {"items": page.items, "next_cursor": page.next_cursor}
+    return SnapshotPage.model_validate(page, from_attributes=True)
 
 
 @router.post("/snapshots", status_code=201, summary="Take a snapshot")
-def take_snapshot(channel_id: ChannelPath, ctx: Ctx, who: Who, body: SnapshotIn | None = None) -> dict[str, Any]:
+def take_snapshot(channel_id: ChannelPath, ctx: Ctx, who: Who, body: SnapshotIn | None = None) -> SnapshotPublic:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=True) as repo:
-        return snapshots.take(repo, channel_id, body.label if body else None, who.key_id)
+        out = snapshots.take(repo, channel_id, body.label if body else None, who.key_id)
+    return SnapshotPublic.model_validate(out)
 
 
 @router.get("/snapshots/{snapshot_id}", summary="One snapshot with its curve summary")
-def get_snapshot(channel_id: ChannelPath, snapshot_id: int, ctx: Ctx, who: Who) -> dict[str, Any]:
+def get_snapshot(channel_id: ChannelPath, snapshot_id: int, ctx: Ctx, who: Who) -> SnapshotDetail:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
-        return snapshots.get(repo, channel_id, snapshot_id)
+        out = snapshots.get(repo, channel_id, snapshot_id)
+    return SnapshotDetail.model_validate(out)
 
 
 @router.post("/rollback", summary="Restore a snapshot (the current state is snapshotted first)")
-def rollback(channel_id: ChannelPath, body: RollbackIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+def rollback(channel_id: ChannelPath, body: RollbackIn, ctx: Ctx, who: Who) -> RollbackAnswer:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=True) as repo:
-        return snapshots.rollback(repo, channel_id, body.snapshot, who.key_id)
+        out = snapshots.rollback(repo, channel_id, body.snapshot, who.key_id)
+    return RollbackAnswer.model_validate(out)
 
 
 @router.get("/events", summary="Drift alarms, rollbacks, calibrations, guards, settings changes")
 def list_events(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
-                kind: Annotated[str | None, Query(max_length=32)] = None) -> dict[str, Any]:
+                kind: Annotated[str | None, Query(max_length=32)] = None) -> EventPage:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
         page = events.list_(repo, channel_id, kind=kind, cursor=cursor, limit=limit)
-    return {"items": page.items, "next_cursor": page.next_cursor}
+    return EventPage.model_validate(page, from_attributes=True)

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated, Any, Generic, Literal, TypeVar
 
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, ConfigDict, Field
 
 #: a finite JSON number of sane size (NaN, Infinity and |v| > 1e15 are refused)
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e15, le=1e15)]
@@ -12,6 +12,27 @@ ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["col
 Label = Annotated[str, Field(max_length=256)]
 Source = Annotated[str, Field(min_length=1, max_length=128, examples=["gw-3"])]
 Seq = Annotated[int, Field(strict=True, ge=0, le=2**62)]
+
+#: the drift detector's state on standardised residuals
+DriftState = Literal["ok", "warning", "alarm"]
+#: the curve check against the reference curve; null when the channel has no tolerance
+ToleranceState = Literal["ok", "out_of_tolerance"] | None
+
+Item = TypeVar("Item")
+
+
+class Answer(BaseModel):
+    """Base of the answer schemas: the document lists every field (``additionalProperties:
+    false``), so an answer that gains an undocumented field fails its schema."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+class Page(Answer, Generic[Item]):
+    """One page of a list; pass ``next_cursor`` as ``?cursor=`` for the next page."""
+
+    items: list[Item]
+    next_cursor: str | None = Field(description="null on the last page")
 
 
 class ErrorDetail(BaseModel):
