@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Query
+from fastapi import APIRouter, Path, Query
 
 from ...actions import events, snapshots
 from ..deps import Ctx, Who
@@ -42,7 +42,8 @@ def take_snapshot(channel_id: ChannelPath, ctx: Ctx, who: Who, body: SnapshotIn 
 
 
 @router.get("/snapshots/{snapshot_id}", summary="One snapshot with its curve summary")
-def get_snapshot(channel_id: ChannelPath, snapshot_id: int, ctx: Ctx, who: Who) -> SnapshotDetail:
+def get_snapshot(channel_id: ChannelPath, snapshot_id: Annotated[int, Path(ge=-(2**31), le=2**31 - 1)], ctx: Ctx,
+                 who: Who) -> SnapshotDetail:
     who.require_channel(channel_id, "technician")
     with ctx.store.transaction(write=False) as repo:
         out = snapshots.get(repo, channel_id, snapshot_id)

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from pydantic import MISSING, AwareDatetime, BaseModel, ConfigDict, Field
+from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from .common import Answer, DriftState, Label, Number, ToleranceState
+from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 
 
 class PredictIn(BaseModel):
@@ -14,7 +14,7 @@ class PredictIn(BaseModel):
         {"x": [10234.5, 9000.0], "snapshot": None}]})
 
     x: list[Number] | list[list[Number]] = Field(min_length=1, description="raw inputs (lists for several inputs)")
-    snapshot: int | None = Field(None, description="predict with a stored snapshot instead of the current curve")
+    snapshot: SnapshotId | None = Field(None, description="predict with a stored snapshot instead of the current curve")
 
 
 class PointIn(BaseModel):
@@ -34,8 +34,8 @@ class CalibrateIn(BaseModel):
 
     points: list[PointIn] = Field(default_factory=list, max_length=100_000)
     include_history: bool = False
-    since: AwareDatetime | None = Field(None, description="with include_history: samples measured at or after")
-    until: AwareDatetime | None = Field(None, description="with include_history: samples measured at or before")
+    since: When | None = Field(None, description="with include_history: samples measured at or after")
+    until: When | None = Field(None, description="with include_history: samples measured at or before")
     last: int | None = Field(None, ge=1, le=1_000_000, description="with include_history: only the newest N")
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")

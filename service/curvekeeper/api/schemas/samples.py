@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from datetime import datetime
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field
 
-from .common import Answer, ChannelId, DriftState, Number, Page, Seq, Source, ToleranceState
+from .common import Answer, ChannelId, DriftState, Number, Page, Seq, Source, ToleranceState, When
 
 
 class SampleItem(BaseModel):
@@ -14,7 +14,7 @@ class SampleItem(BaseModel):
 
     x: Number | list[Number] = Field(description="raw input, or a list of them in the channel's input order")
     y: Number = Field(description="reference value in output units")
-    t: AwareDatetime | None = Field(None, description="measurement time, ISO-8601 with a time zone")
+    t: When | None = Field(None, description="measurement time, ISO-8601 with a time zone")
     seq: Seq | None = Field(None, description="the source's sequence number: (source, seq) makes retries idempotent")
 
     def inputs(self) -> list[float]:

@@ -7,7 +7,7 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import Answer, Label, Page
+from .common import Answer, Label, Page, SnapshotId
 from .curves import DriftSummary, RawCoefficients
 
 REASON = ("why it was taken: manual, periodic, drift-alarm (the state just before the alarm), "
@@ -23,7 +23,7 @@ class SnapshotIn(BaseModel):
 class RollbackIn(BaseModel):
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{"snapshot": 12}]})
 
-    snapshot: int
+    snapshot: SnapshotId
 
 
 class SnapshotPublic(Answer):
