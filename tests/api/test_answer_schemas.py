@@ -1,6 +1,5 @@
-"""The OpenAPI document describes every /v1 answer with its fields, and the answers built
-without a second validation (ingest, gateway batch, predict) carry every field the action
-gives."""
+"""The OpenAPI document describes every /v1 answer with its fields, and the hot paths'
+answers (ingest, gateway batch, predict) carry exactly the fields their actions give."""
 
 from __future__ import annotations
 
@@ -75,7 +74,9 @@ def fields(model: Any) -> set[str]:
 
 
 def test_hot_answers_hold_every_field_the_actions_give(client: TestClient, make_channel: Any) -> None:
-    """model_construct drops what the answer does not declare, silently: pin the fields."""
+    """Predict's answer is built with model_construct, which drops an undeclared field
+    silently; the ingest answers are validated, which would refuse one with a 500. Either
+    way, pin the fields here."""
     make_channel("site-a.p1")
     make_channel("site-a.p2")
     store = client.app.state.ctx.store  # type: ignore[attr-defined]
