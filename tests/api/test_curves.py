@@ -216,6 +216,8 @@ def test_predict_refuses_bad_bodies(
         {"x": [1.0], "extra": 1},
         {"x": [1.0], "snapshot": "latest"},
         {"x": [1.0], "snapshot": 1.5},
+        {"x": [1.0], "snapshot": 2**31},  # past the store's 32-bit integers: refused, not a 500
+        {"x": [1.0], "snapshot": 2**63},
     ]
     for body in bodies:
         expect_error(client, "POST", PREDICT, 422, "validation_error", json=body, headers=dev)

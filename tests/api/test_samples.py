@@ -237,6 +237,9 @@ def test_post_malformed_json_is_400(client: TestClient, keys: Keys, channel: str
 
 
 WRONG_TYPES = [
+    # t is ISO-8601 text, as the document says: a number is not taken as Unix time
+    ("t a number", {"samples": [{"x": 1.0, "y": 2.0, "t": 0}]}),
+    ("t a float", {"samples": [{"x": 1.0, "y": 2.0, "t": 1764583200.5}]}),
     ("x text", {"samples": [{"x": "abc", "y": 2.0}]}),
     ("y null", {"samples": [{"x": 1.0, "y": None}]}),
     ("x missing", {"samples": [{"y": 2.0}]}),

@@ -210,7 +210,8 @@ def test_get_snapshot_with_a_device_key_is_403(
 def test_get_snapshot_bad_id_is_422(
     client: TestClient, keys: Keys, channel: dict[str, Any]
 ) -> None:
-    for sid in ("abc", "1.5", str(2**31)):  # past the snapshot key (int4 on PostgreSQL): bad input, not a 500
+    # past the store's 32-bit integers: refused, not a 500
+    for sid in ("abc", "1.5", str(2**31), str(-(2**31) - 1), str(2**63)):
         expect_error(
             client, "GET", f"{SNAPSHOTS}/{sid}", 422, "validation_error", headers=keys["technician"]
         )
@@ -377,6 +378,8 @@ def test_rollback_bad_body(client: TestClient, keys: Keys, channel: dict[str, An
         {"snapshot": None},
         {"snapshot": "latest"},
         {"snapshot": 1.5},
+        {"snapshot": 2**31},
+        {"snapshot": 2**63},
         [sid],
         {"snapshot": sid, "force": True},
     ):

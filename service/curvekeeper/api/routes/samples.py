@@ -4,14 +4,20 @@ from __future__ import annotations
 
 import csv
 import io
-from typing import Annotated, Any
+from typing import Annotated
 
 from fastapi import APIRouter, Query, Response
 
 from ...actions import samples
 from ..deps import Ctx, Who, check_batch
 from ..schemas.common import COMMON_ERRORS, error_responses
-from ..schemas.samples import GatewayIn, SamplesIn
+from ..schemas.samples import (
+    GatewayAnswer,
+    GatewayIn,
+    IngestAnswer,
+    SamplePage,
+    SamplesIn,
+)
 from ..work import run_store
 from .channels import ChannelPath, Limit
 
@@ -19,18 +25,21 @@ router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_respons
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
-async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
                                                                  who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
-    return {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected,
-            "residuals": out.residuals, "version": out.version, "n_samples": out.n_samples, "drift": out.drift}
+    # validated here, once (FastAPI takes the instance as it is): an answer holds one residual
+    # per sample, and at these sizes validating costs about what model_construct does
+    return IngestAnswer.model_validate(
+        {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected, "residuals": out.residuals,
+         "version": out.version, "n_samples": out.n_samples, "drift": out.drift})
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
-async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
+async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
     check_batch(len(body.samples), ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
@@ -38,7 +47,7 @@ async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> dict[str, Any]:
     out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id),
                           write=True, items=len(items))
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
-    return out
+    return GatewayAnswer.model_validate(out)
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
@@ -46,14 +55,14 @@ CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "resi
 
 
 @router.get("/v1/channels/{channel_id}/samples", summary="Stored samples, paged (JSON or CSV)",
-            response_model=None, responses={200: {"content": {"application/json": {}, "text/csv": {}}}})
+            response_model=SamplePage, responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}})
 def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
-                format: Annotated[str, Query(pattern="^(json|csv)$")] = "json") -> dict[str, Any] | Response:
+                format: Annotated[str, Query(pattern="^(json|csv)$")] = "json") -> SamplePage | Response:
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=False) as unit:
         page = samples.export(unit.repo, channel_id, cursor=cursor, limit=limit)
     if format == "json":
-        return {"items": page.items, "next_cursor": page.next_cursor}
+        return SamplePage.model_validate(page, from_attributes=True)
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(CSV_FIELDS)

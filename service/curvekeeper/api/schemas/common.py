@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from datetime import datetime
+from typing import Annotated, Any, Generic, Literal, TypeVar
 
-from pydantic import BaseModel, Field
+from pydantic import AwareDatetime, BaseModel, BeforeValidator, ConfigDict, Field
 
 #: a finite JSON number of sane size (NaN, Infinity and |v| > 1e15 are refused)
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e15, le=1e15)]
@@ -12,6 +13,40 @@ ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["col
 Label = Annotated[str, Field(max_length=256)]
 Source = Annotated[str, Field(min_length=1, max_length=128, examples=["gw-3"])]
 Seq = Annotated[int, Field(strict=True, ge=0, le=2**62)]
+#: a snapshot's id: within the store's 32-bit integers, so any other id is a 404, never a 500
+SnapshotId = Annotated[int, Field(ge=-(2**31), le=2**31 - 1)]
+
+
+def _date_time_text(v: Any) -> Any:
+    # pydantic would take a number as Unix time; the document promises an ISO-8601 string
+    if not isinstance(v, str | datetime):
+        raise ValueError("must be an ISO-8601 date-time string with a time zone")
+    return v
+
+
+#: a time as ISO-8601 text with a time zone (e.g. 2026-12-01T10:00:00Z); a number is refused
+When = Annotated[AwareDatetime, BeforeValidator(_date_time_text)]
+
+#: the drift detector's state on standardised residuals
+DriftState = Literal["ok", "warning", "alarm"]
+#: the curve check against the reference curve; null when the channel has no tolerance
+ToleranceState = Literal["ok", "out_of_tolerance"] | None
+
+Item = TypeVar("Item")
+
+
+class Answer(BaseModel):
+    """Base of the answer schemas: the document lists every field (``additionalProperties:
+    false``), so an answer that gains an undocumented field fails its schema."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+class Page(Answer, Generic[Item]):
+    """One page of a list; pass ``next_cursor`` as ``?cursor=`` for the next page."""
+
+    items: list[Item]
+    next_cursor: str | None = Field(description="null on the last page")
 
 
 class ErrorDetail(BaseModel):

@@ -1,10 +1,11 @@
-"""Predict, calibrate, snapshot and rollback schemas."""
+"""Predict, curve and calibrate schemas, and their answers."""
 
 from __future__ import annotations
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
+from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from .common import Label, Number
+from ...channel_config import Basis, InputSpec, OutputSpec
+from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 
 
 class PredictIn(BaseModel):
@@ -12,7 +13,7 @@ class PredictIn(BaseModel):
         {"x": [10234.5, 9000.0], "snapshot": None}]})
 
     x: list[Number] | list[list[Number]] = Field(min_length=1, description="raw inputs (lists for several inputs)")
-    snapshot: int | None = Field(None, description="predict with a stored snapshot instead of the current curve")
+    snapshot: SnapshotId | None = Field(None, description="predict with a stored snapshot instead of the current curve")
 
 
 class PointIn(BaseModel):
@@ -32,20 +33,98 @@ class CalibrateIn(BaseModel):
 
     points: list[PointIn] = Field(default_factory=list, max_length=100_000)
     include_history: bool = False
-    since: AwareDatetime | None = Field(None, description="with include_history: samples measured at or after")
-    until: AwareDatetime | None = Field(None, description="with include_history: samples measured at or before")
+    since: When | None = Field(None, description="with include_history: samples measured at or after")
+    until: When | None = Field(None, description="with include_history: samples measured at or before")
     last: int | None = Field(None, ge=1, le=1_000_000, description="with include_history: only the newest N")
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
 
 
-class SnapshotIn(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+# answers -----------------------------------------------------------------------------------------
 
-    label: Label | None = None
+UNCERTAINTY = "standard uncertainty u per value, output units; null before the channel has a residual estimate"
 
 
-class RollbackIn(BaseModel):
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{"snapshot": 12}]})
+class PredictAnswer(Answer):
+    """Calibrated values for the inputs, in request order."""
 
-    snapshot: int
+    y: list[float | None] = Field(description="calibrated values, output units; null where not finite")
+    u: list[float | None] = Field(description=UNCERTAINTY)
+    k: float = Field(description="coverage factor: the expanded uncertainty is k*u")
+    out_of_range: list[bool] = Field(description="per value: an input outside its declared [min, max]")
+    version: int = Field(description="the state version (of the snapshot, when one was asked for)")
+    unit: str = Field(description="the output unit")
+
+
+class DriftSummary(Answer):
+    """The drift watch: the detector on residuals and the curve check against the reference."""
+
+    state: DriftState
+    statistic: float = Field(description="the detector's statistic on standardised residuals")
+    warning: float = Field(description="the statistic's warning threshold")
+    alarm: float = Field(description="the statistic's alarm threshold")
+    tolerance_state: ToleranceState
+    max_curve_change: float | None = Field(
+        description="largest |f_now(x) - f_ref(x)| over the input range, output units; null: not checked")
+
+
+class RawCoefficients(Answer):
+    """Coefficients in raw input units, present only where the basis has such a form
+    (poly, log_poly); ``poly_*`` only for a single-input poly basis. Listed first among the
+    bases of an answer, its fields come after the other bases' fields, as the answer sends them."""
+
+    raw_terms: list[int] | list[list[int]] | MISSING = Field(
+        MISSING, description="each coefficient's exponent (of ln x for log_poly; per input for several inputs)")
+    raw_coefficients: list[float] | MISSING = MISSING
+    raw_coefficient_sd: list[float] | None | MISSING = Field(
+        MISSING, description="standard deviations; null without a covariance or residual estimate")
+    poly_coefficients: list[float] | MISSING = Field(MISSING, description="c0 + c1 x + c2 x^2 ... in raw units")
+    poly_coefficient_sd: list[float] | None | MISSING = MISSING
+
+
+class CurvePoint(Answer):
+    x: float | list[float] = Field(description="raw input (a list for several inputs)")
+    y: float | None
+    u: float | None
+    lower: float | None = Field(description="y - k*u")
+    upper: float | None = Field(description="y + k*u")
+
+
+class CurveBody(Answer):
+    """The curve answer's fields other than the raw coefficients."""
+
+    basis: Basis = Field(description="the channel's basis setting")
+    inputs: list[InputSpec] = Field(description="the channel's inputs")
+    output: OutputSpec = Field(description="the channel's output setting")
+    weights: list[float] = Field(description="basis weights (on scaled inputs)")
+    k: float = Field(description="coverage factor of lower and upper")
+    points: list[CurvePoint]
+    n_samples: int
+    rmse: float | None = Field(description="output units; null before any fit or sample")
+    drift: DriftSummary
+    version: int
+
+
+class CurveAnswer(RawCoefficients, CurveBody):
+    """The channel's current curve: coefficients and the curve sampled over the input range."""
+
+
+class FitReport(Answer):
+    """A least-squares fit: weights, their s.d. and how well the fit matches the points."""
+
+    weights: list[float]
+    weight_sd: list[float] | None = Field(description="null where the fit leaves them undetermined")
+    residual_sd: float | None = Field(description="in the fitted (transformed) space")
+    rmse_output: float = Field(description="output units")
+    r_squared: float | None
+    n: int = Field(description="points fitted")
+    max_curve_change: float | None = Field(description="largest change of the curve over the range, output units")
+
+
+class CalibrationAnswer(RawCoefficients, FitReport):
+    """The fit report; with dry_run, what the fit would be (``applied`` false)."""
+
+    snapshot_before: int | None = Field(description="snapshot of the state before the fit; null on a dry run")
+    snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")
+    version: int
+    applied: bool

@@ -1,10 +1,13 @@
-"""API key schemas."""
+"""API key schemas, and their answers."""
 
 from __future__ import annotations
 
+from datetime import datetime
+from typing import Literal
+
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import ChannelId, Label
+from .common import Answer, ChannelId, Label, Page
 
 
 class KeyCreate(BaseModel):
@@ -14,3 +17,22 @@ class KeyCreate(BaseModel):
     role: str = Field(pattern="^(admin|technician|device)$")
     prefixes: list[ChannelId] = Field(default_factory=list, max_length=64)
     label: Label | None = None
+
+
+class KeyPublic(Answer):
+    """An API key as lists show it: never its secret."""
+
+    id: str
+    role: Literal["admin", "technician", "device"]
+    prefixes: list[str] = Field(description="channel-id prefixes a device key is limited to; empty: all")
+    label: str | None
+    created_at: datetime
+    revoked_at: datetime | None = Field(description="null while the key is valid")
+
+
+class KeyCreated(KeyPublic):
+    secret: str = Field(description="the key's secret: shown this once, stored only hashed")
+
+
+class KeyPage(Page[KeyPublic]):
+    """API keys by id."""

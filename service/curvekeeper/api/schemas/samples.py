@@ -1,12 +1,12 @@
-"""Sample schemas: one channel, and the gateway batch across channels."""
+"""Sample schemas: one channel, the gateway batch across channels, and their answers."""
 
 from __future__ import annotations
 
 from datetime import datetime
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field
 
-from .common import ChannelId, Number, Seq, Source
+from .common import Answer, ChannelId, DriftState, Number, Page, Seq, Source, ToleranceState, When
 
 
 class SampleItem(BaseModel):
@@ -14,7 +14,7 @@ class SampleItem(BaseModel):
 
     x: Number | list[Number] = Field(description="raw input, or a list of them in the channel's input order")
     y: Number = Field(description="reference value in output units")
-    t: AwareDatetime | None = Field(None, description="measurement time, ISO-8601 with a time zone")
+    t: When | None = Field(None, description="measurement time, ISO-8601 with a time zone")
     seq: Seq | None = Field(None, description="the source's sequence number: (source, seq) makes retries idempotent")
 
     def inputs(self) -> list[float]:
@@ -44,3 +44,74 @@ class GatewayIn(BaseModel):
 
     source: Source | None = None
     samples: list[GatewaySampleItem] = Field(min_length=1)
+
+
+REASON = "why the sample was stored but not learned: outlier (beyond outlier_sd) or guard (a step refused)"
+
+
+class DriftBrief(Answer):
+    """The channel's drift watch after the samples."""
+
+    state: DriftState
+    statistic: float = Field(description="the detector's statistic on standardised residuals")
+    tolerance_state: ToleranceState
+
+
+class SampleRejection(Answer):
+    index: int = Field(description="position of the sample in the request")
+    reason: str = Field(description=REASON)
+
+
+class IngestAnswer(Answer):
+    """What one channel learned from a request's samples."""
+
+    accepted: int = Field(description="samples learned")
+    duplicates: int = Field(description="retried samples (same source and seq) skipped")
+    rejected: list[SampleRejection] = Field(description="samples stored but not learned")
+    residuals: list[float | None] = Field(
+        description="per sample in request order: the prior residual y - f(x), output units; null for a duplicate")
+    version: int = Field(description="the channel's state version after the request")
+    n_samples: int = Field(description="samples the channel holds")
+    drift: DriftBrief
+
+
+class GatewayRejection(SampleRejection):
+    channel: str
+
+
+class ChannelIngest(Answer):
+    """One channel's state after a gateway batch."""
+
+    version: int
+    n_samples: int
+    drift: DriftBrief
+
+
+class GatewayAnswer(Answer):
+    """What a gateway batch did, over all its channels; indexes are positions in the request."""
+
+    accepted: int
+    duplicates: int
+    rejected: list[GatewayRejection]
+    residuals: list[float | None] = Field(description="per sample in request order; null for a duplicate")
+    channels: dict[str, ChannelIngest] = Field(description="by channel id")
+
+
+class SampleRecord(Answer):
+    """A stored sample, with what learning it gave."""
+
+    seq: int = Field(description="the sample's number in the channel, from 1")
+    t: datetime = Field(description="measurement time (the receive time when the sample had none)")
+    received_at: datetime
+    source: str | None
+    source_seq: int | None
+    x: list[float] = Field(description="raw inputs in the channel's input order")
+    y: float = Field(description="reference value in output units")
+    residual: float | None = Field(description="prior residual, output units")
+    drift_statistic: float | None
+    accepted: bool = Field(description="learned; false: stored only, see reason")
+    reason: str | None = Field(description=REASON)
+
+
+class SamplePage(Page[SampleRecord]):
+    """Stored samples, oldest first."""
