@@ -13,6 +13,9 @@ from typing import Any
 
 import pytest
 
+# the whole benchmark suite at smoke size: tens of seconds; in the README command, not the quick loop
+pytestmark = pytest.mark.slow
+
 ROOT = Path(__file__).resolve().parents[1]
 SECTIONS = {"core", "cost", "drift", "service"}
 

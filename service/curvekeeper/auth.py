@@ -68,12 +68,3 @@ def new_key(*, role: str, prefixes: list[str], label: str | None, secret: str | 
     secret = secret or new_secret()
     return ApiKey(id=new_key_id(), secret_hash=hash_secret(secret), role=role, prefixes=prefixes,
                   label=label, created_at=utcnow()), secret
-
-
-def create_key(repo: Repository, *, role: str, prefixes: list[str], label: str | None,
-               secret: str | None = None) -> tuple[ApiKey, str]:
-    """A new key stored without an event (tests); the service makes keys through
-    ``curvekeeper.actions.keys``, which also records who made them."""
-    key, secret = new_key(role=role, prefixes=prefixes, label=label, secret=secret)
-    repo.insert_key(key)
-    return key, secret

@@ -13,8 +13,8 @@ from contextlib import contextmanager
 from typing import Any
 
 import pytest
-from curvekeeper import auth
 from curvekeeper.actions import channels
+from curvekeeper.actions import keys as keys_actions
 from curvekeeper.api import create_app
 from curvekeeper.config import Settings
 from curvekeeper.ratelimit import RateLimiter
@@ -53,8 +53,8 @@ def make_key(client: TestClient, role: str, prefixes: list[str] | None = None) -
     """A key made straight in the store, so that making it spends no request of anyone's."""
     store = client.app.state.ctx.store  # type: ignore[attr-defined]
     with store.transaction(write=True) as repo:
-        _, secret = auth.create_key(repo, role=role, prefixes=prefixes or [], label=None)
-    return {"Authorization": f"Bearer {secret}"}
+        made = keys_actions.create(repo, role=role, prefixes=prefixes or [], label=None, key_id=None)
+    return {"Authorization": f"Bearer {made['secret']}"}
 
 
 def make_channel(client: TestClient, channel_id: str = CH) -> None:

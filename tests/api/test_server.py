@@ -17,6 +17,9 @@ import pytest
 from curvekeeper.core.jit import cache_dir
 from curvekeeper.kernels import LOCK_NAME
 
+# real server processes (one on an empty kernel cache): in the README command, not the quick loop
+pytestmark = pytest.mark.slow
+
 SECRET = "ck_server-test-admin-0123456789"
 
 

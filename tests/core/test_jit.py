@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pytest
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.core import jit as jit_module
@@ -82,6 +83,7 @@ def test_the_source_key_follows_every_core_module(tmp_path: Path) -> None:
 # a drift statistic after the warm-up, through the compiled learning loop
 LEARN = """
 import numpy as np
+import pytest
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 m = ChannelModel.from_config(channel_config({"inputs": [{"name": "raw", "min": 0.0, "max": 1.0}]}))
@@ -91,6 +93,7 @@ print(repr(float(r.drift_statistic[-1])))
 """
 
 
+@pytest.mark.slow
 def test_a_changed_callee_module_is_not_served_from_the_cache(tmp_path: Path) -> None:
     """learn_batch (learners.py) has detector_update (drift.py) compiled into it: after a
     change to drift.py alone, a run on the same cache directory must use the new code."""

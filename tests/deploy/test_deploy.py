@@ -250,6 +250,7 @@ def test_containerfile_base_user_volume_and_settings() -> None:
                for r in args_of("RUN")), "the numba cache directory must belong to the service user"
 
 
+@pytest.mark.slow
 def test_containerfile_builds_the_kernels_into_the_cache_as_the_service_user(tmp_path: Path) -> None:
     steps = instructions()
     warm = [i for i, (k, rest) in enumerate(steps) if k == "RUN" and "warm_kernels" in rest]

@@ -36,6 +36,9 @@ from schemathesis.specs.openapi.checks import (
 
 from tests.conftest import ADMIN_SECRET
 
+# hundreds of generated requests: in the README command, not the quick loop
+pytestmark = pytest.mark.slow
+
 AUTH = {"Authorization": f"Bearer {ADMIN_SECRET}"}
 STORE = Path(tempfile.mkdtemp(prefix="ck-fuzz-")) / "store.db"
 APP = create_app(Settings(database_url=f"sqlite:///{STORE}", admin_key=ADMIN_SECRET))

@@ -20,7 +20,7 @@ from typing import Any
 
 import httpx
 import pytest
-from curvekeeper import auth
+from curvekeeper.actions import keys as keys_actions
 from curvekeeper.client import Client, ClientError
 from curvekeeper.store import Repository, Store, migrate
 from curvekeeper.store.engine import make_engine
@@ -184,6 +184,7 @@ def test_two_servers_and_many_threads_count_exactly_and_replay(servers: list[Ser
     assert_replays(store_url, counts)
 
 
+@pytest.mark.slow
 def test_a_locked_sqlite_store_answers_503_and_the_retry_stores_once(tmp_path: Path,
                                                                      sqlite_template: Path) -> None:
     """An exclusive lock held from outside (a backup tool, a long migration) makes a write
@@ -310,13 +311,13 @@ def test_two_processes_making_sure_of_the_admin_key_at_once_both_start(postgres_
         found = real(repo, digest)
         if calls == 1:
             with theirs.transaction(write=True) as other:
-                auth.ensure_admin_key(other, ADMIN)
+                keys_actions.ensure_admin_key(other, ADMIN)
         return found
 
     monkeypatch.setattr(Repository, "key_by_hash", other_worker_commits_meanwhile)
     try:
         with mine.transaction(write=True) as repo:
-            auth.ensure_admin_key(repo, ADMIN)
+            keys_actions.ensure_admin_key(repo, ADMIN)
         with mine.transaction(write=False) as repo:
             assert repo.count_rows(ApiKey) == 1
     finally:

@@ -18,6 +18,9 @@ from curvekeeper.config import Settings
 from curvekeeper.demo.run import run_demo, start_server
 from fastapi.testclient import TestClient
 
+# a real browser and server: in the README command, not the quick loop
+pytestmark = pytest.mark.slow
+
 CHROMIUM = "/usr/bin/chromium"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run"]
