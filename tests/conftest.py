@@ -29,10 +29,31 @@ from curvekeeper.store import migrate
 from curvekeeper.store.engine import make_engine
 from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
 from fastapi.testclient import TestClient
-from sqlalchemy import create_engine, func, select, text
+from sqlalchemy import create_engine, func, make_url, select, text
 
 ADMIN_SECRET = "ck_test-admin-secret-0123456789abcdef"
-PG_URL = os.environ.get("CURVEKEEPER_TEST_DATABASE_URL")
+
+
+def _database_of_this_worker(url: str | None) -> str | None:
+    """The test database, or under pytest-xdist a database of this worker's own next to it
+    (made when missing): workers empty their store before every test, so they cannot share
+    one. ``.ci/run`` drops them with the run's database."""
+    worker = os.environ.get("PYTEST_XDIST_WORKER")
+    if not url or not worker:
+        return url
+    server = make_url(url)
+    mine = server.set(database=f"{server.database}_{worker}")
+    admin = create_engine(server.set(database="postgres"), isolation_level="AUTOCOMMIT")
+    try:
+        with admin.connect() as conn:
+            if conn.scalar(text("SELECT 1 FROM pg_database WHERE datname = :n"), {"n": mine.database}) is None:
+                conn.execute(text(f'CREATE DATABASE "{mine.database}"'))
+    finally:
+        admin.dispose()
+    return mine.render_as_string(hide_password=False)
+
+
+PG_URL = _database_of_this_worker(os.environ.get("CURVEKEEPER_TEST_DATABASE_URL"))
 NO_PG = ("PostgreSQL tests need CURVEKEEPER_TEST_DATABASE_URL pointing at a server "
          "(.ci/run starts the local one and sets it)")
 
