@@ -6,7 +6,7 @@ from __future__ import annotations
 from typing import Any
 
 import pytest
-from curvekeeper.channel_config import ChannelConfig, channel_config
+from curvekeeper.channel_config import EXAMPLE, ChannelConfig, channel_config
 from curvekeeper.core.drift import DETECTOR_DEFAULTS
 from pydantic import ValidationError
 
@@ -73,16 +73,8 @@ def test_inputs_are_named_by_position_by_default_and_integral_numbers_are_intege
     assert cfg["basis"]["degree"] == 2
 
 
-def test_the_design_example_is_valid() -> None:
-    cfg = channel_config({
-        "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
-        "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
-        "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
-        "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
-        "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
-        "drift": {"detector": "page_hinkley", "tolerance": 0.3},
-        "outlier_sd": 6.0, "snapshot_every": 1000,
-    })
+def test_the_documented_example_is_valid() -> None:
+    cfg = channel_config(EXAMPLE)
     assert cfg["basis"]["powers"] == [0, 1, 3]
     assert cfg["drift"]["tolerance"] == 0.3
     assert cfg["learner"]["schedule"] == {"kind": "normalized", "mu": 0.2, "eps": 1e-6}

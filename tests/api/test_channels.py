@@ -15,7 +15,7 @@ from typing import Any
 import httpx
 import numpy as np
 import pytest
-from curvekeeper.channel_config import channel_config
+from curvekeeper.channel_config import EXAMPLE, channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
@@ -26,17 +26,6 @@ from tests.conftest import LINEAR, store_fingerprint
 
 CHANNELS = "/v1/channels"
 
-# the body of DESIGN.md's "Create a channel" example
-DESIGN_EXAMPLE: dict[str, Any] = {
-    "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
-    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
-    "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
-    "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
-    "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
-    "drift": {"detector": "page_hinkley", "tolerance": 0.3},
-    "outlier_sd": 6.0,
-    "snapshot_every": 1000,
-}
 
 
 def send_text(client: TestClient, method: str, url: str, text: str, headers: Headers) -> httpx.Response:
@@ -311,7 +300,7 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     ch = r.json()
     assert ch["id"] == "site-a.p1"
     assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}]
-    # DESIGN.md, "Defaults when a field is left out"
+    # the contract's defaults when a field is left out
     assert ch["basis"]["kind"] == "poly" and ch["basis"]["degree"] == 1
     assert ch["learner"]["kind"] == "sgd"
     assert ch["learner"]["schedule"]["kind"] == "normalized"
@@ -337,7 +326,7 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
 
 
 def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
-    r = client.post(CHANNELS, json=DESIGN_EXAMPLE, headers=keys["technician"])
+    r = client.post(CHANNELS, json=EXAMPLE, headers=keys["technician"])
     assert r.status_code == 201, r.text
     ch = r.json()
     assert ch["id"] == "coldroom2.probe07"
@@ -350,7 +339,7 @@ def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
     assert ch["drift"]["tolerance"] == 0.3
     assert ch["outlier_sd"] == 6.0 and ch["snapshot_every"] == 1000
     # the stored model is the core's model for that body
-    direct = ChannelModel.from_config(channel_config(DESIGN_EXAMPLE))
+    direct = ChannelModel.from_config(channel_config(EXAMPLE))
     assert stored_state(client, "coldroom2.probe07") == direct.to_state()
 
 

@@ -105,7 +105,7 @@ def test_create_key_bad_body_is_422(client: TestClient, keys: Keys) -> None:
 def test_create_key_does_not_silently_ignore_prefixes(
     client: TestClient, keys: Keys, make_channel: Any
 ) -> None:
-    """Prefixes limit device keys only (DESIGN: "A device key may be limited to channel-id
+    """Prefixes limit device keys only (the contract: "A device key may be limited to channel-id
     prefixes"). A technician key asked for with prefixes must either be refused, or be
     limited to them; storing and listing prefixes that have no effect misleads the admin."""
     make_channel("site-a.p1")

@@ -1,5 +1,5 @@
-"""Who may call what: one table of every route of the contract (DESIGN.md, "HTTP contract
-(v1)") and, for each kind of caller, the status it must get; checked on both backends.
+"""Who may call what: one table of every route of the HTTP contract (v1) and, for each
+kind of caller, the status it must get; checked on both backends.
 
 Roles: ``admin`` > ``technician`` > ``device``. A device key (here limited to ``site-a.``)
 may only post samples (one channel or a gateway batch) and predict on channels under its

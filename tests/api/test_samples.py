@@ -49,7 +49,7 @@ TWO_INPUTS: dict[str, Any] = {
     "basis": {"kind": "poly", "degree": 2},
 }
 
-THERMISTOR: dict[str, Any] = {  # DESIGN.md's example channel
+THERMISTOR: dict[str, Any] = {  # the contract's example channel
     "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
     "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
     "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
