@@ -132,7 +132,8 @@ def learn_batch(
     ip: Any, sp: Any, lp: Any, dp: Any,
     st: Any, ds: Any,
     out_r: Any, out_status: Any, out_state: Any, out_stat: Any,
-) -> Any:
+    snap_w: Any, snap_P: Any, snap_st: Any, snap_ds: Any,
+) -> int:
     """Learn from the rows of Phi (n, M) in order, updating w, P, st, ds in place.
 
     z : (n,) references in the transformed space; y : (n,) in output units.
@@ -140,18 +141,17 @@ def learn_batch(
     out_status : (n,) ACCEPTED / OUTLIER / GUARD; out_state, out_stat : drift state and
     statistic after each sample.
 
-    Returns (k, w, P, st, ds): k the index of the sample that raised the drift alarm (-1:
-    none), and copies of the state just before that sample (empty arrays when k is -1).
+    snap_w (M,), snap_P (M, M), snap_st, snap_ds : filled with the state just before the
+    sample that raised the drift alarm, if one did (the caller's buffers: returning new
+    arrays from the kernel would cost more than the rest of a one-sample call).
+
+    Returns the index of the sample that raised the drift alarm, or -1.
     """
     n, M = Phi.shape
     wn = np.empty(M)
     Pphi = np.empty(M)
     ds_before = np.empty(DS_SIZE)
     alarm_at = -1
-    snap_w = np.empty(0)
-    snap_P = np.empty((0, 0))
-    snap_st = np.empty(0)
-    snap_ds = np.empty(0)
     learner = ip[IP_LEARNER]
     sk = ip[IP_SCHEDULE]
     tcode = ip[IP_TRANSFORM]
@@ -177,7 +177,10 @@ def learn_batch(
             if watching and ds[DS_STATE] == ALARM:
                 # w, P and st are still those before this sample: the step comes below
                 alarm_at = i
-                snap_w, snap_P, snap_st, snap_ds = w.copy(), P.copy(), st.copy(), ds_before.copy()
+                snap_w[:] = w
+                snap_P[:, :] = P
+                snap_st[:] = st
+                snap_ds[:] = ds_before
         else:
             out_stat[i] = detector_statistic(dk, dp, ds)
         out_state[i] = int(ds[DS_STATE])
@@ -213,4 +216,4 @@ def learn_batch(
             if alpha < alpha_min:
                 alpha = alpha_min
             st[ST_OMS] += alpha * (ro * ro - st[ST_OMS])
-    return alarm_at, snap_w, snap_P, snap_st, snap_ds
+    return alarm_at

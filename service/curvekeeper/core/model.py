@@ -218,13 +218,13 @@ class ChannelModel:
         out_stat = np.empty(n)
         alarm_at = -1
         if n:
-            alarm_at, *before = learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp,
-                                            self.dp, s.st, s.ds, out_r, out_status, out_state, out_stat)
+            w, P, st, ds = np.empty_like(s.w), np.empty_like(cov), np.empty_like(s.st), np.empty_like(s.ds)
+            alarm_at = learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp, self.dp,
+                                   s.st, s.ds, out_r, out_status, out_state, out_stat, w, P, st, ds)
             if s.cov is not None:
                 s.cov = cov
         before_alarm = None
         if alarm_at >= 0:
-            w, P, st, ds = before
             snap = ModelState(w, None if s.w_ref is None else s.w_ref.copy(), None if s.cov is None else P, st, ds,
                               before_n + alarm_at, before_tol, s.max_curve_change)
             if alarm_at > 0:  # the state as learning the samples before the alarm alone leaves it
