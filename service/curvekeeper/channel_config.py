@@ -10,9 +10,11 @@ Numbers are strict: ``true`` or ``"6"`` is not a number.
 from __future__ import annotations
 
 import math
+import re
 from typing import Annotated, Any, ClassVar, Literal, cast
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -55,8 +57,25 @@ def _point(v: Any) -> Any:
 Finite = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e300, le=1e300)]
 Positive = Annotated[Finite, Field(gt=0.0)]
 Integer = Annotated[int, BeforeValidator(_whole), Field(strict=True)]
-Text = Annotated[str, Field(max_length=MAX_TEXT)]
-ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["coldroom2.probe07"])]
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+
+
+def _plain(v: str) -> str:
+    """Text is stored as text on every backend: PostgreSQL refuses NUL, and no other
+    control character (line breaks included) belongs in a name, unit or label."""
+    if _CONTROL.search(v):
+        raise ValueError("must not contain control characters (NUL, line breaks, escapes)")
+    return v
+
+
+#: text without control characters
+Plain = Annotated[str, AfterValidator(_plain)]
+Text = Annotated[Plain, Field(max_length=MAX_TEXT)]
+#: lower-case letters, digits, '.', '_' and '-', not dots only: '.' and '..' are path
+#: segments a URL resolves away, so such a channel could not be reached
+CHANNEL_ID_PATTERN = r"^[a-z0-9._-]*[a-z0-9_-][a-z0-9._-]*$"
+ChannelId = Annotated[str, Field(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN,
+                                 examples=["coldroom2.probe07"])]
 
 
 def rule(loc: tuple[str | int, ...], message: str, value: Any) -> ValidationError:

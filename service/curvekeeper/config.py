@@ -51,6 +51,8 @@ class Settings:
     rate_limit_per_s: float = 0.0
     #: requests a key may make at once before ``rate_limit_per_s`` holds it back
     rate_limit_burst: int = 100
+    #: how far ahead of the server's clock a sample's time ``t`` may be, seconds (more: 422)
+    max_clock_skew_s: float = 300.0
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

@@ -175,27 +175,37 @@ def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike], source: s
     return ingest_channel(unit, _learning(unit.repo, channel_id), samples, source, key_id)
 
 
+NOTHING_STORED = "nothing in this batch was stored"
+
+
 def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: str | None,
                    key_id: str | None) -> dict[str, Any]:
     """A gateway batch across channels: each channel's samples in request order, channels
-    locked in id order, all in one transaction."""
+    locked in id order, all in one transaction. All or nothing: an unknown channel or a bad
+    sample refuses the whole batch (the error names the first such sample's index)."""
     repo = unit.repo
     groups: dict[str, list[int]] = {}
     for i, (cid, _) in enumerate(items):
         groups.setdefault(cid, []).append(i)
+    found = {cid: repo.learning_state(cid) for cid in sorted(groups)}  # locked in id order
+    unknown = [cid for cid, st in found.items() if st is None]
+    if unknown:
+        cid = min(unknown, key=lambda c: groups[c][0])
+        raise ChannelNotFound(f"unknown channel {cid!r} (sample {groups[cid][0]}): {NOTHING_STORED}",
+                              details={"index": groups[cid][0], "channel": cid})
+    states = {cid: st for cid, st in found.items() if st is not None}
     residuals: list[float | None] = [None] * len(items)
     rejected: list[dict[str, Any]] = []
     channels: dict[str, Any] = {}
     accepted = duplicates = alarms = 0
-    for cid in sorted(groups):
+    for cid, st in states.items():
         idx = groups[cid]
-        st = _learning(repo, cid)
         try:
             out = ingest_channel(unit, st, [items[i][1] for i in idx], source, key_id)
         except InvalidRequest as exc:
             local = exc.details.get("index") if isinstance(exc.details, dict) else None
             where = idx[local] if local is not None else None
-            raise InvalidRequest(f"channel {cid}: {exc.message}",
+            raise InvalidRequest(f"channel {cid}: {exc.message}; {NOTHING_STORED}",
                                  details={"index": where, "channel": cid}) from exc
         accepted += out.accepted
         duplicates += out.duplicates

@@ -5,9 +5,11 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
 from threading import Lock
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import Depends, Header, HTTPException, Request
 from starlette.concurrency import run_in_threadpool
@@ -15,7 +17,7 @@ from starlette.concurrency import run_in_threadpool
 from ..actions.unit import Work
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
-from ..errors import PayloadTooLarge
+from ..errors import InvalidRequest, PayloadTooLarge
 from ..kernels import KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
@@ -122,3 +124,13 @@ def check_batch(n: int, settings: Settings) -> None:
     if n > settings.max_batch:
         raise PayloadTooLarge(f"{n} samples in one request; at most {settings.max_batch} are accepted",
                               details={"max_batch": settings.max_batch})
+
+
+def check_times(samples: Sequence[Any], settings: Settings) -> None:
+    """No sample's ``t`` is more than ``max_clock_skew_s`` ahead of this server's clock: a
+    time from a clock gone wrong would otherwise become the channel's ``last_sample_at``."""
+    latest = datetime.now(UTC) + timedelta(seconds=settings.max_clock_skew_s)
+    for i, s in enumerate(samples):
+        if s.t is not None and s.t > latest:
+            raise InvalidRequest(f"sample {i}: t is more than {settings.max_clock_skew_s:g} s ahead of the "
+                                 "server's clock", details={"index": i, "field": "t"})

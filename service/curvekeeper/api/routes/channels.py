@@ -7,13 +7,14 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Path, Query
 
 from ...actions import channels
+from ...channel_config import CHANNEL_ID_PATTERN
 from ..deps import Ctx, Who
 from ..schemas.channels import ChannelCreate, ChannelPage, ChannelPublic, ChannelUpdate
 from ..schemas.common import COMMON_ERRORS, error_responses
 
 router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON_ERRORS, **error_responses(404, 409)})
 
-ChannelPath = Annotated[str, Path(pattern=r"^[a-z0-9._-]{1,128}$")]
+ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
 
 

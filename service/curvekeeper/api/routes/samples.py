@@ -9,7 +9,7 @@ from typing import Annotated
 from fastapi import APIRouter, Query, Response
 
 from ...actions import samples
-from ..deps import Ctx, Who, check_batch
+from ..deps import Ctx, Who, check_batch, check_times
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
     GatewayAnswer,
@@ -28,6 +28,7 @@ router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_respons
 async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
     who.require_channel(channel_id, "device")
     check_batch(len(body.samples), ctx.settings)
+    check_times(body.samples, ctx.settings)
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
                                                                  who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
@@ -40,7 +41,10 @@ async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
 async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
+    """All or nothing: an unknown channel (404) or a bad sample (422) refuses the whole
+    batch, names the first such sample's index and channel, and stores nothing."""
     check_batch(len(body.samples), ctx.settings)
+    check_times(body.samples, ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]

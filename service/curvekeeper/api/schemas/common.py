@@ -2,19 +2,23 @@
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Annotated, Any, Generic, Literal, TypeVar
 
-from pydantic import AwareDatetime, BaseModel, BeforeValidator, ConfigDict, Field
+from pydantic import AfterValidator, AwareDatetime, BaseModel, BeforeValidator, ConfigDict, Field
+
+from ...channel_config import ChannelId as ChannelId  # the schemas take the declaration's id from here
+from ...channel_config import Plain
 
 #: a finite JSON number of sane size (NaN, Infinity and |v| > 1e15 are refused)
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e15, le=1e15)]
-ChannelId = Annotated[str, Field(pattern=r"^[a-z0-9._-]{1,128}$", examples=["coldroom2.probe07"])]
-Label = Annotated[str, Field(max_length=256)]
-Source = Annotated[str, Field(min_length=1, max_length=128, examples=["gw-3"])]
+#: free text without control characters (PostgreSQL cannot store NUL)
+Label = Annotated[Plain, Field(max_length=256)]
+Source = Annotated[Plain, Field(min_length=1, max_length=128, examples=["gw-3"])]
 Seq = Annotated[int, Field(strict=True, ge=0, le=2**62)]
-#: a snapshot's id: within the store's 32-bit integers, so any other id is a 404, never a 500
-SnapshotId = Annotated[int, Field(ge=-(2**31), le=2**31 - 1)]
+#: a snapshot's id: a JSON integer (not "1" or true) within the store's 32-bit integers,
+#: so any other id is a 404, never a 500
+SnapshotId = Annotated[int, Field(strict=True, ge=-(2**31), le=2**31 - 1)]
 
 
 def _date_time_text(v: Any) -> Any:
@@ -24,8 +28,24 @@ def _date_time_text(v: Any) -> Any:
     return v
 
 
-#: a time as ISO-8601 text with a time zone (e.g. 2026-12-01T10:00:00Z); a number is refused
-When = Annotated[AwareDatetime, BeforeValidator(_date_time_text)]
+EARLIEST = datetime(1970, 1, 1, tzinfo=UTC)
+#: a year short of datetime's end, so that no offset or arithmetic on a time overflows
+LATEST = datetime(9999, 1, 1, tzinfo=UTC)
+
+
+def _in_range(v: datetime) -> datetime:
+    try:
+        utc = v.astimezone(UTC)
+    except OverflowError:  # e.g. 0001-01-01T00:00:00+14:00 is in year 0 in UTC
+        raise ValueError("is out of range once converted to UTC") from None
+    if not EARLIEST <= utc < LATEST:
+        raise ValueError("must lie between 1970-01-01T00:00:00Z and 9999-01-01T00:00:00Z")
+    return v
+
+
+#: a time as ISO-8601 text with a time zone (e.g. 2026-12-01T10:00:00Z), from 1970 to
+#: before 9999 in UTC; a number is refused
+When = Annotated[AwareDatetime, BeforeValidator(_date_time_text), AfterValidator(_in_range)]
 
 #: the drift detector's state on standardised residuals
 DriftState = Literal["ok", "warning", "alarm"]

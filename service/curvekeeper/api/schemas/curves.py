@@ -35,7 +35,8 @@ class CalibrateIn(BaseModel):
     include_history: bool = False
     since: When | None = Field(None, description="with include_history: samples measured at or after")
     until: When | None = Field(None, description="with include_history: samples measured at or before")
-    last: int | None = Field(None, ge=1, le=1_000_000, description="with include_history: only the newest N")
+    last: int | None = Field(None, strict=True, ge=1, le=1_000_000,
+                             description="with include_history: only the newest N")
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
 
