@@ -9,7 +9,7 @@ from typing import Any
 from starlette.exceptions import HTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from ..metrics import Metrics
+from ..metrics import UNMATCHED, Metrics
 from .errors import error_body
 
 
@@ -89,8 +89,11 @@ class RequestMetrics:
         try:
             await self.app(scope, receive, send_status)
         finally:
+            # the route's template, never the path as sent: label values must stay few
             route: Any = scope.get("route")
-            path = getattr(route, "path", "unmatched")
+            path = getattr(route, "path", None)
+            if not isinstance(path, str):
+                path = UNMATCHED
             self.metrics.observe_request(scope.get("method", ""), path, status["code"],
                                          time.perf_counter() - start)
 
