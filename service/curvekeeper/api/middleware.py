@@ -99,12 +99,11 @@ class RequestMetrics:
 
 
 API_CSP = "default-src 'none'; frame-ancestors 'none'"
-# the interactive API pages load their script and style from the CDN FastAPI names and
-# start with an inline script; nothing else may load, and no page may frame them
-DOCS_CSP = ("default-src 'none'; script-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
-            "style-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
-            "img-src 'self' data: https://fastapi.tiangolo.com; "
-            "connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
+# the interactive API page (api/docs.py) loads its script and style from this service
+# and starts with an inline script; nothing else may load, and no page may frame it
+DOCS_CSP = ("default-src 'none'; script-src 'self' 'unsafe-inline'; style-src 'self' 'unsafe-inline'; "
+            "img-src 'self' data:; connect-src 'self'; "
+            "frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
 # the technician's pages under /ui/: scripts and styles from this service only, no inline
 # script, no eval; styles may also be set inline, because the plotting library positions
 # its elements with style attributes; no form posts anywhere (the scripts send the key)
