@@ -181,6 +181,11 @@ def cmd_db_backup(args: argparse.Namespace) -> int:
     if target.exists():
         print(f"{target} exists; choose a new path", file=sys.stderr)
         return 2
+    from .store.engine import create_private
+
+    if not create_private(target):  # private like the store: a backup holds the same readings and key hashes
+        print(f"{target} exists or its folder does not; choose a new path", file=sys.stderr)
+        return 2
     src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
     dst = sqlite3.connect(target)
     try:

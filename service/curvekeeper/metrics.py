@@ -2,9 +2,28 @@
 
 from __future__ import annotations
 
+from http import HTTPStatus
+
 from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
 
 from .core.jit import specializations
+
+# label values come from these fixed sets only: a label taken from the request as sent
+# makes a new series per distinct value, and a client could grow memory and /metrics without end
+METHODS = ("GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS")
+_METHODS = frozenset(METHODS)
+_STATUSES = frozenset(int(s) for s in HTTPStatus)
+UNMATCHED = "unmatched"
+
+
+def method_label(method: str) -> str:
+    """The method as a label: one of ``METHODS``, else ``other``."""
+    return method if method in _METHODS else "other"
+
+
+def status_label(status: int) -> str:
+    """The status code as a label: a registered HTTP status, else its class (``5xx``)."""
+    return str(status) if status in _STATUSES else f"{min(max(status // 100, 1), 5)}xx"
 
 
 class Metrics:
@@ -24,7 +43,10 @@ class Metrics:
               registry=self.registry).set_function(specializations)
 
     def observe_request(self, method: str, route: str, status: int, seconds: float) -> None:
-        self.requests.labels(method, route, str(status)).inc()
+        """Counts one request; ``route`` is the matched route's template or ``UNMATCHED``
+        (never the path as sent), and ``method`` and ``status`` are bounded here."""
+        method = method_label(method)
+        self.requests.labels(method, route, status_label(status)).inc()
         self.latency.labels(method, route).observe(seconds)
 
     def observe_samples(self, accepted: int, rejected: int, duplicates: int, alarms: int) -> None:

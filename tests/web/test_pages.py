@@ -322,3 +322,43 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
 def test_a_page_without_a_key_goes_to_sign_in(tab: Tab, served: Served) -> None:
     tab.page.goto(served.url + "/ui/channels/coldstore.chill.p1")
     tab.page.wait_for_url(served.url + "/ui/")
+
+
+# --- names and units are text, never markup ------------------------------------------------
+
+HTML_NAMES = {"inputs": [{"name": '<a href="https://example.invalid/x">raw</a>', "unit": "<b>mV</b>",
+                          "min": 0, "max": 10}],
+              "output": {"name": '<a href="https://example.invalid/y">T</a>', "unit": "<i>degC</i>&amp;"}}
+
+
+def test_names_and_units_holding_html_are_drawn_as_text(tab: Tab, served: Served) -> None:
+    cid = "web.markup.p1"
+    r = served.api.post("/v1/channels", json={"id": cid, **HTML_NAMES})
+    assert r.status_code == 201, r.text
+    r = served.api.post(f"/v1/channels/{cid}/samples",
+                        json={"samples": [{"x": float(i), "y": 2.0 * i + 1} for i in range(12)]})
+    assert r.status_code == 200, r.text
+    page = tab.page
+    sign_in(tab, served)
+    page.goto(f"{served.url}/ui/channels/{cid}")
+    ch = served.api.get(f"/v1/channels/{cid}").json()
+    page.wait_for_selector(f"body[data-loaded='{ch['version']}']")
+    inp, out = HTML_NAMES["inputs"][0], HTML_NAMES["output"]
+    for plot in ("#curve-plot", "#residual-plot"):
+        assert page.locator(f"{plot} a").count() == 0, plot  # no link, nor any other element, from a name
+        assert page.locator(f"{plot} b, {plot} i").count() == 0, plot
+    assert page.text_content("#curve-plot .xtitle") == f"{inp['name']} ({inp['unit']})"
+    assert page.text_content("#curve-plot .ytitle") == f"{out['name']} ({out['unit']})"
+    assert page.text_content("#residual-plot .ytitle") == f"residual ({out['unit']})"
+    assert page.locator("a[href^='https://example.invalid']").count() == 0
+
+
+# --- the API pages work offline ------------------------------------------------------------
+
+def test_api_docs_load_without_the_internet(tab: Tab, served: Served) -> None:
+    page = tab.page  # the tab lets nothing through but the service itself
+    page.goto(served.url + "/docs")
+    page.wait_for_selector(".opblock-summary", timeout=15_000)
+    assert page.locator(".opblock-summary").count() >= 20  # every operation is listed
+    assert "/v1/channels/{channel_id}/samples" in page.text_content("#swagger-ui")
+    assert "Learn from samples, in order" in page.text_content("#swagger-ui")

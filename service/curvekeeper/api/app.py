@@ -19,7 +19,7 @@ from ..metrics import Metrics
 from ..ratelimit import RateLimiter
 from ..store import Store
 from ..web import routes as web
-from . import errors
+from . import docs, errors
 from .deps import AppContext, KeyCache
 from .middleware import BodyLimit, RequestMetrics, SecurityHeaders
 from .routes import audit, channels, curves, health, keys, samples, snapshots
@@ -59,8 +59,11 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         finally:
             store.dispose()
 
-    app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan)
+    # docs_url/redoc_url off: FastAPI's pages load their scripts from a CDN; ours are local
+    app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan,
+                  docs_url=None, redoc_url=None)
     errors.install(app)
+    docs.install(app, "curvekeeper")
     for module in (health, channels, samples, curves, snapshots, keys, audit, web):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)

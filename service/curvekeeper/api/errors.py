@@ -72,7 +72,10 @@ def install(app: FastAPI) -> None:
     async def _service(_: Request, exc: ServiceError) -> JSONResponse:
         headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, StoreBusy | NotReady) else None
         if isinstance(exc, StoreBusy):
-            log.warning("store busy: %s", exc.details)
+            # the database's own words ("database or disk is full"), not only a class name
+            cause = getattr(exc.__cause__, "orig", None) or exc.__cause__ or exc.message
+            reason = exc.details.get("reason") if isinstance(exc.details, dict) else None
+            log.warning("store unavailable (%s): %s", reason, cause)
         status = status_of(exc)
         if status == 500:
             log.error("%s: %s (%s)", exc.code, exc.message, exc.details)

@@ -9,7 +9,7 @@ from typing import Any
 from starlette.exceptions import HTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from ..metrics import Metrics
+from ..metrics import UNMATCHED, Metrics
 from .errors import error_body
 
 
@@ -89,19 +89,21 @@ class RequestMetrics:
         try:
             await self.app(scope, receive, send_status)
         finally:
+            # the route's template, never the path as sent: label values must stay few
             route: Any = scope.get("route")
-            path = getattr(route, "path", "unmatched")
+            path = getattr(route, "path", None)
+            if not isinstance(path, str):
+                path = UNMATCHED
             self.metrics.observe_request(scope.get("method", ""), path, status["code"],
                                          time.perf_counter() - start)
 
 
 API_CSP = "default-src 'none'; frame-ancestors 'none'"
-# the interactive API pages load their script and style from the CDN FastAPI names and
-# start with an inline script; nothing else may load, and no page may frame them
-DOCS_CSP = ("default-src 'none'; script-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
-            "style-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
-            "img-src 'self' data: https://fastapi.tiangolo.com; "
-            "connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
+# the interactive API page (api/docs.py) loads its script and style from this service
+# and starts with an inline script; nothing else may load, and no page may frame it
+DOCS_CSP = ("default-src 'none'; script-src 'self' 'unsafe-inline'; style-src 'self' 'unsafe-inline'; "
+            "img-src 'self' data:; connect-src 'self'; "
+            "frame-ancestors 'none'; base-uri 'none'; form-action 'none'")
 # the technician's pages under /ui/: scripts and styles from this service only, no inline
 # script, no eval; styles may also be set inline, because the plotting library positions
 # its elements with style attributes; no form posts anywhere (the scripts send the key)

@@ -14,7 +14,34 @@ from . import migrate
 from .engine import is_sqlite, make_engine
 from .repository import Repository
 
-__all__ = ["Repository", "Store", "WriteLockTaken"]
+__all__ = ["Repository", "Store", "WriteLockTaken", "failure_reason"]
+
+# PostgreSQL error classes (SQLSTATE) that mean another transaction holds what we need
+_PG_LOCKED = {"55P03", "40P01", "40001", "57014"}
+
+
+def failure_reason(error: BaseException | None) -> str:
+    """Why the database refused, as the 503's ``details.reason``: ``locked`` (another
+    writer; retrying helps), ``disk_full``, ``read_only``, ``io_error``, ``unreachable``,
+    or ``operational_error``. Only lock contention is "busy": the others need an operator."""
+    if error is None:
+        return "operational_error"
+    sqlstate = getattr(error, "sqlstate", None)
+    if sqlstate is not None:  # PostgreSQL: classify by the SQLSTATE, not the wording
+        return ("locked" if sqlstate in _PG_LOCKED else "disk_full" if sqlstate == "53100"
+                else "unreachable" if sqlstate.startswith(("08", "57P")) else "operational_error")
+    text = str(error).lower()
+    if "locked" in text or "busy" in text:
+        return "locked"
+    if "disk is full" in text or "no space left" in text:
+        return "disk_full"
+    if "readonly" in text or "read-only" in text:
+        return "read_only"
+    if "disk i/o" in text:
+        return "io_error"
+    if getattr(type(error), "__module__", "").startswith("psycopg"):
+        return "unreachable"  # psycopg without SQLSTATE: no server answered (connection lost or refused)
+    return "operational_error"
 
 
 class WriteLockTaken(Exception):
@@ -64,9 +91,10 @@ class Store:
             session.commit()
         except OperationalError as exc:
             session.rollback()
+            # the reason tells lock contention from a full disk or a lost server; the
+            # driver's own message stays on the cause, for the log (it may name hosts)
             raise StoreBusy("the store is busy or unavailable; retry shortly",
-                            details={"reason": type(exc.orig).__name__ if exc.orig else "operational"}
-                            ) from exc
+                            details={"reason": failure_reason(exc.orig)}) from exc
         except BaseException:
             session.rollback()
             raise

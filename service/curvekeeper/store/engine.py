@@ -5,6 +5,8 @@ transactions so two writers never interleave a read-modify-write of one channel.
 
 from __future__ import annotations
 
+import os
+from pathlib import Path
 from typing import Any
 
 from sqlalchemy import Engine, create_engine, event
@@ -16,12 +18,42 @@ def is_sqlite(url: str) -> bool:
     return make_url(url).get_backend_name() == "sqlite"
 
 
+# a store holds readings and key hashes: new files are the owner's only. SQLite gives the
+# -wal and -shm files the database file's mode, so setting it once at creation covers all
+# three; an existing file keeps whatever mode its operator chose (e.g. 0640 for a backup group)
+PRIVATE_MODE = 0o600
+
+
+def _plain_file(database: str | None) -> Path | None:
+    """The file an SQLite URL's database names; None for memory and for ``file:`` URIs
+    (their options, such as ``mode=ro``, decide whether a file may be created)."""
+    if database in (None, "", ":memory:") or database.startswith("file:"):
+        return None
+    return Path(database)
+
+
+def create_private(path: Path) -> bool:
+    """Creates ``path`` empty with mode 0600 (whatever the umask) unless it exists; True
+    if it was created. A missing folder is left for SQLite to report."""
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, PRIVATE_MODE)
+    except (FileExistsError, FileNotFoundError):
+        return False
+    try:
+        os.fchmod(fd, PRIVATE_MODE)  # os.open's mode is narrowed by the umask, never widened: be exact
+    finally:
+        os.close(fd)
+    return True
+
+
 def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
     """An engine for ``url`` (the schema is the migrations' business: ``curvekeeper.store.migrate``).
     SQL parameters are kept out of logs and error messages: they hold readings and key hashes."""
     if is_sqlite(url):
         u = make_url(url)
         memory = u.database in (None, "", ":memory:")
+        if (path := _plain_file(u.database)) is not None:
+            create_private(path)  # before SQLite creates it with the umask's mode (often 0644)
         kwargs: dict[str, Any] = {"poolclass": StaticPool} if memory else {"pool_size": 8, "max_overflow": 16}
         engine = create_engine(
             url, connect_args={"check_same_thread": False, "timeout": busy_timeout_s}, hide_parameters=True,

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import csv
 import json
 import sys
 from pathlib import Path
@@ -11,6 +10,7 @@ from typing import Any, TextIO
 from urllib.parse import urlencode
 
 from ..client import Client, ClientError
+from ..csvcells import TextSafeWriter
 from .common import EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
 from .csvfiles import read_points
 
@@ -201,7 +201,7 @@ def samples_export(client: Client, args: argparse.Namespace) -> int:
     fields = EXPORT_FIELDS[:5] + xcols + EXPORT_FIELDS[5:]
 
     def write(f: TextIO) -> int:
-        w = csv.writer(f, lineterminator="\n")
+        w = TextSafeWriter(f, fields)  # a formula-like source opens as text in a spreadsheet
         w.writerow(fields)
         n = 0
         for s in _pages(client, f"/v1/channels/{args.channel}/samples"):

@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import csv
 import io
 from typing import Annotated
 
 from fastapi import APIRouter, Query, Response
 
 from ...actions import samples
+from ...csvcells import TextSafeWriter
 from ..deps import Ctx, Who, check_batch, check_times
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
@@ -68,7 +68,7 @@ def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100,
     if format == "json":
         return SamplePage.model_validate(page, from_attributes=True)
     buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
+    writer = TextSafeWriter(buf, CSV_FIELDS)
     writer.writerow(CSV_FIELDS)
     for it in page.items:
         x = it["x"]

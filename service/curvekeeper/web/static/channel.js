@@ -86,10 +86,11 @@ function curveTraces() {
   return traces;
 }
 
+// titles are plain text (names and units are the user's): escaped here for plotly
 function plotLayout(xTitle, yTitle) {
   return { margin: { l: 70, r: 20, t: 10, b: 55 }, paper_bgcolor: "#ffffff", plot_bgcolor: "#fbfaf6",
-           xaxis: { title: { text: xTitle }, gridcolor: "#e6e2d6", zeroline: false },
-           yaxis: { title: { text: yTitle }, gridcolor: "#e6e2d6", zeroline: false },
+           xaxis: { title: { text: CK.plotText(xTitle) }, gridcolor: "#e6e2d6", zeroline: false },
+           yaxis: { title: { text: CK.plotText(yTitle) }, gridcolor: "#e6e2d6", zeroline: false },
            legend: { orientation: "h", y: -0.2 }, hovermode: "closest" };
 }
 
@@ -221,7 +222,7 @@ async function overlaySnapshot(snapshot, quiet = false) {
       CK.api("POST", path("/predict"), { x: pts.map((p) => p.x), snapshot: snapshot.id }), difference(snapshot)]);
     page.overlay = { snapshot, diff, trace: {
       x: pts.map((p) => firstX(p.x)), y: res.y, mode: "lines", uid: "overlay",
-      name: `snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version})`,
+      name: CK.plotText(`snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version})`),
       line: { color: COLOURS.overlay, width: 2, dash: "dash" } } };
     const parts = differenceParts(diff);
     out.textContent = `Snapshot ${snapshot.id} (${snapshot.reason}, version ${snapshot.version}) overlaid: ` +

@@ -58,6 +58,14 @@ const CK = (() => {
     return e;
   }
 
+  // text for a plot: plotly draws a subset of HTML in titles and legend names (a name holding
+  // <a href=...> would become a live link) and turns &amp; &lt; &gt; back into characters;
+  // outside a tag nothing else is markup to it
+  const PLOT_ENTITIES = { "&": "&amp;", "<": "&lt;", ">": "&gt;" };
+  function plotText(s) {
+    return String(s).replace(/[&<>]/g, (c) => PLOT_ENTITIES[c]);
+  }
+
   // a number with its unit; significant digits, not a fixed number of decimals
   function num(v, unit, digits = 4) {
     if (v === null || v === undefined || Number.isNaN(v)) return "–";
@@ -92,5 +100,5 @@ const CK = (() => {
     if (out) out.addEventListener("click", signOut);
   });
 
-  return { key, setKey, signOut, api, all, el, num, when, badge, say, ApiError };
+  return { key, setKey, signOut, api, all, el, num, when, badge, say, plotText, ApiError };
 })();
