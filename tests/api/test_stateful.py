@@ -1,12 +1,13 @@
 """Random sequences of API calls against one store (hypothesis' rule-based state machine).
 
-Each example is a fresh SQLite store (a copy of the session's migrated template) behind
-the in-process app. The rules create channels, post samples (one channel or a gateway
-batch, with and without source and seq, retries included), calibrate, change settings,
-take snapshots, roll back, predict and restart the app on the same store (an empty cache
-of decoded models). After every step: no answer is a 5xx, every channel answers 200 with
-a schema-valid body, holds the samples this test's model says were stored, and its version
-has not gone back. At the end, a replay of every channel's log gives its stored state.
+Each example is a fresh store behind the in-process app: a copy of the session's migrated
+SQLite template, or the emptied PostgreSQL test database when there is one. The rules
+create channels, post samples (one channel or a gateway batch, with and without source
+and seq, retries included), calibrate, change settings, take snapshots, roll back, predict
+and restart the app on the same store (an empty cache of decoded models). After every
+step: no answer is a 5xx, every channel answers 200 with a schema-valid body, holds the
+samples this test's model says were stored, and its version has not gone back. At the
+end, a replay of every channel's log gives its stored state.
 """
 
 from __future__ import annotations
@@ -39,7 +40,7 @@ from hypothesis.stateful import (
 )
 from pydantic import BaseModel
 
-from tests.conftest import ADMIN_SECRET, auth, store_fingerprint
+from tests.conftest import ADMIN_SECRET, auth, empty_postgres, store_fingerprint
 
 from .helpers import assert_error
 
@@ -74,14 +75,19 @@ class Channel:
 
 class ApiMachine(RuleBasedStateMachine):
     template: ClassVar[Path]
+    postgres: ClassVar[str | None] = None  # the PostgreSQL test database; None: SQLite
 
     channels = Bundle("channels")
 
     def __init__(self) -> None:
         super().__init__()
         self.dir = Path(tempfile.mkdtemp(prefix="ck-stateful-"))
-        shutil.copyfile(self.template, self.dir / "store.db")
-        self.url = f"sqlite:///{self.dir / 'store.db'}"
+        if self.postgres:
+            empty_postgres(self.postgres)
+            self.url = self.postgres
+        else:
+            shutil.copyfile(self.template, self.dir / "store.db")
+            self.url = f"sqlite:///{self.dir / 'store.db'}"
         self.settings = Settings(database_url=self.url, admin_key=ADMIN_SECRET)
         self.client = self._open()
         self.model: dict[str, Channel] = {}
@@ -272,6 +278,9 @@ SETTINGS = settings(max_examples=15, stateful_step_count=25, derandomize=True, d
 
 
 @pytest.mark.slow
-def test_random_api_sequences_keep_the_store_consistent(sqlite_template: Path, kernels_ready: None) -> None:
+@pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
+def test_random_api_sequences_keep_the_store_consistent(backend: str, request: pytest.FixtureRequest,
+                                                        sqlite_template: Path, kernels_ready: None) -> None:
     ApiMachine.template = sqlite_template
+    ApiMachine.postgres = request.getfixturevalue("postgres_url") if backend == "postgresql" else None
     run_state_machine_as_test(ApiMachine, settings=SETTINGS)
