@@ -2,27 +2,34 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Query
+from fastapi import APIRouter, Body, Query
 
 from ...actions import curves
 from ...errors import PayloadTooLarge
-from ..deps import Ctx, Who
+from ..deps import Ctx, Who, check_items, checked_body, count_items, unvalidated, validate_body
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import CalibrateIn, CalibrationAnswer, CurveAnswer, PredictAnswer, PredictIn
 from ..work import run_store
 from .channels import ChannelPath
+
+#: most points in one calibrate request (the schema's own bound on ``points``)
+MAX_POINTS: int = next(m.max_length for m in CalibrateIn.model_fields["points"].metadata if hasattr(m, "max_length"))
+
+# request bodies validated by the routes themselves, after counting their items
+RawPredictIn = Annotated[Any, Body(), unvalidated(PredictIn)]
+RawCalibrateIn = Annotated[Any, Body(), unvalidated(CalibrateIn)]
 
 router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"],
                    responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/predict", summary="Calibrated values with standard uncertainty")
-async def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
+async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
+    body = await checked_body(raw, PredictIn, key="x", cap=ctx.settings.max_predict, noun="values",
+                              setting="max_predict")
     who.require_channel(channel_id, "device")
-    if len(body.x) > ctx.settings.max_predict:
-        raise PayloadTooLarge(f"at most {ctx.settings.max_predict} values per request")
     # 10,000 values take about 1 ms to compute: small enough for the loop
     out = await run_store(ctx.work, lambda unit: curves.predict(unit, channel_id, body.x, body.snapshot),
                           write=False, items=len(body.x) // 10)
@@ -43,7 +50,10 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
 
 
 @router.post("/calibrate", summary="Closed-form least-squares calibration")
-def calibrate(channel_id: ChannelPath, body: CalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
+def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
+    # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
+    check_items(count_items(raw, "points"), MAX_POINTS, "points", "max_points")
+    body = validate_body(raw, CalibrateIn)
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=not body.dry_run) as unit:
         out = curves.calibrate(unit, channel_id, points=[(p.inputs(), p.y) for p in body.points],

@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import csv
 import io
-from typing import Annotated
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Query, Response
+from fastapi import APIRouter, Body, Query, Response
 
 from ...actions import samples
-from ..deps import Ctx, Who, check_batch
+from ..deps import Ctx, Who, checked_body, unvalidated
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
     GatewayAnswer,
@@ -21,13 +21,18 @@ from ..schemas.samples import (
 from ..work import run_store
 from .channels import ChannelPath, Limit
 
+# request bodies validated by the routes themselves, after counting their items
+RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn)]
+RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn)]
+
 router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
-async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+    body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                              setting="max_batch")
     who.require_channel(channel_id, "device")
-    check_batch(len(body.samples), ctx.settings)
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
                                                                  who.key_id), write=True, items=len(body.samples))
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
@@ -39,8 +44,9 @@ async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: 
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
-async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
-    check_batch(len(body.samples), ctx.settings)
+async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
+    body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                              setting="max_batch")
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
