@@ -7,17 +7,14 @@ import math
 import time
 from dataclasses import dataclass, field
 from threading import Lock
-from typing import Annotated, Any, TypeVar
+from typing import Annotated
 
 from fastapi import Depends, Header, HTTPException, Request
-from fastapi.exceptions import RequestValidationError
-from pydantic import BaseModel, PlainValidator, ValidationError
 from starlette.concurrency import run_in_threadpool
 
 from ..actions.unit import Work
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
-from ..errors import PayloadTooLarge
 from ..kernels import KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
@@ -118,57 +115,3 @@ async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = N
 
 
 Who = Annotated[Principal, Depends(principal)]
-
-
-def check_batch(n: int, settings: Settings) -> None:
-    check_items(n, settings.max_batch, "samples", "max_batch")
-
-
-M = TypeVar("M", bound=BaseModel)
-
-#: most list items a body may hold to be validated on the event loop (more: in a worker thread)
-INLINE_MAX_BODY_ITEMS = 1000
-
-
-def _as_parsed(value: Any) -> Any:
-    return value
-
-
-def unvalidated(model: type[BaseModel]) -> PlainValidator:
-    """For ``Annotated[Any, Body(), unvalidated(Model)]``: a request body that FastAPI parses
-    from JSON but leaves unvalidated (no model object is built), documented in the OpenAPI
-    document as ``Model``: the route counts its items first (``checked_body``), so an
-    oversized body is refused before paying for its validation."""
-    return PlainValidator(_as_parsed, json_schema_input_type=model)
-
-
-def count_items(raw: Any, key: str) -> int:
-    """How many items the parsed body's list ``key`` holds (0 where it is not a list)."""
-    items = raw.get(key) if isinstance(raw, dict) else None
-    return len(items) if isinstance(items, list) else 0
-
-
-def validate_body(raw: Any, model: type[M]) -> M:
-    """``raw`` (parsed JSON) as ``model``; a ``ValidationError`` becomes the 422 FastAPI gives
-    for a body, with the same error locations (``("body", ...)``)."""
-    try:
-        return model.model_validate(raw)
-    except ValidationError as exc:
-        raise RequestValidationError([{**e, "loc": ("body", *e["loc"])} for e in exc.errors(include_url=False)],
-                                     body=raw) from None
-
-
-def check_items(n: int, cap: int, noun: str, setting: str) -> None:
-    """413 (payload_too_large) when a body holds more than ``cap`` items."""
-    if n > cap:
-        raise PayloadTooLarge(f"{n} {noun} in one request; at most {cap} are accepted", details={setting: cap})
-
-
-async def checked_body(raw: Any, model: type[M], *, key: str, cap: int, noun: str, setting: str) -> M:
-    """The body's item count checked against ``cap`` before any validation, then the body
-    validated: in a worker thread when it is large (validation costs microseconds per item)."""
-    n = count_items(raw, key)
-    check_items(n, cap, noun, setting)
-    if n <= INLINE_MAX_BODY_ITEMS:
-        return validate_body(raw, model)
-    return await run_in_threadpool(validate_body, raw, model)

@@ -2,13 +2,25 @@
 
 from __future__ import annotations
 
+from contextlib import nullcontext
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Query
 
 from ...actions import curves
 from ...errors import PayloadTooLarge
-from ..deps import Ctx, Who, check_items, checked_body, count_items, unvalidated, validate_body
+from ..bodies import (
+    INLINE_MAX_BODY_ITEMS,
+    CountedRoute,
+    check_items,
+    checked_body,
+    count_items,
+    counted,
+    paused_gc,
+    unvalidated,
+    validate_body,
+)
+from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import CalibrateIn, CalibrationAnswer, CurveAnswer, PredictAnswer, PredictIn
 from ..work import run_store
@@ -21,11 +33,12 @@ MAX_POINTS: int = next(m.max_length for m in CalibrateIn.model_fields["points"].
 RawPredictIn = Annotated[Any, Body(), unvalidated(PredictIn)]
 RawCalibrateIn = Annotated[Any, Body(), unvalidated(CalibrateIn)]
 
-router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"],
+router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"], route_class=CountedRoute,
                    responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/predict", summary="Calibrated values with standard uncertainty")
+@counted("x", lambda s: s.max_predict, "max_predict", "values")
 async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
     body = await checked_body(raw, PredictIn, key="x", cap=ctx.settings.max_predict, noun="values",
                               setting="max_predict")
@@ -50,13 +63,17 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
 
 
 @router.post("/calibrate", summary="Closed-form least-squares calibration")
+@counted("points", lambda s: MAX_POINTS, "max_points", "points")
 def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
     # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
-    check_items(count_items(raw, "points"), MAX_POINTS, "points", "max_points")
-    body = validate_body(raw, CalibrateIn)
+    n = count_items(raw, "points")
+    check_items(n, MAX_POINTS, "points", "max_points")
+    with paused_gc() if n > INLINE_MAX_BODY_ITEMS else nullcontext():
+        body = validate_body(raw, CalibrateIn, "points")
+        points = [(p.inputs(), p.y) for p in body.points]
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=not body.dry_run) as unit:
-        out = curves.calibrate(unit, channel_id, points=[(p.inputs(), p.y) for p in body.points],
+        out = curves.calibrate(unit, channel_id, points=points,
                                include_history=body.include_history, since=body.since, until=body.until,
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run)
     return CalibrationAnswer.model_validate(out)

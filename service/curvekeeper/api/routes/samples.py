@@ -9,7 +9,8 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Body, Query, Response
 
 from ...actions import samples
-from ..deps import Ctx, Who, checked_body, unvalidated
+from ..bodies import CountedRoute, checked_body, counted, unvalidated
+from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
     GatewayAnswer,
@@ -25,10 +26,11 @@ from .channels import ChannelPath, Limit
 RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn)]
 RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn)]
 
-router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
+router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
+@counted("samples", lambda s: s.max_batch, "max_batch", "samples")
 async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
     body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
                               setting="max_batch")
@@ -44,6 +46,7 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
+@counted("samples", lambda s: s.max_batch, "max_batch", "samples")
 async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
     body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
                               setting="max_batch")
