@@ -7,6 +7,7 @@ every ``/healthz`` behind it for as long: a latency bound on it is the behaviour
 from __future__ import annotations
 
 import json
+import sqlite3
 import threading
 import time
 from collections.abc import Callable, Iterator
@@ -18,6 +19,7 @@ import pytest
 
 from tests.api.test_load import BIG_RLS
 from tests.api.test_server import SECRET, serve, wait_for
+from tests.conftest import LINEAR
 
 pytestmark = pytest.mark.slow
 
@@ -87,3 +89,54 @@ def test_heavy_requests_leave_healthz_responsive(server: str) -> None:
             worst, answer = slowest_healthz_during(server, request)
             assert answer.status_code == status, (what, answer.text[:300])
             assert worst < MAX_HEALTHZ_S, f"/healthz took {worst:.2f} s during {what}"
+
+
+def test_a_held_write_lock_neither_stalls_healthz_nor_stretches_the_busy_timeout(tmp_path: Path) -> None:
+    """Another process holds the store's write lock for longer than the busy timeout while
+    many writers post at once: each writer answers 503 store_busy (Retry-After) within about
+    the busy timeout, and /healthz keeps answering at once meanwhile."""
+    busy = 1.0
+    with serve(tmp_path, CURVEKEEPER_BUSY_TIMEOUT_S=str(busy)) as (url, proc):
+        wait_for(url, "/readyz", proc)
+        h = {"Authorization": f"Bearer {SECRET}"}
+        with httpx.Client(base_url=url, headers=h, timeout=60) as c:
+            assert c.post("/v1/channels", json={"id": "site-a.p1", **LINEAR}).status_code == 201
+        lock = sqlite3.connect(tmp_path / "served.db", isolation_level=None)
+        answers: list[tuple[float, httpx.Response]] = []
+        # more writers than the store's pooled connections and the worker threads; small ones
+        # (tried on the event loop first) and large ones (straight to a worker thread)
+        n = 60
+        bodies = [json.dumps({"samples": [{"x": 1.0, "y": 2.0}] * (1 if i % 2 else 2000)}) for i in range(n)]
+        clients = [httpx.Client(base_url=url, headers={**h, "Content-Type": "application/json"}, timeout=60)
+                   for _ in range(n)]
+        start = threading.Barrier(n)
+
+        def writer(i: int) -> None:
+            start.wait()
+            t0 = time.perf_counter()
+            r = clients[i].post("/v1/channels/site-a.p1/samples", content=bodies[i])
+            answers.append((time.perf_counter() - t0, r))
+
+        def writers() -> httpx.Response:
+            threads = [threading.Thread(target=writer, args=(i,)) for i in range(n)]
+            for t in threads:
+                t.start()
+            for t in threads:
+                t.join()
+            return answers[0][1]
+
+        lock.execute("BEGIN IMMEDIATE")
+        try:
+            worst, _ = slowest_healthz_during(url, writers)
+        finally:
+            lock.execute("ROLLBACK")
+            lock.close()
+            for client in clients:
+                client.close()
+    assert len(answers) == n
+    for _, r in answers:
+        assert r.status_code == 503 and r.json()["error"]["code"] == "store_busy", r.text[:300]
+        assert r.headers["Retry-After"]
+    slowest = max(took for took, _ in answers)
+    assert slowest < busy + MAX_HEALTHZ_S, f"a writer answered after {slowest:.2f} s (busy timeout {busy} s)"
+    assert worst < MAX_HEALTHZ_S, f"/healthz took {worst:.2f} s while the lock was held"

@@ -10,6 +10,9 @@ from __future__ import annotations
 import asyncio
 import gc
 import json
+import sqlite3
+import threading
+import time
 from collections.abc import Callable
 from typing import Any
 
@@ -18,7 +21,9 @@ from curvekeeper.actions import samples as samples_actions
 from curvekeeper.api import bodies, create_app
 from curvekeeper.api.routes.curves import MAX_POINTS
 from curvekeeper.config import Settings
-from curvekeeper.errors import PayloadTooLarge
+from curvekeeper.errors import PayloadTooLarge, StoreBusy
+from curvekeeper.store import Store
+from curvekeeper.store.engine import SQLITE_CONNECTIONS
 from fastapi.testclient import TestClient
 
 from tests.api.helpers import Keys, expect_error
@@ -201,3 +206,43 @@ def test_paused_gc_nests_and_restores_the_collector() -> None:
         assert not gc.isenabled()  # off before: stays off
     finally:
         (gc.enable if was else gc.disable)()
+
+
+# the store under a held write lock (SQLite) ------------------------------------------------
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_a_write_waits_for_the_lock_only_until_its_deadline(database_url: str) -> None:
+    """A deadline already past: the write answers store_busy at once, not after the busy
+    timeout (a request that queued that long for a worker thread has used up its wait)."""
+    store = Store(database_url, busy_timeout_s=30.0)
+    held = sqlite3.connect(database_url.removeprefix("sqlite:///"), isolation_level=None, check_same_thread=False)
+    try:
+        held.execute("BEGIN IMMEDIATE")
+        # the lock comes free well within the busy timeout: a write waiting that long would get it
+        release = threading.Timer(0.5, held.execute, ("ROLLBACK",))
+        release.start()
+        with pytest.raises(StoreBusy), store.transaction(write=True, deadline=time.monotonic() - 1.0) as repo:
+            repo.channel_and_state("nowhere")
+        release.join()
+        with store.transaction(write=True, deadline=time.monotonic() + 30.0) as repo:  # free: taken at once
+            assert repo.channel_and_state("nowhere") is None
+    finally:
+        held.close()
+        store.dispose()
+
+
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)
+def test_the_event_loop_has_a_connection_of_its_own(database_url: str) -> None:
+    """Every pooled connection taken by worker threads (waiting for a held lock, say): work
+    on the loop (``wait=False``) still gets a connection without waiting for one."""
+    store = Store(database_url, busy_timeout_s=2.0)
+    taken = [store.engine.connect() for _ in range(SQLITE_CONNECTIONS)]
+    try:
+        with store.transaction(write=False, wait=False) as repo:
+            assert repo.channel_and_state("nowhere") is None
+        with store.transaction(write=True, wait=False) as repo:
+            assert repo.channel_and_state("nowhere") is None
+    finally:
+        for conn in taken:
+            conn.close()
+        store.dispose()

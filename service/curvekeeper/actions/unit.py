@@ -140,10 +140,11 @@ class Work:
         self.models = models if models is not None else ModelCache()
 
     @contextmanager
-    def unit(self, *, write: bool, wait: bool = True, budget: float = math.inf) -> Iterator[Unit]:
+    def unit(self, *, write: bool, wait: bool = True, budget: float = math.inf,
+             deadline: float | None = None) -> Iterator[Unit]:
         """One transaction (see ``Store.transaction``): committed when the block ends
         without an error, rolled back otherwise; the unit's after-commit steps then run."""
-        with self.store.transaction(write=write, wait=wait) as repo:
+        with self.store.transaction(write=write, wait=wait, deadline=deadline) as repo:
             unit = Unit(repo, self.models, budget)
             yield unit
         for step in unit._after:

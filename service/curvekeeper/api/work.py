@@ -16,6 +16,7 @@ the unit rolls back before doing anything and the work runs again in a worker th
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 from typing import TypeVar
 
@@ -33,18 +34,22 @@ INLINE_MAX_ITEMS = 1000
 INLINE_BUDGET = float(INLINE_MAX_ITEMS)
 
 
-def _in_unit(work: Work, fn: Callable[[Unit], T], write: bool) -> T:
-    with work.unit(write=write) as unit:
+def _in_unit(work: Work, fn: Callable[[Unit], T], write: bool, deadline: float) -> T:
+    with work.unit(write=write, deadline=deadline) as unit:
         return fn(unit)
 
 
-async def run_store(work: Work, fn: Callable[[Unit], T], *, write: bool, items: int = 1) -> T:
+async def run_store(work: Work, fn: Callable[[Unit], T], *, write: bool, items: int = 1,
+                    started: float | None = None) -> T:
     """``fn(unit)`` in one unit of work (committed on success), on the loop when small
-    enough and the store allows it, else in a worker thread."""
+    enough and the store allows it, else in a worker thread. A write waits for the store's
+    write lock until the busy timeout after ``started`` (``time.monotonic()``, default: now)
+    at most, however long it queued for worker threads (then 503 store_busy)."""
+    deadline = (time.monotonic() if started is None else started) + work.store.busy_timeout_s
     if work.store.inline and items <= INLINE_MAX_ITEMS and PROCESS.ready:
         try:
             with work.unit(write=write, wait=False, budget=INLINE_BUDGET) as unit:
                 return fn(unit)
         except (WriteLockTaken, OverBudget):
             pass
-    return await run_in_threadpool(_in_unit, work, fn, write)
+    return await run_in_threadpool(_in_unit, work, fn, write, deadline)

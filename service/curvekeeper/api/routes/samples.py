@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import time
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Query, Response
@@ -32,11 +33,13 @@ router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMM
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
 @counted("samples", lambda s: s.max_batch, "max_batch", "samples")
 async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+    started = time.monotonic()  # the busy timeout counts from here, validation in a worker thread included
     body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
                               setting="max_batch")
     who.require_channel(channel_id, "device")
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
-                                                                 who.key_id), write=True, items=len(body.samples))
+                                                                 who.key_id), write=True, items=len(body.samples),
+                          started=started)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     # validated here, once (FastAPI takes the instance as it is): an answer holds one residual
     # per sample, and at these sizes validating costs about what model_construct does
@@ -48,13 +51,14 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
 @router.post("/v1/samples", summary="Gateway batch across channels")
 @counted("samples", lambda s: s.max_batch, "max_batch", "samples")
 async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
+    started = time.monotonic()
     body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
                               setting="max_batch")
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
     out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id),
-                          write=True, items=len(items))
+                          write=True, items=len(items), started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
     return GatewayAnswer.model_validate(out)
 
