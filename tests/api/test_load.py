@@ -128,6 +128,7 @@ def test_snapshot_every_of_a_large_rls_channel_has_a_floor(client: TestClient, a
     assert r.status_code == 201, r.text
 
 
+@pytest.mark.parametrize("database_url", ["sqlite"], indirect=True)  # PostgreSQL work never runs on the loop
 def test_costly_learning_runs_in_a_worker_thread(client: TestClient, keys: Keys, make_channel: Make,
                                                  admin: dict[str, str], monkeypatch: pytest.MonkeyPatch) -> None:
     """Ten samples of a small channel are learned on the event loop; ten of the 120-term rls
