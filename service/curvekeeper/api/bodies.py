@@ -5,10 +5,10 @@ large one holds the event loop.
 A large body is parsed in a worker thread one list item per ``json`` call
 (``parse_counted``), stopping as soon as the list holds more items than allowed (413); and
 validated in slices (``validate_body``). Both matter beyond the thread: ``json.loads`` and
-pydantic hold the GIL for the whole of one call, so one call over a whole 8 MB body would
+pydantic hold the GIL for the whole of one call, so one call over a whole large body would
 hold the loop's thread just the same. And the cyclic garbage collector is paused meanwhile
-(``paused_gc``): the hundreds of thousands of objects such a body becomes set off full
-collections, each holding the GIL, so every thread, for a few hundred ms.
+(``paused_gc``): the many objects such a body becomes set off full collections, each of
+which holds the GIL, so every thread, in proportion to the size of the heap.
 """
 
 from __future__ import annotations
