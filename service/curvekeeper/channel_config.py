@@ -35,6 +35,9 @@ MAX_BASIS = 128  # basis functions (weights) of one channel
 MAX_CENTERS = 64
 MAX_KNOTS = 64
 MAX_TEXT = 256
+#: numbers of snapshot state a channel may store per sample learned: an rls state holds an
+#: M x M covariance, so its snapshot_every must be at least M*M / this (M: basis terms)
+SNAPSHOT_NUMBERS_PER_SAMPLE = 256
 
 
 def _whole(v: Any) -> Any:
@@ -358,7 +361,34 @@ class ChannelSettings(Strict):
                 raise rule(("inputs", i, "name"), f"{spec.name!r} is used twice", spec.name)
             names.add(spec.name)
         self.basis = _fit_basis(self.basis, self.inputs)
+        plain: dict[str, Any] = {"basis": self.basis.model_dump(), "inputs": self.inputs,
+                                 "learner": {"kind": self.learner.kind}}
+        floor = min_snapshot_every(plain)
+        if self.snapshot_every is not None and self.snapshot_every < floor:
+            m = basis_size(plain["basis"], len(self.inputs))
+            raise rule(("snapshot_every",), f"must be at least {floor} (or null) for an rls learner with {m} basis "
+                       f"terms: each snapshot holds its {m}x{m} covariance", self.snapshot_every)
         return self
+
+
+def basis_size(basis: dict[str, Any], inputs: int) -> int:
+    """M, the number of basis terms (weights) of a fitted ``basis`` over ``inputs`` inputs."""
+    kind, intercept = basis["kind"], basis.get("intercept", True)
+    if kind == "poly":
+        return math.comb(basis["degree"] + inputs, inputs) - (0 if intercept else 1)
+    if kind == "rbf":
+        return len(basis["centers"]) + (1 if intercept else 0)
+    if kind == "log_poly":
+        return len(basis["powers"])
+    return len(basis["knots"]) + 1 + (1 if intercept else 0)
+
+
+def min_snapshot_every(config: dict[str, Any]) -> int:
+    """The smallest snapshot_every allowed for a configuration (the plain dict): the state a
+    snapshot holds (M*M numbers for rls, M for sgd) over ``SNAPSHOT_NUMBERS_PER_SAMPLE``."""
+    m = basis_size(config["basis"], len(config["inputs"]))
+    state = m * m if config["learner"]["kind"] == "rls" else m
+    return max(1, math.ceil(state / SNAPSHOT_NUMBERS_PER_SAMPLE))
 
 
 def _fit_basis(b: PolyBasis | RbfBasis | LogPolyBasis | HingeBasis, inputs: list[InputSpec]

@@ -11,7 +11,7 @@ import numpy as np
 from ..core import ChannelModel, FitError, InputError
 from ..errors import ChannelNotFound, InvalidRequest, PayloadTooLarge, SnapshotNotFound
 from .channels import load
-from .unit import Unit, restore
+from .unit import Unit, item_cost, restore
 
 HISTORY_LIMIT = 1_000_000
 
@@ -53,6 +53,7 @@ def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
 
 def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
     model, version = _model_for(unit, channel_id, snapshot)
+    unit.spend(len(x) * item_cost(model) / 10)  # a prediction costs about a tenth of an update
     X = _inputs(model, x)
     try:
         y, u = model.predict(X)

@@ -10,6 +10,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
+from ..channel_config import min_snapshot_every
 from ..core import InputError, LearnResult
 from ..errors import ChannelNotFound, InvalidRequest
 from ..store import Repository
@@ -17,7 +18,7 @@ from ..store.repository import LearningState, SampleRows
 from ..store.tables import utcnow
 from .channels import load
 from .paging import Page, decode_cursor, encode_cursor
-from .unit import Unit
+from .unit import Unit, item_cost
 
 
 class SampleLike(Protocol):
@@ -67,6 +68,7 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     repo = unit.repo
     now = utcnow()
     model = unit.write_model(st)
+    unit.spend(len(samples) * item_cost(model))
     d = len(model.config["inputs"])
     seen: set[int] = set()
     if source is not None:
@@ -99,6 +101,8 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     y = np.array(ys, dtype=np.float64)
     n0, v0 = st.n_samples, st.version
     every = model.config["snapshot_every"]
+    if every:  # a channel declared before the floor existed gets it now
+        every = max(every, min_snapshot_every(model.config))
     cuts = [k for k in range(1, len(keep) + 1) if every and (n0 + k) % every == 0]
     bounds = sorted({0, *cuts, len(keep)})
     results: list[LearnResult] = []

@@ -10,6 +10,7 @@ model saved in a transaction enters the cache only once that transaction has com
 
 from __future__ import annotations
 
+import math
 from collections import OrderedDict
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -76,14 +77,34 @@ def restore(config: dict[str, Any], state: dict[str, Any], what: str) -> Channel
                                  details={"reason": exc.message}) from exc
 
 
+class OverBudget(Exception):
+    """``Unit.spend`` found the work costlier than the unit's budget; raised before the work
+    is done, so the transaction rolls back with nothing changed: run it again elsewhere."""
+
+
+def item_cost(model: ChannelModel) -> float:
+    """The cost of learning one sample on ``model``, in samples of a small channel: an rls
+    update costs M*M (its covariance), an sgd update M (M: basis terms)."""
+    m = model.basis.size
+    return 1.0 + (m * m if model.config["learner"]["kind"] == "rls" else m) / 64.0
+
+
 class Unit:
     """One transaction's work: ``repo`` for SQL, the process's models, and steps to run
-    once the transaction has committed (never if it rolls back)."""
+    once the transaction has committed (never if it rolls back). ``budget``: the cost the
+    unit may still ``spend`` (units of ``item_cost``), finite for work on the event loop."""
 
-    def __init__(self, repo: Repository, models: ModelCache) -> None:
+    def __init__(self, repo: Repository, models: ModelCache, budget: float = math.inf) -> None:
         self.repo = repo
         self.models = models
+        self.budget = budget
         self._after: list[Callable[[], None]] = []
+
+    def spend(self, cost: float) -> None:
+        """Account for work about to be done; raises ``OverBudget`` beyond the budget."""
+        self.budget -= cost
+        if self.budget < 0:
+            raise OverBudget()
 
     def after_commit(self, step: Callable[[], None]) -> None:
         self._after.append(step)
@@ -119,11 +140,12 @@ class Work:
         self.models = models if models is not None else ModelCache()
 
     @contextmanager
-    def unit(self, *, write: bool, wait: bool = True) -> Iterator[Unit]:
+    def unit(self, *, write: bool, wait: bool = True, budget: float = math.inf,
+             deadline: float | None = None) -> Iterator[Unit]:
         """One transaction (see ``Store.transaction``): committed when the block ends
         without an error, rolled back otherwise; the unit's after-commit steps then run."""
-        with self.store.transaction(write=write, wait=wait) as repo:
-            unit = Unit(repo, self.models)
+        with self.store.transaction(write=write, wait=wait, deadline=deadline) as repo:
+            unit = Unit(repo, self.models, budget)
             yield unit
         for step in unit._after:
             step()

@@ -17,7 +17,7 @@ from starlette.concurrency import run_in_threadpool
 from ..actions.unit import Work
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
-from ..errors import InvalidRequest, PayloadTooLarge
+from ..errors import InvalidRequest
 from ..kernels import KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
@@ -118,12 +118,6 @@ async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = N
 
 
 Who = Annotated[Principal, Depends(principal)]
-
-
-def check_batch(n: int, settings: Settings) -> None:
-    if n > settings.max_batch:
-        raise PayloadTooLarge(f"{n} samples in one request; at most {settings.max_batch} are accepted",
-                              details={"max_batch": settings.max_batch})
 
 
 def check_times(samples: Sequence[Any], settings: Settings) -> None:

@@ -8,17 +8,21 @@ a write takes the write lock only if it is free at once, else it goes to a worke
 thread that waits for the lock up to the busy timeout. Large batches and every
 PostgreSQL transaction (network round trips, row locks) run in worker threads, and so
 does all work until the process's compiled kernels are built (a compilation there would
-hold the loop for seconds).
+hold the loop for seconds). The size of a request is not its cost (an rls channel with a
+large basis costs hundreds of times more per sample than a small one): work on the loop
+has a budget that the actions spend once they know the channel (``Unit.spend``); past it
+the unit rolls back before doing anything and the work runs again in a worker thread.
 """
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 from typing import TypeVar
 
 from starlette.concurrency import run_in_threadpool
 
-from ..actions.unit import Unit, Work
+from ..actions.unit import OverBudget, Unit, Work
 from ..kernels import PROCESS
 from ..store import WriteLockTaken
 
@@ -26,22 +30,26 @@ T = TypeVar("T")
 
 #: most samples or values a request may have to run on the event loop (about 5 ms of work)
 INLINE_MAX_ITEMS = 1000
+#: the cost work on the event loop may spend (``Unit.spend``: samples of a small channel)
+INLINE_BUDGET = float(INLINE_MAX_ITEMS)
 
 
-def _in_unit(work: Work, fn: Callable[[Unit], T], write: bool) -> T:
-    with work.unit(write=write) as unit:
+def _in_unit(work: Work, fn: Callable[[Unit], T], write: bool, deadline: float) -> T:
+    with work.unit(write=write, deadline=deadline) as unit:
         return fn(unit)
 
 
-async def run_store(work: Work, fn: Callable[[Unit], T], *, write: bool, items: int = 1) -> T:
+async def run_store(work: Work, fn: Callable[[Unit], T], *, write: bool, items: int = 1,
+                    started: float | None = None) -> T:
     """``fn(unit)`` in one unit of work (committed on success), on the loop when small
-    enough and the store allows it, else in a worker thread."""
+    enough and the store allows it, else in a worker thread. A write waits for the store's
+    write lock until the busy timeout after ``started`` (``time.monotonic()``, default: now)
+    at most, however long it queued for worker threads (then 503 store_busy)."""
+    deadline = (time.monotonic() if started is None else started) + work.store.busy_timeout_s
     if work.store.inline and items <= INLINE_MAX_ITEMS and PROCESS.ready:
-        if not write:
-            return _in_unit(work, fn, write=False)
         try:
-            with work.unit(write=True, wait=False) as unit:
+            with work.unit(write=write, wait=False, budget=INLINE_BUDGET) as unit:
                 return fn(unit)
-        except WriteLockTaken:
+        except (WriteLockTaken, OverBudget):
             pass
-    return await run_in_threadpool(_in_unit, work, fn, write)
+    return await run_in_threadpool(_in_unit, work, fn, write, deadline)

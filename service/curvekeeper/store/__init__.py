@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 import sqlite3
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 
+from sqlalchemy.engine import make_url
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import sessionmaker
 
@@ -55,12 +57,17 @@ class Store:
     rolls back on any error; a locked or unreachable database raises ``StoreBusy``.
 
     ``inline`` is true where a short transaction never waits on the network: SQLite. There
-    the HTTP layer runs small requests on its event loop, with ``wait=False`` for writes:
-    the write lock is taken only if it is free at once, else ``WriteLockTaken`` is raised
-    before anything is done (the request then waits for the lock in a worker thread)."""
+    the HTTP layer runs small requests on its event loop, with ``wait=False``: on the loop's
+    own connection (its units run one at a time, so it never waits for a connection behind
+    worker threads), and for writes the write lock is taken only if it is free at once, else
+    ``WriteLockTaken`` is raised before anything is done (the request then waits for the
+    lock in a worker thread). ``deadline`` (``time.monotonic()``) bounds a write's wait for
+    the lock (SQLite): a request queued for a worker thread waits the busy timeout in all,
+    not on top of its time in the queue."""
 
     def __init__(self, url: str, *, busy_timeout_s: float = 5.0, prepare_schema: bool = True) -> None:
         self.url = url
+        self.busy_timeout_s = busy_timeout_s
         self.engine = make_engine(url, busy_timeout_s=busy_timeout_s)
         if prepare_schema:
             try:
@@ -70,31 +77,40 @@ class Store:
                 raise
         self._read = sessionmaker(self.engine, expire_on_commit=False)
         self._write = sessionmaker(self.engine.execution_options(immediate=True), expire_on_commit=False)
-        self._write_now = sessionmaker(self.engine.execution_options(immediate=True, wait=False),
-                                       expire_on_commit=False)
         self.inline = is_sqlite(url)
+        memory = self.inline and make_url(url).database in (None, "", ":memory:")
+        loop = make_engine(url, busy_timeout_s=busy_timeout_s, connections=1) if self.inline and not memory \
+            else self.engine
+        self._loop_engine = loop
+        self._loop_read = sessionmaker(loop, expire_on_commit=False)
+        self._loop_write = sessionmaker(loop.execution_options(immediate=True, busy_ms=0), expire_on_commit=False)
 
     @contextmanager
-    def transaction(self, *, write: bool, wait: bool = True) -> Iterator[Repository]:
-        if write and not wait and self.inline:
-            session = self._write_now()
-            try:
-                session.connection()  # BEGIN IMMEDIATE now, without waiting (on the driver)
-            except (OperationalError, sqlite3.OperationalError) as exc:
-                session.close()
-                raise WriteLockTaken() from exc
+    def transaction(self, *, write: bool, wait: bool = True, deadline: float | None = None) -> Iterator[Repository]:
+        if not wait and self.inline:
+            session = (self._loop_write if write else self._loop_read)()
+            if write:
+                try:
+                    session.connection()  # BEGIN IMMEDIATE now, without waiting (on the driver)
+                except (OperationalError, sqlite3.OperationalError) as exc:
+                    session.close()
+                    raise WriteLockTaken() from exc
         else:
             session = (self._write if write else self._read)()
         try:
+            if write and self.inline and deadline is not None:
+                # BEGIN IMMEDIATE waiting only what is left until the deadline
+                session.connection(execution_options={"busy_ms": (deadline - time.monotonic()) * 1000})
             repo = Repository(session)
             yield repo
             session.commit()
-        except OperationalError as exc:
+        except (OperationalError, sqlite3.OperationalError) as exc:  # the latter: BEGIN on the driver
             session.rollback()
             # the reason tells lock contention from a full disk or a lost server; the
             # driver's own message stays on the cause, for the log (it may name hosts)
+            orig = exc.orig if isinstance(exc, OperationalError) else exc
             raise StoreBusy("the store is busy or unavailable; retry shortly",
-                            details={"reason": failure_reason(exc.orig)}) from exc
+                            details={"reason": failure_reason(orig)}) from exc
         except BaseException:
             session.rollback()
             raise
@@ -103,3 +119,4 @@ class Store:
 
     def dispose(self) -> None:
         self.engine.dispose()
+        self._loop_engine.dispose()

@@ -46,15 +46,25 @@ def create_private(path: Path) -> bool:
     return True
 
 
-def make_engine(url: str, *, busy_timeout_s: float = 5.0) -> Engine:
+#: SQLite connections a process may open: more than the worker threads that can use them at
+#: once (anyio's default 40), so a thread never waits for a connection on top of the lock
+SQLITE_CONNECTIONS = 48
+
+
+def make_engine(url: str, *, busy_timeout_s: float = 5.0, connections: int = SQLITE_CONNECTIONS) -> Engine:
     """An engine for ``url`` (the schema is the migrations' business: ``curvekeeper.store.migrate``).
-    SQL parameters are kept out of logs and error messages: they hold readings and key hashes."""
+    SQL parameters are kept out of logs and error messages: they hold readings and key hashes.
+    SQLite: at most ``connections`` connections, and a checkout waits at most the busy timeout.
+    A write transaction with the execution option ``busy_ms`` waits that long for the write
+    lock instead of the busy timeout (0: not at all)."""
     if is_sqlite(url):
         u = make_url(url)
         memory = u.database in (None, "", ":memory:")
         if (path := _plain_file(u.database)) is not None:
             create_private(path)  # before SQLite creates it with the umask's mode (often 0644)
-        kwargs: dict[str, Any] = {"poolclass": StaticPool} if memory else {"pool_size": 8, "max_overflow": 16}
+        kwargs: dict[str, Any] = {"poolclass": StaticPool} if memory else {
+            "pool_size": min(8, connections), "max_overflow": max(0, connections - 8),
+            "pool_timeout": busy_timeout_s}
         engine = create_engine(
             url, connect_args={"check_same_thread": False, "timeout": busy_timeout_s}, hide_parameters=True,
             **kwargs
@@ -79,13 +89,14 @@ def _sqlite_events(engine: Engine, busy_timeout_s: float) -> None:
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
         options = conn.get_execution_options()
+        busy_ms = options.get("busy_ms")
         if not options.get("immediate", False):
             conn.exec_driver_sql("BEGIN")
-        elif options.get("wait", True):
+        elif busy_ms is None:
             conn.exec_driver_sql("BEGIN IMMEDIATE")
-        else:  # take the write lock only if it is free right now (on the driver: these run per request)
+        else:  # wait busy_ms for the write lock, 0: only if free right now (on the driver: per request)
             raw = conn.connection.dbapi_connection
-            raw.execute("PRAGMA busy_timeout=0")
+            raw.execute(f"PRAGMA busy_timeout={max(0, int(busy_ms))}")
             try:
                 raw.execute("BEGIN IMMEDIATE")
             finally:

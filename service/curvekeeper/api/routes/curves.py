@@ -2,27 +2,47 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from contextlib import nullcontext
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Query
+from fastapi import APIRouter, Body, Query
 
 from ...actions import curves
 from ...errors import PayloadTooLarge
+from ..bodies import (
+    INLINE_MAX_BODY_ITEMS,
+    CountedRoute,
+    check_items,
+    checked_body,
+    count_items,
+    counted,
+    paused_gc,
+    unvalidated,
+    validate_body,
+)
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.curves import CalibrateIn, CalibrationAnswer, CurveAnswer, PredictAnswer, PredictIn
 from ..work import run_store
 from .channels import ChannelPath
 
-router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"],
+#: most points in one calibrate request (the schema's own bound on ``points``)
+MAX_POINTS: int = next(m.max_length for m in CalibrateIn.model_fields["points"].metadata if hasattr(m, "max_length"))
+
+# request bodies validated by the routes themselves, after counting their items
+RawPredictIn = Annotated[Any, Body(), unvalidated(PredictIn)]
+RawCalibrateIn = Annotated[Any, Body(), unvalidated(CalibrateIn)]
+
+router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"], route_class=CountedRoute,
                    responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/predict", summary="Calibrated values with standard uncertainty")
-async def predict(channel_id: ChannelPath, body: PredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
+@counted("x", lambda s: s.max_predict, "max_predict", "values")
+async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
+    body = await checked_body(raw, PredictIn, key="x", cap=ctx.settings.max_predict, noun="values",
+                              setting="max_predict")
     who.require_channel(channel_id, "device")
-    if len(body.x) > ctx.settings.max_predict:
-        raise PayloadTooLarge(f"at most {ctx.settings.max_predict} values per request")
     # 10,000 values take about 1 ms to compute: small enough for the loop
     out = await run_store(ctx.work, lambda unit: curves.predict(unit, channel_id, body.x, body.snapshot),
                           write=False, items=len(body.x) // 10)
@@ -43,10 +63,17 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
 
 
 @router.post("/calibrate", summary="Closed-form least-squares calibration")
-def calibrate(channel_id: ChannelPath, body: CalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
+@counted("points", lambda s: MAX_POINTS, "max_points", "points")
+def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
+    # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
+    n = count_items(raw, "points")
+    check_items(n, MAX_POINTS, "points", "max_points")
+    with paused_gc() if n > INLINE_MAX_BODY_ITEMS else nullcontext():
+        body = validate_body(raw, CalibrateIn, "points")
+        points = [(p.inputs(), p.y) for p in body.points]
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=not body.dry_run) as unit:
-        out = curves.calibrate(unit, channel_id, points=[(p.inputs(), p.y) for p in body.points],
+        out = curves.calibrate(unit, channel_id, points=points,
                                include_history=body.include_history, since=body.since, until=body.until,
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run)
     return CalibrationAnswer.model_validate(out)

@@ -3,13 +3,15 @@
 from __future__ import annotations
 
 import io
-from typing import Annotated
+import time
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Query, Response
+from fastapi import APIRouter, Body, Query, Response
 
 from ...actions import samples
 from ...csvcells import TextSafeWriter
-from ..deps import Ctx, Who, check_batch, check_times
+from ..bodies import CountedRoute, checked_body, counted, unvalidated
+from ..deps import Ctx, Who, check_times
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
     GatewayAnswer,
@@ -21,16 +23,24 @@ from ..schemas.samples import (
 from ..work import run_store
 from .channels import ChannelPath, Limit
 
-router = APIRouter(tags=["samples"], responses={**COMMON_ERRORS, **error_responses(404)})
+# request bodies validated by the routes themselves, after counting their items
+RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn)]
+RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn)]
+
+router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMMON_ERRORS, **error_responses(404)})
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
-async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+@counted("samples", lambda s: s.max_batch, "max_batch", "samples")
+async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+    started = time.monotonic()  # the busy timeout counts from here, validation in a worker thread included
+    body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                              setting="max_batch")
     who.require_channel(channel_id, "device")
-    check_batch(len(body.samples), ctx.settings)
     check_times(body.samples, ctx.settings)
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
-                                                                 who.key_id), write=True, items=len(body.samples))
+                                                                 who.key_id), write=True, items=len(body.samples),
+                          started=started)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     # validated here, once (FastAPI takes the instance as it is): an answer holds one residual
     # per sample, and at these sizes validating costs about what model_construct does
@@ -40,16 +50,19 @@ async def post_samples(channel_id: ChannelPath, body: SamplesIn, ctx: Ctx, who: 
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
-async def post_gateway(body: GatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
+@counted("samples", lambda s: s.max_batch, "max_batch", "samples")
+async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
     """All or nothing: an unknown channel (404) or a bad sample (422) refuses the whole
     batch, names the first such sample's index and channel, and stores nothing."""
-    check_batch(len(body.samples), ctx.settings)
+    started = time.monotonic()
+    body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                              setting="max_batch")
     check_times(body.samples, ctx.settings)
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
     out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id),
-                          write=True, items=len(items))
+                          write=True, items=len(items), started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
     return GatewayAnswer.model_validate(out)
 
