@@ -130,6 +130,8 @@ BAD = [
     ({"learner": {"kind": "rls", "l2": 0.1}}, ("learner", "l2"), "Extra inputs"),
     ({"inputs": [{"name": "raw", "min": 5, "max": 5}]}, ("inputs", 0), "less than max"),
     ({"inputs": [{"name": "raw", "min": 6, "max": 5}]}, ("inputs", 0), "less than max"),
+    # a span so small that scaling by it overflows (found by the fuzz test: a 500 before)
+    ({"inputs": [{"name": "raw", "min": 0.0, "max": 5e-324}]}, ("inputs", 0, "max"), "too small to scale"),
     ({"inputs": [{"name": "raw", "min": 0}]}, ("inputs", 0, "max"), "Field required"),
     ({"inputs": [{"name": "raw", "min": 0, "max": 1, "offset": 2}]}, ("inputs", 0, "offset"), "Extra inputs"),
     ({"inputs": []}, ("inputs",), "at least 1 item"),

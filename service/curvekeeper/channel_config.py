@@ -131,6 +131,10 @@ class InputSpec(Strict):
     def _range(self) -> InputSpec:
         if not self.max > self.min:
             raise rule((), f"min must be less than max ({self.min:g} >= {self.max:g})", self.min)
+        span = self.max - self.min
+        if not (math.isfinite(span) and math.isfinite(2.0 / span)):
+            # the scaling to [-1, 1] divides by the span: it and its inverse must be finite numbers
+            raise rule(("max",), f"the range max - min ({span:g}) is too small to scale by", self.max)
         return self
 
 

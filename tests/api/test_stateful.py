@@ -273,7 +273,7 @@ class ApiMachine(RuleBasedStateMachine):
             shutil.rmtree(self.dir, ignore_errors=True)
 
 
-SETTINGS = settings(max_examples=15, stateful_step_count=25, derandomize=True, deadline=None,
+SETTINGS = settings(max_examples=10, stateful_step_count=20, derandomize=True, deadline=None,
                     suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
 
 
