@@ -173,6 +173,13 @@ def test_nul_in_text_is_422(client: TestClient, keys: Keys, channel: dict[str, A
     with cases.case("other control characters"):
         expect_error(client, "POST", SNAPSHOTS, 422, CODES_422, headers=keys["technician"],
                      json={"label": "a\u001bb"})
+    # query and path text reaches the store's WHERE clauses (PostgreSQL refused it with a 500)
+    queries = [("/v1/channels?prefix=a%00b", "GET", "technician"), ("/v1/audit?kind=a%00", "GET", "admin"),
+               ("/v1/audit?key_id=k%00", "GET", "admin"), (f"/v1/channels/{CH}/events?kind=x%00", "GET", "technician"),
+               ("/v1/keys/k%00", "DELETE", "admin")]
+    for url, method, who in queries:
+        with cases.case(url):
+            expect_error(client, method, url, 422, CODES_422, headers=keys[who])
     cases.done()
     # ordinary text, accented letters and spaces included, is still taken
     ok(client.post(SNAPSHOTS, json={"label": "étalonnage du banc 3"}, headers=keys["technician"]), 201)

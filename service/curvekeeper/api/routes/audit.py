@@ -7,6 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Query
 
 from ...actions import audit
+from ...channel_config import Plain
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS
 from ..schemas.events import AuditPage
@@ -17,8 +18,8 @@ router = APIRouter(prefix="/v1/audit", tags=["audit"], responses=COMMON_ERRORS)
 
 @router.get("", summary="Every change and event, with the key that made it (never a secret)")
 def list_audit(ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
-               kind: Annotated[str | None, Query(max_length=32)] = None,
-               key_id: Annotated[str | None, Query(max_length=40)] = None) -> AuditPage:
+               kind: Annotated[Plain | None, Query(max_length=32)] = None,
+               key_id: Annotated[Plain | None, Query(max_length=40)] = None) -> AuditPage:
     who.require("admin")
     with ctx.work.unit(write=False) as unit:
         page = audit.list_(unit.repo, kind=kind, key_id=key_id, cursor=cursor, limit=limit)

@@ -7,7 +7,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Path, Query
 
 from ...actions import channels
-from ...channel_config import CHANNEL_ID_PATTERN
+from ...channel_config import CHANNEL_ID_PATTERN, Plain
 from ..deps import Ctx, Who
 from ..schemas.channels import ChannelCreate, ChannelPage, ChannelPublic, ChannelUpdate
 from ..schemas.common import COMMON_ERRORS, error_responses
@@ -26,7 +26,7 @@ def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
 
 
 @router.get("", summary="List channels", response_model=ChannelPage)
-def list_channels(ctx: Ctx, who: Who, prefix: Annotated[str | None, Query(max_length=128)] = None,
+def list_channels(ctx: Ctx, who: Who, prefix: Annotated[Plain | None, Query(max_length=128)] = None,
                   state: Annotated[str | None, Query(description="ok, warning, alarm or out_of_tolerance")] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")

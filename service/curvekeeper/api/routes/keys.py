@@ -7,6 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Path
 
 from ...actions import keys
+from ...channel_config import Plain
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.keys import KeyCreate, KeyCreated, KeyPage, KeyPublic
@@ -32,7 +33,7 @@ def list_keys(ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None)
 
 
 @router.delete("/{kid}", summary="Revoke a key")
-def revoke_key(kid: Annotated[str, Path(max_length=40)], ctx: Ctx, who: Who) -> KeyPublic:
+def revoke_key(kid: Annotated[Plain, Path(max_length=40)], ctx: Ctx, who: Who) -> KeyPublic:
     who.require("admin")
     with ctx.work.unit(write=True) as unit:
         out = keys.revoke(unit.repo, kid, who.key_id)

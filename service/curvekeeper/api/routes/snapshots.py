@@ -7,6 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Path, Query
 
 from ...actions import events, snapshots
+from ...channel_config import Plain
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.events import EventPage
@@ -65,7 +66,7 @@ def rollback(channel_id: ChannelPath, body: RollbackIn, ctx: Ctx, who: Who) -> R
 
 @router.get("/events", summary="Drift alarms, rollbacks, calibrations, guards, settings changes")
 def list_events(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100, cursor: str | None = None,
-                kind: Annotated[str | None, Query(max_length=32)] = None) -> EventPage:
+                kind: Annotated[Plain | None, Query(max_length=32)] = None) -> EventPage:
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=False) as unit:
         page = events.list_(unit.repo, channel_id, kind=kind, cursor=cursor, limit=limit)
