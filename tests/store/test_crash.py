@@ -31,7 +31,7 @@ from tests.store.workers import read_log, retrying_client, stream
 pytestmark = pytest.mark.slow
 
 SEED = 20261201
-KILLS = 5  # each kill and restart tests the same guarantee; five keep the run short
+KILLS = 4  # each kill and restart tests the same guarantee; four keep the run short
 WAIT_S = 60.0  # longest wait for the clients to make progress between kills (a loaded machine)
 
 
