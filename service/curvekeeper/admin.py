@@ -18,12 +18,15 @@ import os
 import sqlite3
 import sys
 from pathlib import Path
-from typing import NamedTuple
+from typing import TYPE_CHECKING, NamedTuple
 
 from sqlalchemy.engine import URL, make_url
 from sqlalchemy.exc import SQLAlchemyError
 
 from .config import PREFIX, Settings
+
+if TYPE_CHECKING:
+    from .store import Store
 
 ENV = PREFIX + "DATABASE_URL"
 
@@ -123,18 +126,28 @@ def _refused(exc: NoStore) -> int:
     return 2
 
 
-def cmd_keys_create(args: argparse.Namespace) -> int:
-    from .actions import keys
+def open_store(args: argparse.Namespace, command: str) -> Store | int:
+    """The existing store the command names, opened; or, printed, why not (exit status 2):
+    missing, not ours, or behind this version's schema (``SchemaError``)."""
     from .errors import ServiceError
     from .store import Store
 
     try:
-        store = Store(open_existing(args, "keys create").url)  # refuses an outdated schema (SchemaError)
+        return Store(open_existing(args, command).url)
     except NoStore as exc:
         return _refused(exc)
     except ServiceError as exc:
-        print(f"keys create: {exc.message}", file=sys.stderr)
+        print(f"{command}: {exc.message}", file=sys.stderr)
         return 2
+
+
+def cmd_keys_create(args: argparse.Namespace) -> int:
+    from .actions import keys
+    from .errors import ServiceError
+
+    store = open_store(args, "keys create")
+    if isinstance(store, int):
+        return store
     try:
         with store.transaction(write=True) as repo:
             key = keys.create(repo, role=args.role, prefixes=args.prefix or [], label=args.label, key_id=None,
@@ -204,15 +217,10 @@ def cmd_replay(args: argparse.Namespace) -> int:
 
     from .actions.replay import replay
     from .errors import ServiceError
-    from .store import Store
 
-    try:
-        store = Store(open_existing(args, "replay").url)  # refuses an outdated schema (SchemaError)
-    except NoStore as exc:
-        return _refused(exc)
-    except ServiceError as exc:
-        print(f"replay: {exc.message}", file=sys.stderr)
-        return 2
+    store = open_store(args, "replay")
+    if isinstance(store, int):
+        return store
     try:
         with store.transaction(write=False) as repo, tqdm(unit="sample", desc=args.channel,
                                                           disable=args.quiet or None) as bar:
