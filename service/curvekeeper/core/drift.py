@@ -61,10 +61,16 @@ DETECTOR_DEFAULTS: dict[str, dict[str, Any]] = {
 # layout of the parameter vector dp: reference (k, delta or lambda), thresholds, clip, mean alpha
 DP_REF, DP_WARNING, DP_ALARM, DP_CLIP, DP_ALPHA = range(5)
 DP_SIZE = 5
-# layout of the state vector ds: a (S+ / g+ / e), b (S- / g-), running mean, n seen, state code
-DS_A, DS_B, DS_MEAN, DS_N, DS_STATE = range(5)
-DS_SIZE = 5
-OK, WARNING, ALARM = range(3)  # state codes, the index into STATES
+# layout of the state vector ds: a (S+ / g+ / e), b (S- / g-), running mean, n seen (plus the
+# prior count of the mean), state code, and the bound on |running mean| (0: none)
+DS_A, DS_B, DS_MEAN, DS_N, DS_STATE, DS_BOUND = range(6)
+DS_SIZE = 6
+OK, WARNING, ALARM = range(3)
+# Page-Hinkley's running mean (the baseline) learns from every sample for its first SETTLE
+# (prior count included), then only while both statistics are under FREEZE, so a change
+# under test is not absorbed into the baseline it is tested against
+SETTLE = 50.0
+FREEZE = 3.0  # state codes, the index into STATES
 
 
 def detector_params(cfg: dict[str, Any]) -> tuple[int, NDArray[np.float64]]:
@@ -115,7 +121,14 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
         alpha = 1.0 / ds[DS_N]
         if alpha < dp[DP_ALPHA]:
             alpha = dp[DP_ALPHA]
-        ds[DS_MEAN] += alpha * (z - ds[DS_MEAN])
+        if ds[DS_N] < SETTLE or (ds[DS_A] < FREEZE and ds[DS_B] < FREEZE):
+            ds[DS_MEAN] += alpha * (z - ds[DS_MEAN])
+        bound = ds[DS_BOUND]
+        if bound > 0.0:
+            if ds[DS_MEAN] > bound:
+                ds[DS_MEAN] = bound
+            elif ds[DS_MEAN] < -bound:
+                ds[DS_MEAN] = -bound
         stat = float(ds[DS_A] if ds[DS_A] > ds[DS_B] else ds[DS_B])
     else:
         lam = dp[DP_REF]

@@ -2,24 +2,28 @@
 
 For each sample i (phi = Phi[i], transformed reference z = z[i]):
 
-1. prior residual r = z - w . phi, and in output units y - g^-1(w . phi);
-2. after the warm-up, the drift detector takes r / s (s: residual s.d.), for
-   every sample, gated or not;
-3. outlier gate: |r| > outlier_sd * s after the warm-up -> stored, not learned;
-4. the step, ``sgd`` (LMS with a schedule, optional l2 pull toward the
-   reference weights and Huber clipping of r at ``huber`` * s) or ``rls``
-   (recursive least squares with forgetting factor lambda)::
+1. a sample the caller holds back (``hold[i]``: out of range, not finite, out of
+   service) is counted and nothing else; so is one whose residual or step would
+   not be a finite number (``not_finite``): no non-finite number enters the state;
+2. prior residual r = z - w . phi against the learner's curve (and in output
+   units, y - g^-1(w . phi));
+3. the drift watch: with a reference curve (after a calibration), the detector
+   takes the reference residual e = z - w_ref . phi, standardised by the pooled
+   scale of ``residuals.py``, from the first sample on, so a change the learner
+   absorbs still shows; without one, it takes r / s after the warm-up;
+4. outlier gate: |r| > outlier_sd * s once s rests on ``WARMUP`` degrees of freedom
+   (the fit's and the samples') -> stored, not learned;
+5. the step, ``sgd`` (LMS with a schedule, optional l2 pull toward the reference
+   weights and Huber clipping of r at ``huber`` * s) or ``rls`` (``rls.py``:
+   exact initialisation, forgetting with a bounded trace)::
 
        sgd: w <- w + eta * clip(r) * phi - eta * l2 * (w - w_ref)
-       rls: k = P phi / (lambda + phi' P phi);  w <- w + k r;
-            P <- (P - k phi' P) / lambda
 
-5. divergence guard: a step is not applied when it is unstable (SGD:
-   eta |phi|^2 > 2, which makes the sample's own residual grow, or eta l2 > 1;
-   RLS: lambda + phi' P phi not positive) or leaves a non-finite weight; SGD
-   halves its step scale, RLS restarts P at its initial value;
-6. residual statistics: an exponentially weighted mean square of r (and of the
-   output-unit residual) with weight max(1/n, ``alpha``).
+6. divergence guard: an unstable step is not applied (SGD: eta |phi|^2 > 2 or
+   eta l2 > 1; RLS: lambda + phi' P phi not positive). SGD halves its step scale
+   and earns it back by the factor ``RECOVER`` per applied step;
+7. residual statistics (``residuals.py``): running mean squares of r, in the fitted
+   space and in output units, that forget the start-up transient.
 
 Numbers are plain float64 operations in a fixed order, so a model restored
 from its state and fed the same samples gives the same weights to the last bit.
@@ -32,8 +36,10 @@ from typing import Any
 
 import numpy as np
 
-from .drift import ALARM, DS_SIZE, DS_STATE, detector_statistic, detector_update
+from .drift import ALARM, DS_A, DS_B, DS_SIZE, DS_STATE, detector_statistic, detector_update
 from .jit import kernel
+from .residuals import pooled_sd, scale_margin, weight
+from .rls import info_solve, info_step, rls_step
 from .schedules import eta_at
 
 LEARNERS = {"sgd": 0, "rls": 1}
@@ -42,13 +48,22 @@ LEARNERS = {"sgd": 0, "rls": 1}
 IP_LEARNER, IP_SCHEDULE, IP_TRANSFORM, IP_DETECTOR = range(4)
 IP_SIZE = 4
 # float parameters
-LP_L2, LP_HUBER, LP_OUTLIER, LP_FORGET, LP_P0, LP_OFFSET, LP_WARMUP, LP_ALPHA = range(8)
+LP_L2, LP_HUBER, LP_OUTLIER, LP_FORGET, LP_OFFSET, LP_WARMUP, LP_WINDOW, LP_BOUND = range(8)
 LP_SIZE = 8
-# running state
-ST_T, ST_SCALE, ST_RN, ST_RVAR, ST_ON, ST_OMS, ST_ACC, ST_REJ, ST_GUARD, ST_FVAR, ST_FDOF = range(11)
-ST_SIZE = 11
+# running state: step count and scale; learner residuals (count, mean square; output units);
+# counts; the last fit's residual variance and dof; reference residuals (count, mean,
+# variance); the RLS trace bound and initialisation flag; samples held back
+(ST_T, ST_SCALE, ST_RN, ST_RVAR, ST_ON, ST_OMS, ST_ACC, ST_REJ, ST_GUARD, ST_FVAR, ST_FDOF,
+ ST_EN, ST_EMEAN, ST_EVAR, ST_TRMAX, ST_INIT, ST_HELD) = range(17)
+ST_SIZE = 17
 
-ACCEPTED, OUTLIER, GUARD = 0, 1, 2
+# sample status codes; codes from HELD on are set by the caller before the loop
+ACCEPTED, OUTLIER, GUARD, NOT_FINITE, OUT_OF_RANGE, OUT_OF_SERVICE = range(6)
+HELD = NOT_FINITE
+STATUS_NAMES = ("accepted", "outlier", "guard", "not_finite", "out_of_range", "out_of_service")
+
+SCALE_Z = -1.2816  # the 10 % normal quantile: the watch divides by a 90 % upper bound of the s.d.
+RECOVER = 2.0 ** (1.0 / 20.0)  # the SGD step scale doubles back per 20 applied steps
 
 
 @kernel
@@ -97,59 +112,34 @@ def _sgd_step(
 
 
 @kernel
-def _rls_step(w: Any, P: Any, phi: Any, r: float, lp: Any, Pphi: Any, wn: Any) -> bool:
-    M = w.shape[0]
-    lam = lp[LP_FORGET]
-    den = lam
-    for i in range(M):
-        acc = 0.0
-        for j in range(M):
-            acc += P[i, j] * phi[j]
-        Pphi[i] = acc
-        den += phi[i] * acc
-    if not (den > 0.0) or not math.isfinite(den):
-        return False
-    for i in range(M):
-        v = w[i] + Pphi[i] / den * r
-        if not math.isfinite(v):
-            return False
-        wn[i] = v
-    for i in range(M):
-        ki = Pphi[i] / den
-        for j in range(i, M):
-            v = (P[i, j] - ki * Pphi[j]) / lam
-            P[i, j] = v
-            P[j, i] = v
-    for i in range(M):
-        w[i] = wn[i]
-    return True
-
-
-@kernel
 def learn_batch(
-    Phi: Any, z: Any, y: Any,
-    w: Any, w_ref: Any, P: Any,
+    Phi: Any, z: Any, y: Any, hold: Any,
+    w: Any, w_ref: Any, has_ref: bool, P: Any, b: Any,
     ip: Any, sp: Any, lp: Any, dp: Any,
-    st: Any, ds: Any,
+    st: Any, ds: Any, cp_w: Any,
     out_r: Any, out_status: Any, out_state: Any, out_stat: Any,
     snap_w: Any, snap_P: Any, snap_st: Any, snap_ds: Any,
 ) -> int:
-    """Learn from the rows of Phi (n, M) in order, updating w, P, st, ds in place.
+    """Learn from the rows of Phi (n, M) in order, updating w, P, b, st, ds, cp_w in place.
 
-    z : (n,) references in the transformed space; y : (n,) in output units.
-    out_r : (n,) prior residuals in output units (NaN where the curve cannot be inverted);
-    out_status : (n,) ACCEPTED / OUTLIER / GUARD; out_state, out_stat : drift state and
-    statistic after each sample.
+    z : (n,) references in the transformed space; y : (n,) in output units; hold : (n,)
+    status codes (0: learn it; >= HELD: store it only).
+    w_ref (M,) reference weights (used when has_ref); P (M, M) RLS covariance (the
+    information matrix while ST_INIT is set, with b (M,)); cp_w (2, M) the learner's weights
+    when the detector's upward / downward statistic was last zero (its change point).
+    out_r : (n,) prior residuals in output units (NaN where unknown); out_status : (n,)
+    status codes; out_state, out_stat : drift state and statistic after each sample.
 
-    snap_w (M,), snap_P (M, M), snap_st, snap_ds : filled with the state just before the
-    sample that raised the drift alarm, if one did (the caller's buffers: returning new
-    arrays from the kernel would cost more than the rest of a one-sample call).
+    snap_w (M,), snap_P (M, M), snap_st, snap_ds : filled, when a sample raises the drift
+    alarm, with the state just before it, the weights being those at the estimated change
+    point (the caller's buffers: returning new arrays would cost more than a one-sample call).
 
     Returns the index of the sample that raised the drift alarm, or -1.
     """
     n, M = Phi.shape
     wn = np.empty(M)
     Pphi = np.empty(M)
+    L = np.zeros((M, M))
     ds_before = np.empty(DS_SIZE)
     alarm_at = -1
     learner = ip[IP_LEARNER]
@@ -158,32 +148,83 @@ def learn_batch(
     dk = ip[IP_DETECTOR]
     outlier = lp[LP_OUTLIER]
     warmup = lp[LP_WARMUP]
-    alpha_min = lp[LP_ALPHA]
+    window = lp[LP_WINDOW]
+    lam = lp[LP_FORGET]
     for i in range(n):
+        out_r[i] = math.nan
+        out_stat[i] = detector_statistic(dk, dp, ds)
+        out_state[i] = int(ds[DS_STATE])
+        if hold[i] >= HELD:
+            out_status[i] = hold[i]
+            st[ST_HELD] += 1.0
+            continue
         phi = Phi[i]
+        if learner == 1 and st[ST_INIT] > 0.0:
+            # RLS still gathering the rows that determine its first solution
+            if not info_step(P, b, phi, z[i], lam):
+                out_status[i] = NOT_FINITE
+                st[ST_HELD] += 1.0
+                continue
+            if info_solve(P, b, w, L):
+                st[ST_INIT] = 0.0
+                tr = 0.0
+                for a in range(M):
+                    tr += P[a, a]
+                st[ST_TRMAX] = lp[LP_BOUND] * tr
+            out_status[i] = ACCEPTED
+            st[ST_ACC] += 1.0
+            continue
         pred = 0.0
         for j in range(M):
             pred += w[j] * phi[j]
         r = z[i] - pred
+        e = r
+        if has_ref:
+            e = z[i]
+            for j in range(M):
+                e -= w_ref[j] * phi[j]
+        if not (math.isfinite(r * r) and math.isfinite(e * e)):
+            out_status[i] = NOT_FINITE
+            st[ST_HELD] += 1.0
+            continue
         ro = y[i] - _inverse(pred, tcode, lp[LP_OFFSET])
-        out_r[i] = ro if math.isfinite(ro) else math.nan
-        s = math.sqrt(st[ST_RVAR])
-        warm = st[ST_RN] >= warmup and s > 0.0
-        if warm:
+        if math.isfinite(ro * ro):
+            out_r[i] = ro
+        s, dof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_RVAR], st[ST_RN], window)
+        warm = dof >= warmup and s > 0.0
+        # the drift watch
+        score = math.nan
+        if has_ref:
+            es, edof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_EVAR], st[ST_EN], window)
+            if es > 0.0:
+                score = e / (es * scale_margin(edof, SCALE_Z))
+            st[ST_EN] += 1.0
+            a = weight(st[ST_EN], window)
+            d = e - st[ST_EMEAN]
+            if es > 0.0:  # winsorised at 4 s.d., so one wild reading cannot blunt the watch
+                d = max(-4.0 * es, min(4.0 * es, d))
+            st[ST_EMEAN] += a * d
+            st[ST_EVAR] = (1.0 - a) * (st[ST_EVAR] + a * d * d)
+        elif warm:
+            score = r / s
+        if score == score:
             watching = ds[DS_STATE] < ALARM
             if watching:
                 ds_before[:] = ds
-            out_stat[i] = detector_update(dk, dp, ds, r / s)
+            out_stat[i] = detector_update(dk, dp, ds, score)
+            if ds[DS_A] <= 0.0:
+                cp_w[0, :] = w
+            if ds[DS_B] <= 0.0:
+                cp_w[1, :] = w
             if watching and ds[DS_STATE] == ALARM:
                 # w, P and st are still those before this sample: the step comes below
                 alarm_at = i
-                snap_w[:] = w
+                side = 0 if ds[DS_A] >= ds[DS_B] else 1
+                snap_w[:] = cp_w[side]
                 snap_P[:, :] = P
                 snap_st[:] = st
                 snap_ds[:] = ds_before
-        else:
-            out_stat[i] = detector_statistic(dk, dp, ds)
-        out_state[i] = int(ds[DS_STATE])
+            out_state[i] = int(ds[DS_STATE])
         if warm and outlier > 0.0 and abs(r) > outlier * s:
             out_status[i] = OUTLIER
             st[ST_REJ] += 1.0
@@ -191,29 +232,21 @@ def learn_batch(
         if learner == 0:
             ok = _sgd_step(w, w_ref, phi, r, s, warm, sk, sp, lp, st, wn)
         else:
-            ok = _rls_step(w, P, phi, r, lp, Pphi, wn)
+            ok = rls_step(w, P, phi, r, lam, st[ST_TRMAX], Pphi, wn)
         if not ok:
             out_status[i] = GUARD
             st[ST_GUARD] += 1.0
             if learner == 0:
                 st[ST_SCALE] *= 0.5
-            else:
-                for a in range(M):
-                    for b in range(M):
-                        P[a, b] = lp[LP_P0] if a == b else 0.0
             continue
         out_status[i] = ACCEPTED
+        if learner == 0 and st[ST_SCALE] < 1.0:
+            st[ST_SCALE] = min(1.0, st[ST_SCALE] * RECOVER)
         st[ST_T] += 1.0
         st[ST_ACC] += 1.0
         st[ST_RN] += 1.0
-        alpha = 1.0 / st[ST_RN]
-        if alpha < alpha_min:
-            alpha = alpha_min
-        st[ST_RVAR] += alpha * (r * r - st[ST_RVAR])
-        if math.isfinite(ro):
+        st[ST_RVAR] += weight(st[ST_RN], window) * (r * r - st[ST_RVAR])
+        if out_r[i] == out_r[i]:
             st[ST_ON] += 1.0
-            alpha = 1.0 / st[ST_ON]
-            if alpha < alpha_min:
-                alpha = alpha_min
-            st[ST_OMS] += alpha * (ro * ro - st[ST_OMS])
+            st[ST_OMS] += weight(st[ST_ON], window) * (ro * ro - st[ST_OMS])
     return alarm_at

@@ -20,10 +20,9 @@ from numpy.typing import NDArray
 
 from .basis import Basis, PolyBasis, make_basis
 from .config import MUTABLE, Config
-from .drift import DS_STATE, STATES, detector_params, detector_statistic
+from .drift import DS_BOUND, DS_N, DS_STATE, STATES, detector_params, detector_statistic
 from .errors import ConfigError, InputError, StateError
 from .learners import (
-    ACCEPTED,
     GUARD,
     IP_DETECTOR,
     IP_LEARNER,
@@ -31,19 +30,27 @@ from .learners import (
     IP_SIZE,
     IP_TRANSFORM,
     LEARNERS,
-    LP_ALPHA,
+    LP_BOUND,
     LP_FORGET,
     LP_HUBER,
     LP_L2,
     LP_OFFSET,
     LP_OUTLIER,
-    LP_P0,
     LP_SIZE,
     LP_WARMUP,
+    LP_WINDOW,
+    NOT_FINITE,
+    OUT_OF_RANGE,
+    OUT_OF_SERVICE,
     ST_ACC,
+    ST_EMEAN,
+    ST_EN,
+    ST_EVAR,
     ST_FDOF,
     ST_FVAR,
     ST_GUARD,
+    ST_HELD,
+    ST_INIT,
     ST_OMS,
     ST_ON,
     ST_REJ,
@@ -51,6 +58,8 @@ from .learners import (
     ST_RVAR,
     ST_SCALE,
     ST_T,
+    ST_TRMAX,
+    STATUS_NAMES,
     learn_batch,
 )
 from .lstsq import fit_least_squares
@@ -62,8 +71,11 @@ from .uncertainty import standard_uncertainty
 
 Array = NDArray[np.float64]
 
-WARMUP = 30  # accepted samples before the gate and the detectors start
-RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimate
+WARMUP = 30  # degrees of freedom behind the residual s.d. before the outlier gate starts
+RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimates
+COVARIANCE_BOUND = 10.0  # the RLS trace bound of a channel declared before it was a setting
+BASELINE_PRIOR = 30.0  # samples: the prior weight of the drift baseline's start at 0
+RANGE_MARGIN = 1.0  # the out-of-range margin of a channel declared before it was a setting
 CURVE_GRID = 201  # points over the input range for curve comparisons
 
 __all__ = ["MUTABLE", "ChannelModel", "LearnResult"]
@@ -90,8 +102,6 @@ class LearnResult:
         return sum(1 for s in self.status if s == "accepted")
 
 
-STATUS_NAMES = {ACCEPTED: "accepted", 1: "outlier", GUARD: "guard"}
-
 
 class ChannelModel:
     """A channel's model; build it with ``from_config`` or ``from_state``. ``config`` is
@@ -114,10 +124,25 @@ class ChannelModel:
     def from_config(cls, config: Config) -> ChannelModel:
         """A fresh model (zero weights) for a validated channel configuration."""
         size = make_basis(config["basis"], InputScaler(config["inputs"])).size
-        state = ModelState.fresh(size)
+        model = cls(config, ModelState.fresh(size))
         if config["learner"]["kind"] == "rls":
-            state.cov = np.eye(size) * config["learner"]["initial_covariance"]
-        return cls(config, state)
+            model._start_rls()
+        return model
+
+    def _start_rls(self) -> None:
+        """The RLS covariance from scratch: exact initialisation, or the declared prior P0 I."""
+        s, size = self.s, self.basis.size
+        p0 = self.config["learner"].get("initial_covariance")
+        if p0 is None:
+            s.cov, s.info_b, s.st[ST_INIT] = np.zeros((size, size)), np.zeros(size), 1.0
+        else:
+            s.cov, s.info_b, s.st[ST_INIT] = np.eye(size) * p0, None, 0.0
+            self._bound_trace()
+
+    def _bound_trace(self) -> None:
+        """T_max of the RLS covariance: ``covariance_bound`` x trace(P) now."""
+        if self.s.cov is not None and self.s.info_b is None:
+            self.s.st[ST_TRMAX] = self.lp[LP_BOUND] * float(np.trace(self.s.cov))
 
     @classmethod
     def from_state(cls, config: Config, state: dict[str, Any]) -> ChannelModel:
@@ -126,6 +151,10 @@ class ChannelModel:
         model = cls(config, ModelState.from_dict(state))
         if model.s.w.shape[0] != model.basis.size:
             raise StateError(f"the state has {model.s.w.shape[0]} weights, the basis {model.basis.size}")
+        if config["learner"]["kind"] == "rls" and model.s.cov is None:
+            raise StateError("an rls state needs its covariance")
+        if config["learner"]["kind"] == "rls" and model.s.st[ST_TRMAX] == 0.0:
+            model._bound_trace()  # a state from before the bound
         return model
 
     def copy(self) -> ChannelModel:
@@ -154,11 +183,17 @@ class ChannelModel:
                 field="immutable",
             )
         state = self.s.copy()
-        if config["drift"] != self.config["drift"]:
-            state.reset_detector()
-        if config["learner"]["kind"] == "rls" and state.cov is None:
-            state.cov = np.eye(self.basis.size) * config["learner"]["initial_covariance"]
-        return ChannelModel(config, state)
+        if _watch(config["drift"]) != _watch(self.config["drift"]):
+            state.reset_detector(keep_alarm=True)  # settings never clear an alarm
+        model = ChannelModel(config, state)
+        if config["learner"]["kind"] == "rls":
+            if self.config["learner"]["kind"] != "rls" and (state.cov is None or state.w_ref is None):
+                model._start_rls()  # no covariance of a fit to go on
+            elif config["learner"] != self.config["learner"]:
+                model._bound_trace()
+        if config["drift"]["tolerance"] != self.config["drift"]["tolerance"]:
+            model._check_tolerance()
+        return model
 
     def _compile_params(self) -> None:
         cfg = self.config
@@ -173,13 +208,13 @@ class ChannelModel:
         else:
             self.ip[IP_SCHEDULE], self.sp = schedule_params({"kind": "constant"})
             self.lp[LP_FORGET] = learner["forgetting"]
-            self.lp[LP_P0] = learner["initial_covariance"]
+            self.lp[LP_BOUND] = learner.get("covariance_bound", COVARIANCE_BOUND)
         self.ip[IP_TRANSFORM] = self.transform.code
         self.ip[IP_DETECTOR], self.dp = detector_params(cfg["drift"])
         self.lp[LP_OUTLIER] = cfg["outlier_sd"] or 0.0
         self.lp[LP_OFFSET] = self.transform.offset
         self.lp[LP_WARMUP] = WARMUP
-        self.lp[LP_ALPHA] = 1.0 / RESIDUAL_WINDOW
+        self.lp[LP_WINDOW] = RESIDUAL_WINDOW
 
     # inputs -------------------------------------------------------------------
     def _samples(self, X: Any, y: Any) -> tuple[Array, Array]:
@@ -196,6 +231,32 @@ class ChannelModel:
                              details={"index": i})
         return Xa, ya
 
+    def _rows(self, X: Array, y: Array) -> tuple[Array, Array, NDArray[np.int8]]:
+        """Basis rows Phi (n, M), transformed references z (n,) and the status code of each
+        sample held back before learning (0: learn it): out of service, out of range (beyond
+        ``range_margin`` spans outside the declared range), not finite (a basis row or z that
+        overflows). Held rows of Phi and z are zero."""
+        n = X.shape[0]
+        hold = np.zeros(n, dtype=np.int8)
+        if self.s.service != "in_service":
+            hold[:] = OUT_OF_SERVICE
+            return np.zeros((n, self.basis.size)), np.zeros(n), hold
+        margin = self.config.get("range_margin", RANGE_MARGIN)
+        span = self.scaler.hi - self.scaler.lo
+        far = ((X < self.scaler.lo - margin * span) | (X > self.scaler.hi + margin * span)).any(axis=1)
+        hold[far] = OUT_OF_RANGE
+        keep = ~far
+        Phi = np.zeros((n, self.basis.size))
+        z = np.zeros(n)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            Phi[keep] = self.basis.expand(np.ascontiguousarray(X[keep]))
+            z[keep] = self.transform.forward(y[keep])
+        bad = keep & ~(np.isfinite(Phi).all(axis=1) & np.isfinite(z))
+        hold[bad] = NOT_FINITE
+        Phi[bad] = 0.0
+        z[bad] = 0.0
+        return Phi, z, hold
+
     # learning -----------------------------------------------------------------
     def learn(self, X: Any, y: Any) -> LearnResult:
         """One step per row of X (n, d) raw inputs with references y (n,), in order.
@@ -205,13 +266,14 @@ class ChannelModel:
         """
         Xa, ya = self._samples(X, y)
         n = Xa.shape[0]
-        Phi = self.basis.expand(Xa)
-        z = self.transform.forward(ya)
+        Phi, z, hold = self._rows(Xa, ya)
         s = self.s
         before_state = int(s.ds[DS_STATE])
         before_n = s.n_samples
         before_tol = s.tolerance_state
-        cov = s.cov if s.cov is not None else np.zeros((self.basis.size, self.basis.size))
+        size = self.basis.size
+        cov = s.cov if s.cov is not None else np.zeros((size, size))
+        b = s.info_b if s.info_b is not None else np.zeros(size)
         out_r = np.empty(n)
         out_status = np.empty(n, dtype=np.int8)
         out_state = np.empty(n, dtype=np.int8)
@@ -219,14 +281,18 @@ class ChannelModel:
         alarm_at = -1
         if n:
             w, P, st, ds = np.empty_like(s.w), np.empty_like(cov), np.empty_like(s.st), np.empty_like(s.ds)
-            alarm_at = learn_batch(Phi, z, ya, s.w, s.w_ref_or_zero(), cov, self.ip, self.sp, self.lp, self.dp,
-                                   s.st, s.ds, out_r, out_status, out_state, out_stat, w, P, st, ds)
+            alarm_at = learn_batch(Phi, z, ya, hold, s.w, s.w_ref_or_zero(), s.w_ref is not None, cov, b,
+                                   self.ip, self.sp, self.lp, self.dp, s.st, s.ds, s.change_w,
+                                   out_r, out_status, out_state, out_stat, w, P, st, ds)
             if s.cov is not None:
                 s.cov = cov
+            if s.info_b is not None and s.st[ST_INIT] == 0.0:
+                s.info_b = None  # the RLS has its first solution
         before_alarm = None
         if alarm_at >= 0:
             snap = ModelState(w, None if s.w_ref is None else s.w_ref.copy(), None if s.cov is None else P, st, ds,
-                              before_n + alarm_at, before_tol, s.max_curve_change)
+                              before_n + alarm_at, before_tol, s.max_curve_change, np.stack([w, w]),
+                              None, s.service)
             if alarm_at > 0:  # the state as learning the samples before the alarm alone leaves it
                 snap.tolerance_state, mcc = self._tolerance(w)
                 if snap.tolerance_state is not None:
@@ -244,7 +310,7 @@ class ChannelModel:
             events.append({"kind": "guard", "index": int(i),
                            "message": "unstable step not applied; step size halved"
                            if self.config["learner"]["kind"] == "sgd"
-                           else "unstable step not applied; covariance restarted"})
+                           else "unstable step not applied"})
         if n:
             self._check_tolerance()
             if s.tolerance_state != before_tol and s.tolerance_state is not None:
@@ -279,7 +345,13 @@ class ChannelModel:
         s.st[ST_FDOF] = float(fit.dof)
         s.st[ST_ON] = float(fit.n)
         s.st[ST_OMS] = float(np.mean(out_resid**2))
-        s.reset_detector()
+        # the drift watch starts afresh on this fit's curve: its residuals, its scale
+        s.st[ST_EN] = s.st[ST_EMEAN] = s.st[ST_EVAR] = 0.0
+        s.info_b, s.st[ST_INIT] = None, 0.0
+        self._arm(fit.n)
+        s.service = "in_service"
+        if self.config["learner"]["kind"] == "rls":
+            self._bound_trace()
         s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
         s.max_curve_change = 0.0
         change = self.max_curve_difference(old)
@@ -375,13 +447,57 @@ class ChannelModel:
         return float(gap[i]), self._grid()[0][i].copy(), left_out
 
     def set_reference(self) -> None:
-        """Accept the current curve as the reference for the tolerance check and l2 pull."""
-        self.s.w_ref = self.s.w.copy()
-        self.s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
-        self.s.max_curve_change = 0.0
+        """Accept the current curve as the reference for the drift watch, the tolerance
+        check and the l2 pull; the watch restarts on it."""
+        s = self.s
+        s.w_ref = s.w.copy()
+        s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
+        s.max_curve_change = 0.0
+        s.st[ST_EN] = s.st[ST_EMEAN] = s.st[ST_EVAR] = 0.0
+        s.reset_detector(keep_alarm=True, baseline=False)
 
-    def reset_drift(self) -> None:
-        self.s.reset_detector()
+    def _arm(self, n_points: int) -> None:
+        """Start the drift watch on the reference curve of a fit of ``n_points`` points: its
+        baseline (Page-Hinkley's running mean) starts at 0 with a prior weight of
+        ``BASELINE_PRIOR`` samples and may explain a bias of the reference fit of at most
+        three of its standard errors, 3 sqrt(M / n) in residual s.d. (M / n: the points'
+        mean leverage); a larger offset than the fit can explain always raises the alarm."""
+        s = self.s
+        s.reset_detector(baseline=False)
+        s.ds[DS_N] = max(n_points, 1) / self.basis.size
+        s.ds[DS_BOUND] = 3.0 * np.sqrt(self.basis.size / max(n_points, 1))
+
+    def acknowledge(self) -> None:
+        """A technician has seen the drift state: the alarm (or warning) clears and the
+        watch restarts, its baseline learnt again from the next samples, so only a further
+        change raises it again."""
+        self.s.reset_detector(baseline=False)
+
+    def set_service(self, state: str) -> None:
+        """``in_service`` or ``out_of_service``: out of service, samples are stored but
+        not learned nor watched."""
+        if state not in ("in_service", "out_of_service"):
+            raise ConfigError(f"unknown service state {state!r}", field="state")
+        self.s.service = state
+
+    def take_curve(self, other: ChannelModel, *, set_reference: bool) -> ChannelModel:
+        """A rollback: ``other``'s curve and learner state under this model's lifecycle (its
+        reference curve and drift watch, service state, sample count), unless ``set_reference``
+        makes the restored curve the new reference. ``other`` has this model's basis."""
+        state = other.s.copy()
+        s = self.s
+        state.n_samples = s.n_samples
+        state.service = s.service
+        state.ds, state.change_w = s.ds.copy(), np.stack([state.w, state.w])
+        for k in (ST_EN, ST_EMEAN, ST_EVAR, ST_FVAR, ST_FDOF, ST_ACC, ST_REJ, ST_GUARD, ST_HELD):
+            state.st[k] = s.st[k]
+        restored = ChannelModel(other.config, state)
+        if set_reference:
+            restored.set_reference()
+        else:
+            state.w_ref = None if s.w_ref is None else s.w_ref.copy()
+            restored._check_tolerance()
+        return restored
 
     def _check_tolerance(self) -> None:
         self.s.tolerance_state, mcc = self._tolerance(self.s.w)
@@ -471,6 +587,11 @@ class ChannelModel:
             },
             "warmed_up": self.warmed_up,
         }
+
+
+def _watch(drift: dict[str, Any]) -> dict[str, Any]:
+    """The drift settings that shape the detector's statistic (not the tolerance)."""
+    return {k: v for k, v in drift.items() if k != "tolerance"}
 
 
 def _float_or_none(v: float) -> float | None:

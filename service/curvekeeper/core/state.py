@@ -14,24 +14,31 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .drift import DS_MEAN, DS_N, DS_SIZE, DS_STATE, STATES
+from .drift import ALARM, DS_BOUND, DS_MEAN, DS_N, DS_SIZE, DS_STATE, STATES
 from .errors import StateError
 from .learners import ST_SCALE, ST_SIZE
 
 Array = NDArray[np.float64]
 
-STATE_FORMAT = 2  # 1 carried the channel's config as well
+STATE_FORMAT = 3  # 1 carried the channel's config as well; 2 had no reference residuals
+READS = (2, 3)  # formats read: a format-2 state gets the new fields' starting values
 RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
     "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
+    "reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held",
 )
-DETECTOR_NAMES = ("a", "b", "mean", "n", "state")
+NEW_IN_3 = dict.fromkeys(RUNNING_NAMES[11:], 0.0)
+SERVICE_STATES = ("in_service", "out_of_service")
+DETECTOR_NAMES = ("a", "b", "mean", "n", "state", "mean_bound")
 
 
 @dataclass
 class ModelState:
-    """w (M,) weights; w_ref (M,) reference weights or None; cov (M, M) unscaled
-    parameter covariance or None; st running statistics; ds detector state."""
+    """w (M,) weights; w_ref (M,) reference weights (the last calibration's curve) or None;
+    cov (M, M) unscaled parameter covariance or None (an RLS learner still initialising
+    keeps its information matrix there, and ``info_b`` (M,)); st running statistics; ds
+    detector state; change_w (2, M) the weights at the detector's last upward / downward
+    restart; ``service`` in or out of service."""
 
     w: Array
     w_ref: Array | None
@@ -41,27 +48,43 @@ class ModelState:
     n_samples: int
     tolerance_state: str | None
     max_curve_change: float | None
+    change_w: Array
+    info_b: Array | None = None
+    service: str = "in_service"
 
     @classmethod
     def fresh(cls, size: int) -> ModelState:
         st = np.zeros(ST_SIZE)
         st[ST_SCALE] = 1.0
-        return cls(np.zeros(size), None, None, st, np.zeros(DS_SIZE), 0, None, None)
+        return cls(np.zeros(size), None, None, st, np.zeros(DS_SIZE), 0, None, None, np.zeros((2, size)))
 
     def copy(self) -> ModelState:
         return ModelState(self.w.copy(), None if self.w_ref is None else self.w_ref.copy(),
                           None if self.cov is None else self.cov.copy(), self.st.copy(), self.ds.copy(),
-                          self.n_samples, self.tolerance_state, self.max_curve_change)
+                          self.n_samples, self.tolerance_state, self.max_curve_change, self.change_w.copy(),
+                          None if self.info_b is None else self.info_b.copy(), self.service)
 
     def w_ref_or_zero(self) -> Array:
         return self.w_ref if self.w_ref is not None else np.zeros_like(self.w)
 
-    def reset_detector(self) -> None:
-        mean, n = self.ds[DS_MEAN], self.ds[DS_N]
+    def reset_detector(self, *, keep_alarm: bool = False, baseline: bool = True) -> None:
+        """Restart the detector's statistics; Page-Hinkley keeps its running mean unless
+        ``baseline`` is false; an alarm stays when ``keep_alarm``."""
+        mean, n, state, bound = self.ds[DS_MEAN], self.ds[DS_N], self.ds[DS_STATE], self.ds[DS_BOUND]
         self.ds[:] = 0.0
-        self.ds[DS_MEAN], self.ds[DS_N] = mean, n  # Page-Hinkley keeps its running mean of the residuals
+        self.ds[DS_BOUND] = bound
+        if baseline:
+            self.ds[DS_MEAN], self.ds[DS_N] = mean, n
+        if keep_alarm and state == ALARM:
+            self.ds[DS_STATE] = ALARM
+        self.change_w[:] = self.w
 
     def to_dict(self) -> dict[str, Any]:
+        """The JSON form; raises ``StateError`` rather than write a non-finite number."""
+        for name, a in (("weights", self.w), ("ref_weights", self.w_ref), ("cov", self.cov), ("running", self.st),
+                        ("detector", self.ds), ("change_weights", self.change_w), ("info_b", self.info_b)):
+            if a is not None and not np.isfinite(a).all():
+                raise StateError(f"refusing to store a non-finite number in {name}")
         return {
             "format": STATE_FORMAT,
             "weights": self.w.tolist(),
@@ -72,13 +95,20 @@ class ModelState:
             "n_samples": self.n_samples,
             "tolerance_state": self.tolerance_state,
             "max_curve_change": self.max_curve_change,
+            "change_weights": self.change_w.tolist(),
+            "info_b": None if self.info_b is None else self.info_b.tolist(),
+            "service": self.service,
         }
 
     @classmethod
     def from_dict(cls, d: Any) -> ModelState:
         try:
-            if not isinstance(d, dict) or d.get("format") != STATE_FORMAT:
-                raise StateError(f"unknown model state format (expected {STATE_FORMAT})")
+            if not isinstance(d, dict) or d.get("format") not in READS:
+                raise StateError(f"unknown model state format (expected one of {READS})")
+            if d["format"] == 2:
+                d = {**d, "running": {**NEW_IN_3, **d["running"]}, "change_weights": [d["weights"]] * 2,
+                     "detector": {"mean_bound": 0.0, **d["detector"]},
+                     "info_b": None, "service": "in_service"}
             w = _vector(d["weights"], "weights")
             M = w.shape[0]
             w_ref = None if d["ref_weights"] is None else _vector(d["ref_weights"], "ref_weights", M)
@@ -99,9 +129,17 @@ class ModelState:
                 raise StateError("bad detector state")
             mcc = d["max_curve_change"]
             mcc = None if mcc is None else float(mcc)
+            if mcc is not None and not math.isfinite(mcc):
+                raise StateError("max_curve_change is not finite")
+            cw = np.array(d["change_weights"], dtype=np.float64)
+            if cw.shape != (2, M) or not np.isfinite(cw).all():
+                raise StateError("change_weights must be two finite rows of M weights")
+            b = None if d["info_b"] is None else _vector(d["info_b"], "info_b", M)
+            if d["service"] not in SERVICE_STATES:
+                raise StateError("bad service state")
         except (KeyError, TypeError, ValueError) as exc:
             raise StateError(f"damaged model state: {exc}") from exc
-        return cls(w, w_ref, cov, st, ds, n, tol, mcc)
+        return cls(w, w_ref, cov, st, ds, n, tol, mcc, cw, b, d["service"])
 
 
 def _vector(v: Any, name: str, size: int | None = None) -> Array:

@@ -1,0 +1,137 @@
+"""Recursive least squares: exact initialisation and a covariance that cannot wind up.
+
+The step, with forgetting factor lambda, for a row phi (M,) and prior residual r::
+
+    k = P phi / (lambda + phi' P phi);  w <- w + k r;  P <- (P - k phi' P) / lambda_eff
+
+**Exact initialisation.** Until the rows seen so far determine every weight, the
+learner keeps the information form A = sum lambda^(n-i) phi_i phi_i' and
+b = sum lambda^(n-i) phi_i z_i; once A is positive definite (a Cholesky factor
+with no pivot below ``RANK_TOL`` times the largest diagonal), P = A^-1 and
+w = P b, the least-squares solution of those rows. No prior P0 = c I enters, so
+with lambda = 1 the recursion gives the closed-form least-squares weights of all
+rows, to rounding (exact initialisation of RLS, as in Haykin's Adaptive Filter
+Theory; other texts call it "initialisation by the first M samples").
+
+**Bounded trace.** With lambda < 1 and an input that does not move (a cold room at
+a steady temperature), P / lambda grows without limit in the directions the
+input does not excite (covariance windup) until it overflows. Here the division
+is by lambda_eff = max(lambda, trace(P - k phi' P) / T_max) (at most 1): P forgets
+at the configured rate while its trace is under the bound T_max and stops
+forgetting at the bound, so trace(P) <= T_max always and the excited directions
+still shrink. This is a trace-bounded variant of the constant-trace algorithm
+(Goodwin and Sin, Adaptive Filtering Prediction and Control, 1984; cited from
+memory). T_max is ``covariance_bound`` times trace(P) right after the last
+calibration or initialisation.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from .jit import kernel
+
+RANK_TOL = 1e-10  # smallest Cholesky pivot, relative to the largest diagonal of A
+
+
+@kernel
+def rls_step(w: Any, P: Any, phi: Any, r: float, lam: float, tr_max: float, Pphi: Any, wn: Any) -> bool:
+    """One RLS step on w (M,), P (M, M) in place; False (nothing changed) when unstable."""
+    M = w.shape[0]
+    den = lam
+    big = 0.0
+    for i in range(M):
+        acc = 0.0
+        for j in range(M):
+            acc += P[i, j] * phi[j]
+        Pphi[i] = acc
+        den += phi[i] * acc
+        if abs(acc) > big:
+            big = abs(acc)
+    if not (den > 0.0) or not math.isfinite(den) or not math.isfinite(big * big / den):
+        return False
+    for i in range(M):
+        v = w[i] + Pphi[i] / den * r
+        if not math.isfinite(v):
+            return False
+        wn[i] = v
+    trace = 0.0
+    for i in range(M):
+        trace += P[i, i] - Pphi[i] * Pphi[i] / den
+    lam_eff = lam
+    if tr_max > 0.0 and trace > lam * tr_max:
+        lam_eff = trace / tr_max if trace < tr_max else 1.0
+    for i in range(M):
+        ki = Pphi[i] / den
+        for j in range(i, M):
+            v = (P[i, j] - ki * Pphi[j]) / lam_eff
+            P[i, j] = v
+            P[j, i] = v
+    for i in range(M):
+        w[i] = wn[i]
+    return True
+
+
+@kernel
+def info_step(A: Any, b: Any, phi: Any, z: float, lam: float) -> bool:
+    """Add a row to the information form A (M, M), b (M,) with forgetting; False when the
+    row would make it non-finite (nothing changed)."""
+    M = b.shape[0]
+    for i in range(M):
+        if not math.isfinite(phi[i] * phi[i]) or not math.isfinite(phi[i] * z):
+            return False
+    for i in range(M):
+        b[i] = lam * b[i] + phi[i] * z
+        for j in range(M):
+            A[i, j] = lam * A[i, j] + phi[i] * phi[j]
+    return True
+
+
+@kernel
+def info_solve(A: Any, b: Any, w: Any, L: Any) -> bool:
+    """When A (M, M) is positive definite: overwrite A with P = A^-1 and w with P b, and
+    return True; otherwise leave everything as it is and return False. L (M, M) scratch."""
+    M = b.shape[0]
+    top = 0.0
+    for i in range(M):
+        if A[i, i] > top:
+            top = A[i, i]
+    if not (top > 0.0):
+        return False
+    for j in range(M):
+        d = A[j, j]
+        for k in range(j):
+            d -= L[j, k] * L[j, k]
+        if not (d > RANK_TOL * top):
+            return False
+        L[j, j] = math.sqrt(d)
+        for i in range(j + 1, M):
+            s = A[i, j]
+            for k in range(j):
+                s -= L[i, k] * L[j, k]
+            L[i, j] = s / L[j, j]
+    # inverse of L (lower triangular), then P = L^-T L^-1
+    Li = np.zeros((M, M))
+    for i in range(M):
+        Li[i, i] = 1.0 / L[i, i]
+        for j in range(i):
+            s = 0.0
+            for k in range(j, i):
+                s -= L[i, k] * Li[k, j]
+            Li[i, j] = s / L[i, i]
+    for i in range(M):
+        for j in range(i, M):
+            s = 0.0
+            for k in range(j, M):
+                s += Li[k, i] * Li[k, j]
+            A[i, j] = s
+            A[j, i] = s
+    for i in range(M):
+        s = 0.0
+        for j in range(M):
+            s += A[i, j] * b[j]
+        w[i] = s
+    return True
