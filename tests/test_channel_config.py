@@ -27,13 +27,16 @@ def test_defaults_are_those_of_the_contract() -> None:
                               "l2": 0.0, "huber": None}
     assert cfg["drift"] == {"detector": "page_hinkley", "tolerance": None, **DETECTOR_DEFAULTS["page_hinkley"]}
     assert cfg["outlier_sd"] == 6.0 and cfg["snapshot_every"] == 1000
-    assert cfg["coverage_factor"] == 2.0
+    assert cfg["coverage"] == 0.95 and cfg["coverage_factor"] is None  # null: k from Student's t
+    assert cfg["reference"] is None and cfg["range_margin"] == 1.0
+    assert cfg["inputs"][0]["resolution"] is None
     assert channel_config(cfg) == cfg  # idempotent
     assert "id" not in cfg and channel_config({"id": "a.b", **BASE})["id"] == "a.b"
 
 
 @pytest.mark.parametrize(("section", "body", "expected"), [
-    ("learner", {"kind": "rls"}, {"kind": "rls", "forgetting": 0.999, "initial_covariance": 1e3}),
+    ("learner", {"kind": "rls"}, {"kind": "rls", "forgetting": 0.999, "initial_covariance": None,
+                                  "covariance_bound": 10.0}),
     ("learner", {"schedule": {"kind": "constant"}}, {"kind": "sgd", "schedule": {"kind": "constant", "eta0": 0.05},
                                                      "l2": 0.0, "huber": None}),
     ("learner", {"schedule": {"kind": "inverse_time"}},
@@ -78,6 +81,8 @@ def test_the_documented_example_is_valid() -> None:
     assert cfg["basis"]["powers"] == [0, 1, 3]
     assert cfg["drift"]["tolerance"] == 0.3
     assert cfg["learner"]["schedule"] == {"kind": "normalized", "mu": 0.2, "eps": 1e-6}
+    assert cfg["inputs"][0]["resolution"] == 0.1
+    assert cfg["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0}
 
 
 BAD = [
@@ -127,6 +132,14 @@ BAD = [
     ({"learner": {"kind": "rls", "forgetting": 0}}, ("learner", "forgetting"), "greater than 0"),
     ({"learner": {"kind": "rls", "forgetting": 1.01}}, ("learner", "forgetting"), "less than or equal to 1"),
     ({"learner": {"kind": "rls", "initial_covariance": 0}}, ("learner", "initial_covariance"), "greater than 0"),
+    ({"learner": {"kind": "rls", "initial_covariance": 1e13}}, ("learner", "initial_covariance"), "less than or"),
+    ({"learner": {"kind": "rls", "covariance_bound": 0.5}}, ("learner", "covariance_bound"),
+     "greater than or equal to 1"),
+    ({"learner": {"kind": "rls", "covariance_bound": 1e13}}, ("learner", "covariance_bound"), "less than or"),
+    ({"learner": {"kind": "rls", "covariance_bound": "10"}}, ("learner", "covariance_bound"), "valid number"),
+    ({"learner": {"kind": "sgd", "covariance_bound": 10}}, ("learner", "covariance_bound"), "Extra inputs"),
+    ({"learner": {"kind": "rls", "forgetting": 0.9, "initial_covariance": -1}}, ("learner", "initial_covariance"),
+     "greater than 0"),
     ({"learner": {"kind": "rls", "l2": 0.1}}, ("learner", "l2"), "Extra inputs"),
     ({"inputs": [{"name": "raw", "min": 5, "max": 5}]}, ("inputs", 0), "less than max"),
     ({"inputs": [{"name": "raw", "min": 6, "max": 5}]}, ("inputs", 0), "less than max"),
@@ -160,6 +173,29 @@ BAD = [
     ({"snapshot_every": True}, ("snapshot_every",), "valid integer"),
     ({"coverage_factor": 0}, ("coverage_factor",), "greater than 0"),
     ({"coverage_factor": 10.5}, ("coverage_factor",), "less than or equal to 10"),
+    ({"coverage": 0.4}, ("coverage",), "greater than or equal to 0.5"),
+    ({"coverage": 1.0}, ("coverage",), "less than or equal to 0.9999"),
+    ({"coverage": True}, ("coverage",), "valid number"),
+    ({"coverage": None}, ("coverage",), "valid number"),
+    ({"inputs": [{"name": "raw", "min": 0, "max": 5, "resolution": 0}]}, ("inputs", 0, "resolution"),
+     "greater than 0"),
+    ({"inputs": [{"name": "raw", "min": 0, "max": 5, "resolution": -0.1}]}, ("inputs", 0, "resolution"),
+     "greater than 0"),
+    ({"inputs": [{"name": "raw", "min": 0, "max": 5, "resolution": "1"}]}, ("inputs", 0, "resolution"),
+     "valid number"),
+    ({"reference": {"coverage_factor": 2}}, ("reference", "expanded_uncertainty"), "Field required"),
+    ({"reference": {"expanded_uncertainty": -0.1}}, ("reference", "expanded_uncertainty"),
+     "greater than or equal to 0"),
+    ({"reference": {"expanded_uncertainty": float("inf")}}, ("reference", "expanded_uncertainty"), "finite"),
+    ({"reference": {"expanded_uncertainty": 0.1, "coverage_factor": 0}}, ("reference", "coverage_factor"),
+     "greater than 0"),
+    ({"reference": {"expanded_uncertainty": 0.1, "coverage_factor": 11}}, ("reference", "coverage_factor"),
+     "less than or equal to 10"),
+    ({"reference": {"expanded_uncertainty": 0.1, "k": 2}}, ("reference", "k"), "Extra inputs"),
+    ({"reference": 0.1}, ("reference",), "valid dictionary"),
+    ({"range_margin": -0.1}, ("range_margin",), "greater than or equal to 0"),
+    ({"range_margin": 2e6}, ("range_margin",), "less than or equal to 1000000"),
+    ({"range_margin": None}, ("range_margin",), "valid number"),
     ({"description": 7}, ("description",), "valid string"),
     ({"id": "Cold Room!"}, ("id",), "pattern"),
     ({"colour": "red"}, ("colour",), "Extra inputs"),
@@ -173,6 +209,37 @@ def test_a_broken_rule_names_the_field_and_says_why(over: dict[str, Any], loc: t
     first = err.value.errors()[0]
     assert first["loc"] == loc
     assert words in first["msg"]
+
+
+def test_the_uncertainty_settings_take_their_values() -> None:
+    """What a body states is kept: the bounds themselves are inside the ranges, and null
+    keeps its meaning (k from Student's t, exact RLS initialisation, no reference)."""
+    cfg = channel_config(with_(
+        inputs=[{"name": "raw", "min": 0, "max": 5, "resolution": 0.01}], coverage=0.9999, coverage_factor=10,
+        reference={"expanded_uncertainty": 0.05}, range_margin=0,
+        learner={"kind": "rls", "initial_covariance": 1e3, "covariance_bound": 1}))
+    assert cfg["inputs"][0]["resolution"] == 0.01
+    assert cfg["coverage"] == 0.9999 and cfg["coverage_factor"] == 10.0
+    assert cfg["reference"] == {"expanded_uncertainty": 0.05, "coverage_factor": 2.0}
+    assert cfg["range_margin"] == 0.0
+    assert cfg["learner"] == {"kind": "rls", "forgetting": 0.999, "initial_covariance": 1e3,
+                              "covariance_bound": 1.0}
+    low = channel_config(with_(coverage=0.5, reference={"expanded_uncertainty": 0, "coverage_factor": 3}))
+    assert low["coverage"] == 0.5 and low["reference"] == {"expanded_uncertainty": 0.0, "coverage_factor": 3.0}
+    nulls = channel_config(with_(coverage_factor=None, reference=None,
+                                 inputs=[{"name": "raw", "min": 0, "max": 5, "resolution": None}],
+                                 learner={"kind": "rls", "initial_covariance": None}))
+    assert nulls["coverage_factor"] is None and nulls["reference"] is None
+    assert nulls["inputs"][0]["resolution"] is None and nulls["learner"]["initial_covariance"] is None
+
+
+def test_a_stored_channel_keeps_its_coverage_factor() -> None:
+    """A channel stored before k became optional has ``coverage_factor: 2.0`` and an rls
+    prior in its stored body: validating that body again keeps both."""
+    old = channel_config(with_(coverage_factor=2.0, learner={"kind": "rls", "initial_covariance": 1e3}))
+    again = channel_config(old)
+    assert again["coverage_factor"] == 2.0 and again["learner"]["initial_covariance"] == 1e3
+    assert again == old
 
 
 def test_not_an_object() -> None:

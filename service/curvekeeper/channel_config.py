@@ -126,6 +126,8 @@ class InputSpec(Strict):
     unit: Text = ""
     min: Finite
     max: Finite
+    resolution: Positive | None = Field(default=None, description="smallest step the device reports "
+                                        "(display digit or ADC step), input units; null: not stated")
 
     @model_validator(mode="after")
     def _range(self) -> InputSpec:
@@ -252,7 +254,12 @@ class SgdLearner(Strict):
 class RlsLearner(Strict):
     kind: Literal["rls"]
     forgetting: Annotated[Positive, Field(le=1.0)] = 0.999
-    initial_covariance: Annotated[Positive, Field(le=1e12)] = 1e3
+    initial_covariance: Annotated[Positive, Field(le=1e12)] | None = Field(
+        default=None, description="P0 of a prior P0*I; null: start from the least-squares fit of the "
+                                  "first samples")
+    covariance_bound: Annotated[Finite, Field(ge=1.0, le=1e12)] = Field(
+        default=10.0, description="trace(P) never exceeds this multiple of its trace right after the last "
+                                  "calibration or initialisation")
 
 
 Learner = Annotated[SgdLearner | RlsLearner, Field(discriminator="kind"), _kind("kind", "sgd", ("sgd", "rls"))]
@@ -307,14 +314,23 @@ Drift = Annotated[PageHinkley | Cusum | Ewma, Field(discriminator="detector"),
 
 
 # the channel ---------------------------------------------------------------------------
+class Reference(Strict):
+    """The reference instrument's expanded uncertainty as its certificate states it."""
+
+    expanded_uncertainty: Annotated[Finite, Field(ge=0.0)] = Field(description="U, output units")
+    coverage_factor: Annotated[Positive, Field(le=10.0)] = Field(default=2.0, description="k the certificate "
+                                                                                          "states with U")
+
+
 EXAMPLE: dict[str, Any] = {
     "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
-    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
+    "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000, "resolution": 0.1}],
     "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
     "basis": {"kind": "log_poly", "powers": [0, 1, 3]},
     "learner": {"kind": "sgd", "schedule": {"kind": "normalized", "mu": 0.2}},
     "drift": {"detector": "page_hinkley", "tolerance": 0.3},
     "outlier_sd": 6.0, "snapshot_every": 1000,
+    "reference": {"expanded_uncertainty": 0.02, "coverage_factor": 2.0},
 }
 _UNIONS = {"basis", "learner", "schedule", "drift", "centers"}
 _TAGS = {"poly", "rbf", "log_poly", "hinge", "sgd", "rls", "constant", "inverse_time", "step", "normalized",
@@ -342,8 +358,16 @@ class ChannelSettings(Strict):
         6.0, description="residual s.d. beyond which a sample is stored but not learned; null: off")
     snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None = Field(
         1000, description="take a snapshot every N samples; null: off")
-    coverage_factor: Annotated[Positive, Field(le=10.0)] = Field(default=2.0, description="k of the expanded "
-                                                                                  "uncertainty k u")
+    coverage: Annotated[Finite, Field(ge=0.5, le=0.9999)] = Field(
+        default=0.95, description="coverage probability of the expanded uncertainty")
+    coverage_factor: Annotated[Positive, Field(le=10.0)] | None = Field(
+        default=None, description="fixed k of the expanded uncertainty k u; null: k from Student's t at the "
+                                  "effective degrees of freedom and coverage")
+    reference: Reference | None = Field(default=None, description="the reference instrument's stated "
+                                                                  "uncertainty; null: not counted")
+    range_margin: Annotated[Finite, Field(ge=0.0, le=1e6)] = Field(
+        default=1.0, description="a sample whose input lies more than this many spans outside [min, max] "
+                                 "is held as out of range")
 
     @model_validator(mode="wrap")
     @classmethod
