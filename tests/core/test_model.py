@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel, ConfigError, StateError
-from curvekeeper.core.learners import ST_SCALE
+from curvekeeper.core.learners import RECOVER, ST_SCALE
 from curvekeeper.core.model import CURVE_GRID
 
 
@@ -284,16 +284,32 @@ def test_lasting_step_is_flagged_even_though_the_gate_rejects_it() -> None:
     assert any(e["kind"] == "drift_alarm" for e in res.events)
 
 
-def test_divergence_guard_halves_an_unstable_step() -> None:
+def test_divergence_guard_halves_an_unstable_step_and_earns_it_back() -> None:
     x, y = quadratic_stream(15, 400)
     m = model_of(channel(learner={"kind": "sgd",
                                                   "schedule": {"kind": "constant", "eta0": 20.0}}))
     res = m.learn(x, y)
     guards = [e for e in res.events if e["kind"] == "guard"]
     assert guards and np.isfinite(m.weights).all()
-    assert m.s.st[ST_SCALE] == 0.5 ** len(guards)
+    scale = 1.0  # halved per guarded step, times RECOVER per applied one, at most 1
+    for status in res.status:
+        scale = scale * 0.5 if status == "guard" else min(1.0, scale * RECOVER)
+    assert m.s.st[ST_SCALE] == scale
     # once the step is small enough it learns: the last residuals are at the noise level
     assert np.nanstd(res.residuals[-100:]) < 0.2
+
+
+def test_the_step_scale_comes_back_after_a_run_of_wild_inputs() -> None:
+    """29 samples at an input far beyond the range once shrank the step for good; now they
+    are held back as out of range, and a guard's halving is earned back by good samples."""
+    m = model_of(channel())
+    x, y = quadratic_stream(17, 300)
+    m.learn(x, y)
+    wild = m.learn(np.full(29, 1e15), np.ones(29))
+    assert set(wild.status) == {"out_of_range"}
+    m.s.st[ST_SCALE] = 2e-9  # as 29 halvings leave it
+    m.learn(*quadratic_stream(18, 2000))
+    assert m.s.st[ST_SCALE] == 1.0
 
 
 def test_tolerance_check_against_the_last_calibration() -> None:
@@ -355,7 +371,7 @@ def test_the_state_does_not_carry_the_config() -> None:
     m = model_of(channel(drift={"detector": "cusum", "tolerance": 0.5}))
     m.learn(x, y)
     state = json.loads(json.dumps(m.to_state()))
-    assert "config" not in state and state["format"] == 2
+    assert "config" not in state and state["format"] == 3
     restored = ChannelModel.from_state(m.config, state)
     assert restored.config == m.config and restored.to_state() == m.to_state()
     with pytest.raises(StateError):  # 3 weights for a 4-term basis
@@ -393,7 +409,9 @@ def test_the_model_answers_by_name() -> None:
 @pytest.mark.parametrize("split", [0, 150, 301])
 def test_the_state_before_the_alarm_is_that_of_learning_up_to_it(learner: dict[str, Any], split: int) -> None:
     """One pass keeps the state just before the sample that raised the drift alarm: equal to
-    the state of a model that learned only the samples before it (whatever the batches)."""
+    the state of a model that learned only the samples before it (whatever the batches),
+    except for the curve, which is the one from before the estimated change point: the
+    weights when the statistic that alarmed was last zero."""
     x, y = quadratic_stream(25, 600)
     y = y.copy()
     y[330:] += 1.5
@@ -409,8 +427,19 @@ def test_the_state_before_the_alarm_is_that_of_learning_up_to_it(learner: dict[s
     direct = model_of(body)
     direct.fit_closed_form(x[:40], y[:40])
     direct.learn(x[:k], y[:k])
-    assert res.before_alarm == direct.to_state()
-    assert res.before_alarm["n_samples"] == k
+    expected = direct.to_state()
+    before = res.before_alarm
+    side = 0  # the upward statistic alarms on an upward step
+    assert before["weights"] == direct.s.change_w[side].tolist()
+    assert before["change_weights"] == [before["weights"]] * 2
+    differ = ("weights", "change_weights", "max_curve_change", "tolerance_state")
+    assert {k: v for k, v in before.items() if k not in differ} == {
+        k: v for k, v in expected.items() if k not in differ}
+    assert before["n_samples"] == k
+    # the change point lies before the step: that curve has not moved toward the fault
+    change = direct.copy()
+    change.s.w = np.array(before["weights"])
+    assert change.max_curve_difference(direct.s.w_ref) < 0.05 < direct.max_curve_difference(direct.s.w_ref)
     # no alarm is raised twice: it stays until the drift watch restarts
     assert m.learn(x[:50], y[:50]).before_alarm is None
 

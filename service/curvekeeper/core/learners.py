@@ -198,13 +198,6 @@ def learn_batch(
             es, edof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_EVAR], st[ST_EN], window)
             if es > 0.0:
                 score = e / (es * scale_margin(edof, SCALE_Z))
-            st[ST_EN] += 1.0
-            a = weight(st[ST_EN], window)
-            d = e - st[ST_EMEAN]
-            if es > 0.0:  # winsorised at 4 s.d., so one wild reading cannot blunt the watch
-                d = max(-4.0 * es, min(4.0 * es, d))
-            st[ST_EMEAN] += a * d
-            st[ST_EVAR] = (1.0 - a) * (st[ST_EVAR] + a * d * d)
         elif warm:
             score = r / s
         if score == score:
@@ -225,6 +218,15 @@ def learn_batch(
                 snap_st[:] = st
                 snap_ds[:] = ds_before
             out_state[i] = int(ds[DS_STATE])
+        if has_ref:  # the reference residuals' running mean and variance, after the watch used them
+            es = math.sqrt(st[ST_EVAR])
+            st[ST_EN] += 1.0
+            a = weight(st[ST_EN], window)
+            d = e - st[ST_EMEAN]
+            if es > 0.0:  # winsorised at 4 s.d., so one wild reading cannot blunt the watch
+                d = max(-4.0 * es, min(4.0 * es, d))
+            st[ST_EMEAN] += a * d
+            st[ST_EVAR] = (1.0 - a) * (st[ST_EVAR] + a * d * d)
         if warm and outlier > 0.0 and abs(r) > outlier * s:
             out_status[i] = OUTLIER
             st[ST_REJ] += 1.0

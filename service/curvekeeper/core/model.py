@@ -67,7 +67,8 @@ from .scaling import InputScaler
 from .schedules import schedule_params
 from .state import ModelState
 from .transform import OutputTransform
-from .uncertainty import standard_uncertainty
+from .prediction import Prediction
+from .prediction import predict as predict_values
 
 Array = NDArray[np.float64]
 
@@ -387,26 +388,30 @@ class ChannelModel:
         return out
 
     # prediction ---------------------------------------------------------------
-    def residual_sd(self) -> float | None:
-        """Residual s.d. in the fitted space, or None when there is none yet: the last
-        fit's residual variance pooled with that of the samples since (counted up to the
-        estimate's window), weighted by their degrees of freedom."""
+    def residual_sd_dof(self) -> tuple[float | None, float]:
+        """(s, dof): the residual s.d. in the fitted space, the last fit's residual variance
+        pooled with that of the samples since (counted up to the estimate's window), and
+        its degrees of freedom; (None, 0) when there is none yet."""
         st = self.s.st
         n = min(st[ST_RN], RESIDUAL_WINDOW)
-        dof = st[ST_FDOF]
-        if n + dof <= 0:
-            return None
-        return float(np.sqrt((dof * st[ST_FVAR] + n * st[ST_RVAR]) / (dof + n)))
+        dof = st[ST_FDOF] + n
+        if dof <= 0:
+            return None, 0.0
+        return float(np.sqrt((st[ST_FDOF] * st[ST_FVAR] + n * st[ST_RVAR]) / dof)), float(dof)
+
+    def residual_sd(self) -> float | None:
+        return self.residual_sd_dof()[0]
+
+    def prediction(self, X: Any) -> Prediction:
+        """Calibrated values at raw inputs X (n, d) with their uncertainty budget; raises
+        ``InputError`` for inputs that are not finite numbers of the right shape."""
+        return predict_values(self, self.scaler.check(X))
 
     def predict(self, X: Any) -> tuple[Array, Array]:
-        """Calibrated values y (n,) and standard uncertainties u (n,) in output units for
-        raw inputs X (n, d); u is NaN before the channel has a residual estimate."""
-        Xa = self.scaler.check(X)
-        Phi = self.basis.expand(Xa)
-        sd = self.residual_sd()
-        uz = standard_uncertainty(Phi, np.nan if sd is None else sd * sd, self.s.cov)
-        y, slope = self.transform.inverse(Phi @ self.s.w)
-        return y, uz * slope
+        """Calibrated values y (n,) and combined standard uncertainties u (n,) in output
+        units for raw inputs X (n, d); NaN where a value is withheld or unknown."""
+        p = self.prediction(X)
+        return p.y, p.u
 
     def out_of_range(self, X: Any) -> NDArray[np.bool_]:
         return self.scaler.out_of_range(self.scaler.check(X))
@@ -533,8 +538,9 @@ class ChannelModel:
 
     @property
     def n_rejected(self) -> int:
-        """Samples held back: outliers and guarded (unstable) steps."""
-        return int(self.s.st[ST_REJ] + self.s.st[ST_GUARD])
+        """Samples not learnt: outliers, guarded (unstable) steps, and those held back (out
+        of range, not finite, out of service)."""
+        return int(self.s.st[ST_REJ] + self.s.st[ST_GUARD] + self.s.st[ST_HELD])
 
     @property
     def drift_state(self) -> str:
@@ -567,7 +573,24 @@ class ChannelModel:
 
     @property
     def warmed_up(self) -> bool:
-        return bool(self.s.st[ST_RN] >= WARMUP)
+        """The outlier gate works: the residual s.d. rests on ``WARMUP`` degrees of freedom."""
+        return self.residual_sd_dof()[1] >= WARMUP
+
+    @property
+    def calibrated(self) -> bool:
+        """The channel has a curve: a calibration, or a learnt sample (an RLS learner: its
+        first solution)."""
+        return self.s.w_ref is not None or (self.s.st[ST_ACC] > 0 and self.s.info_b is None)
+
+    @property
+    def service(self) -> str:
+        return self.s.service
+
+    def quality(self) -> dict[str, Any]:
+        """What a data user should know about every value this model gives."""
+        return {"calibrated": self.calibrated, "drift": self.drift_state,
+                "tolerance": self.tolerance_state or "ok", "service": self.s.service,
+                "warming_up": not self.warmed_up}
 
     def summary(self) -> dict[str, Any]:
         """Counts, rmse (output units) and drift state for ``GET /v1/channels/{id}``."""
