@@ -4,8 +4,11 @@ Every reference value here is either quoted from the statistical quality control
 literature (named next to the check, quoted from memory) or computed in this file
 by code that does not use the project: Siegmund's approximation for the CUSUM,
 the Brook and Evans Markov chain for the EWMA, and the quasi-static average of
-Siegmund's hazard for Page-Hinkley. The detectors are measured by seeded Monte
-Carlo through the compiled ``run_lengths`` / ``first_reach`` / ``detector_update``.
+Siegmund's hazard for Page-Hinkley; and (sections 6-7) the Brook and Evans chains
+of tests/core/arl.py for the CUSUM (one-sided, combined two-sided, and on the pair
+(S+, S-)) and the EWMA, with the detectors' clip in the transition probabilities.
+The detectors are measured by seeded Monte Carlo through the compiled
+``run_lengths`` / ``first_reach`` / ``detector_update``.
 
 ARL convention: the number of samples up to and including the first one whose
 state reaches the level (alarm: statistic > alarm threshold; warning: > warning).
@@ -57,6 +60,8 @@ from curvekeeper.channel_config import channel_config
 from curvekeeper.core import drift
 from scipy import integrate
 from scipy.stats import norm
+
+from tests.core import arl
 
 CHUNK = 10**7  # normals generated per chunk (80 MB of float64)
 
@@ -136,22 +141,10 @@ def siegmund_two_sided(shift: float | np.ndarray, k: float, h: float) -> np.ndar
 
 
 def ewma_arl_markov(lam: float, L: float, mu: float, m: int = 201) -> float:
-    """Brook & Evans (1972): EWMA ARL from a Markov chain on the in-control region.
-
-    e_t = lam z_t + (1 - lam) e_{t-1}, z ~ N(mu, 1), alarm when |e| > L sigma_e with
-    the asymptotic sigma_e = sqrt(lam / (2 - lam)). The region (-UCL, UCL) is cut into
-    m intervals (m odd so e = 0 is a midpoint); P[i, j] = P(e_t in interval j |
-    e_{t-1} = midpoint i); ARL from (I - P) ARL = 1, read at the start e_0 = 0.
-    """
-    ucl = L * math.sqrt(lam / (2.0 - lam))
-    w = 2.0 * ucl / m
-    c = -ucl + w * (np.arange(m) + 0.5)
-    base = (1.0 - lam) * c[:, None]
-    upper = (c[None, :] + w / 2.0 - base) / lam - mu
-    lower = (c[None, :] - w / 2.0 - base) / lam - mu
-    P = norm.cdf(upper) - norm.cdf(lower)
-    arl = np.linalg.solve(np.eye(m) - P, np.ones(m))
-    return float(arl[m // 2])
+    """Brook & Evans (1972): EWMA ARL from a Markov chain on the in-control region
+    (|e| < L sigma_e, asymptotic sigma_e), m midpoint states, e_0 = 0, no clipping.
+    The chain is ``tests/core/arl.py``'s ``ewma``."""
+    return arl.ewma(lam, L, mu, m)
 
 
 def page_hinkley_quasi_static(delta: float, h: float, window: int) -> float:
@@ -614,3 +607,272 @@ def test_deterministic_for_a_seed(detector: str) -> None:
     assert np.array_equal(a[0], b[0]) and a[1] == b[1] and np.array_equal(a[2], b[2])
     assert a[0].size > 50
     assert not np.array_equal(a[2], c[2])
+
+
+# --------------------------------------------------------------------------------------
+# 6. Brook-Evans Markov chains (tests/core/arl.py): published table, drift.py's
+#    docstring figures, and the compiled detectors by Monte Carlo
+# --------------------------------------------------------------------------------------
+
+# Montgomery, Introduction to Statistical Quality Control, table "ARL performance of the
+# tabular CUSUM with k = 1/2 and h = 4 or h = 5" (two-sided scheme; QUOTED FROM MEMORY),
+# kept as printed so that each value's rounding unit is its last digit.
+TABLE_SHIFTS = (0.0, 0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 2.5, 3.0, 4.0)
+TABLE_ARL = {
+    4.0: ("168", "74.2", "26.6", "13.3", "8.38", "4.75", "3.34", "2.62", "2.19", "1.71"),
+    5.0: ("465", "139", "38.0", "17.0", "10.4", "5.75", "4.01", "3.11", "2.57", "2.01"),
+}
+
+
+def half_unit(printed: str) -> float:
+    """Half a unit in the last printed digit: the rounding of a table entry."""
+    decimals = len(printed.split(".")[1]) if "." in printed else 0
+    return 0.5 * 10.0**-decimals
+
+
+@pytest.mark.parametrize("h", sorted(TABLE_ARL))
+def test_cusum_chain_reproduces_montgomery_table(h: float) -> None:
+    """Brook-Evans chain (400 states a side, no clip), two sides combined as
+    1/ARL = 1/ARL+ + 1/ARL-, against Montgomery's k = 1/2 table (quoted from memory):
+    every entry within its rounding (half a unit of the last digit) plus 0.1 % (the
+    chain's discretisation error is < 0.01 % at 400 states: 465.43 at 400, 465.44 at
+    1,600). Computed (h = 5): 465.4, 139.5, 38.00, 17.05, 10.38, 5.747, 4.009, 3.114,
+    2.573, 2.013; (h = 4): 167.7, 74.22, 26.63, 13.29, 8.383, 4.747, 3.343, 2.620,
+    2.194, 1.708. The in-control one-sided ARL is twice the two-sided: 930.9 (h = 5)."""
+    for shift, printed in zip(TABLE_SHIFTS, TABLE_ARL[h], strict=True):
+        chain = arl.cusum_two_sided(0.5, h, shift, m=400)
+        table = float(printed)
+        assert abs(chain - table) <= half_unit(printed) + 1e-3 * table, (h, shift, chain)
+    # in control both sides are alike, so the one-sided ARL is twice the two-sided one
+    assert arl.cusum_one_sided(0.5, h, 0.0, m=400) == pytest.approx(
+        2.0 * arl.cusum_two_sided(0.5, h, 0.0, m=400), rel=1e-12
+    )
+
+
+@pytest.mark.parametrize(
+    ("h", "shift", "clip"),
+    [(5.0, 0.0, 0.0), (5.0, 1.0, 0.0), (6.0, 0.0, 4.0), (6.0, -1.0, 4.0), (5.0, 0.5, 1.5)],
+)
+def test_cusum_two_sided_combination_against_2d_chain(h: float, shift: float, clip: float) -> None:
+    """The combination 1/ARL = 1/ARL+ + 1/ARL- against a Brook-Evans chain on the pair
+    (S+, S-) (40 x 40 states, the same grid on each side): they agree to 1e-9 relative
+    (measured: ~1e-14, also at k = 0 and k = 0.1, h = 2-3, outside the suite), so the
+    combination carries no approximation error into the two-sided figures below."""
+    two_d = arl.cusum_two_sided_2d(0.5, h, shift, m=40, clip=clip)
+    combined = arl.cusum_two_sided(0.5, h, shift, m=40, clip=clip)
+    assert combined == pytest.approx(two_d, rel=1e-9)
+
+
+def ph_quasi_static_chain(h: float) -> float:
+    return arl.page_hinkley_quasi_static(0.5, h, 1000, m=200, clip=4.0, nodes=16)
+
+
+# (label, the figure in drift.py's docstring, the chain's value for the same settings)
+DOCSTRING_FIGURES: list[tuple[str, float, Any]] = [
+    # "With k = 0.5: h = 5 gives 469 in control and 10.3 for a 1 s.d. shift" (no clip)
+    ("cusum k .5 h 5, in control", 469.0, lambda: arl.cusum_two_sided(0.5, 5.0, 0.0)),
+    ("cusum k .5 h 5, 1 s.d.", 10.3, lambda: arl.cusum_two_sided(0.5, 5.0, 1.0)),
+    # the defaults, clip 4 (in the chain)
+    ("cusum defaults, warning h 6", 1286.0, lambda: arl.cusum_two_sided(0.5, 6.0, 0.0, clip=4.0)),
+    (
+        "cusum defaults, alarm h 11",
+        192_000.0,
+        lambda: arl.richardson(
+            arl.cusum_two_sided(0.5, 11.0, 0.0, m=200, clip=4.0),
+            arl.cusum_two_sided(0.5, 11.0, 0.0, m=400, clip=4.0),
+        ),
+    ),
+    # also Page-Hinkley's "about 22.3 samples to an alarm after a 1 s.d. shift" (k = delta)
+    ("cusum defaults, alarm, 1 s.d.", 22.3, lambda: arl.cusum_two_sided(0.5, 11.0, 1.0, clip=4.0)),
+    ("ewma lam .1 L 2.814, in control", 500.0, lambda: arl.ewma(0.1, 2.814, 0.0)),
+    ("ewma defaults, warning L 3.0", 1376.0, lambda: arl.ewma(0.05, 3.0, 0.0, clip=4.0)),
+    # "204,000 (a 201-state chain ...)": the docstring's own discretisation, no clip
+    ("ewma defaults, alarm L 4.4, 201 states", 204_000.0, lambda: arl.ewma(0.05, 4.4, 0.0, m=201)),
+    # "206,000 with 801 states": against the chain extrapolated to infinitely many states
+    (
+        "ewma defaults, alarm L 4.4, converged",
+        206_000.0,
+        lambda: arl.richardson(
+            arl.ewma(0.05, 4.4, 0.0, m=401, clip=4.0), arl.ewma(0.05, 4.4, 0.0, m=801, clip=4.0)
+        ),
+    ),
+    ("ewma defaults, alarm, 1 s.d.", 23.8, lambda: arl.ewma(0.05, 4.4, 1.0, clip=4.0)),
+    ("page_hinkley defaults, warning, quasi-static", 1254.0, lambda: ph_quasi_static_chain(6.0)),
+    ("page_hinkley defaults, alarm, quasi-static", 174_000.0, lambda: ph_quasi_static_chain(11.0)),
+]
+
+
+@pytest.mark.parametrize(("label", "figure", "chain"), DOCSTRING_FIGURES, ids=[r[0] for r in DOCSTRING_FIGURES])
+def test_drift_docstring_figures_against_chain(label: str, figure: float, chain: Any) -> None:
+    """The ARL figures of drift.py's docstring (Siegmund's approximation for the CUSUM,
+    a 201-state chain for the EWMA, Siegmund's hazard for Page-Hinkley's quasi-static
+    value) against the Brook-Evans chain with the default clip of 4 s.d. in its
+    transition probabilities. Tolerance 1 %: the docstring rounds to 3-4 digits and
+    Siegmund's approximation is within 0.8 % of the chain at these h.
+
+    Computed (clip 4 unless the label says otherwise; ARL in samples):
+      cusum k .5 h 5 (no clip)     465.4 in control, 10.38 at 1 s.d.
+      cusum defaults               h 6: 1,279.3;  h 11: 191,640;  h 11, 1 s.d.: 22.39
+      ewma lam .1 L 2.814 (no clip) 499.6 in control
+      ewma defaults                L 3.0: 1,380.3;  L 4.4: 207,240 (201 states, no clip:
+                                   203,660; converged, no clip: 206,340);  1 s.d.: 23.83
+      page_hinkley quasi-static    h 6: 1,247;  h 11: 172,900 (200 states; 173,300
+                                   extrapolated; the simulation of the slow tests gives
+                                   ~1,280 and ~208,000: the derivation is a lower bound)
+    """
+    value = chain()
+    report(f"chain: {label}", value, f"drift.py docstring {figure:,}")
+    assert value == pytest.approx(figure, rel=0.01)
+
+
+def mc_mean_and_se(
+    kind: int, dp: np.ndarray, level: int, n_samples: int, seed: int, shift: float
+) -> tuple[float, float, int]:
+    """Monte Carlo ARL through the compiled ``run_lengths`` (restart after each event)
+    and its standard error from the sample s.d. of the completed runs."""
+    est, n, _, lengths = mc_arl(kind, dp, level, n_samples, seed, shift)
+    return est, float(lengths.std(ddof=1)) / math.sqrt(n), n
+
+
+CLIP15 = 1.5  # a clip that changes the run lengths a lot, to check the clip in the chain
+
+# (id, detector config, level, shift, samples, seed, chain ARL, chain's own rel. error)
+MC_CASES: list[tuple[str, dict[str, Any], int, float, int, int, Any, float]] = [
+    ("cusum-warning-in-control", {"detector": "cusum"}, 1, 0.0, 10**7, 601,
+     lambda: arl.cusum_two_sided(0.5, 6.0, 0.0, clip=4.0), 1e-3),
+    ("cusum-alarm-+1sd", {"detector": "cusum"}, 2, 1.0, 10**6, 602,
+     lambda: arl.cusum_two_sided(0.5, 11.0, 1.0, clip=4.0), 1e-3),
+    ("cusum-alarm--1sd", {"detector": "cusum"}, 2, -1.0, 10**6, 603,
+     lambda: arl.cusum_two_sided(0.5, 11.0, -1.0, clip=4.0), 1e-3),
+    ("ewma-warning-in-control", {"detector": "ewma"}, 1, 0.0, 10**7, 604,
+     lambda: arl.ewma(0.05, 3.0, 0.0, clip=4.0), 1e-3),
+    ("ewma-alarm-+1sd", {"detector": "ewma"}, 2, 1.0, 10**6, 605,
+     lambda: arl.ewma(0.05, 4.4, 1.0, clip=4.0), 1e-3),
+    ("ewma-alarm--1sd", {"detector": "ewma"}, 2, -1.0, 10**6, 606,
+     lambda: arl.ewma(0.05, 4.4, -1.0, clip=4.0), 1e-3),
+    # clip 1.5: the atoms at +-1.5 make the chain converge as 1/m; extrapolated (order 1)
+    ("cusum-h5-clip1.5-in-control", {"detector": "cusum", "k": 0.5, "warning": 4.0, "alarm": 5.0,
+                                     "clip": CLIP15}, 2, 0.0, 10**7, 607,
+     lambda: arl.richardson(arl.cusum_two_sided(0.5, 5.0, 0.0, m=400, clip=CLIP15),
+                            arl.cusum_two_sided(0.5, 5.0, 0.0, m=800, clip=CLIP15), order=1), 1e-3),
+    ("cusum-h5-clip1.5-+1sd", {"detector": "cusum", "k": 0.5, "warning": 4.0, "alarm": 5.0,
+                               "clip": CLIP15}, 2, 1.0, 10**6, 608,
+     lambda: arl.richardson(arl.cusum_two_sided(0.5, 5.0, 1.0, m=400, clip=CLIP15),
+                            arl.cusum_two_sided(0.5, 5.0, 1.0, m=800, clip=CLIP15), order=1), 1e-3),
+    # EWMA with atoms: 18.05-18.09 over 201-1,601 states, not monotone; 0.3 % allowed
+    ("ewma-L3-clip1.5-+1sd", {"detector": "ewma", "lambda": 0.05, "warning": 2.0, "alarm": 3.0,
+                              "clip": CLIP15}, 2, 1.0, 10**6, 609,
+     lambda: arl.ewma(0.05, 3.0, 1.0, clip=CLIP15), 3e-3),
+]
+
+
+def mc_config(cfg: dict[str, Any]) -> tuple[int, np.ndarray]:
+    if len(cfg) == 1:
+        return fleet_params(cfg["detector"])
+    return drift.detector_params(cfg)
+
+
+@pytest.mark.parametrize(
+    ("cfg", "level", "shift", "n_samples", "seed", "chain", "chain_err"),
+    [c[1:] for c in MC_CASES],
+    ids=[c[0] for c in MC_CASES],
+)
+def test_run_lengths_agree_with_chain(
+    cfg: dict[str, Any], level: int, shift: float, n_samples: int, seed: int, chain: Any,
+    chain_err: float,
+) -> None:
+    """The compiled detectors (``run_lengths`` on a seeded N(shift, 1) stream, restart
+    after each event) against the Brook-Evans chain with the same clip in its transition
+    probabilities: |MC - chain| <= 4 MC standard errors (s.e. from the s.d. of the run
+    lengths) + the chain's own discretisation error. Fleet defaults (clip 4) at their
+    warning level in control and their alarm level at +-1 s.d.; and a clip of 1.5 s.d.,
+    where the chain without the clip is far outside the band (so the clip is modelled).
+
+    Measured (MC +- s.e. / chain; ARL in samples):
+      cusum h 6 in control   1,296 +- 15 / 1,279.3     ewma L 3 in control  1,412 +- 17 / 1,380.3
+      cusum h 11 +1 s.d.     22.33 +- .04 / 22.39      ewma L 4.4 +1 s.d.   23.80 +- .04 / 23.83
+      cusum h 11 -1 s.d.     22.41 +- .04 / 22.39      ewma L 4.4 -1 s.d.   23.82 +- .04 / 23.83
+      cusum h 5 clip 1.5 in control  3,051 +- 52 / 3,091.9    (no clip: 465.4)
+      cusum h 5 clip 1.5 +1 s.d.     15.63 +- .03 / 15.704    (no clip: 10.38; 4e7 samples
+                                     outside the suite: 15.711 +- .005)
+      ewma L 3 clip 1.5 +1 s.d.      18.07 +- .03 / 18.05     (no clip: 13.52)
+    """
+    kind, dp = mc_config(cfg)
+    ref = chain()
+    est, se, n = mc_mean_and_se(kind, dp, level, n_samples, seed, shift)
+    report(f"MC vs chain {cfg} level {level} shift {shift:+.0f} ({n} runs)", est,
+           f"chain {ref:,.3f}", se / est)
+    assert n >= 3000
+    assert abs(est - ref) <= 4.0 * se + chain_err * ref
+    clip = float(dp[drift.DP_CLIP])
+    if clip < 4.0:
+        # the same chain without the clip would not do
+        h = float(dp[drift.DP_ALARM if level == 2 else drift.DP_WARNING])
+        if kind == drift.DETECTORS["cusum"]:
+            unclipped = arl.cusum_two_sided(float(dp[drift.DP_REF]), h, shift)
+        else:
+            unclipped = arl.ewma(float(dp[drift.DP_REF]), h, shift)
+        assert abs(est - unclipped) > 10.0 * se
+
+
+# --------------------------------------------------------------------------------------
+# 7. Page-Hinkley's running mean
+# --------------------------------------------------------------------------------------
+
+
+def test_page_hinkley_running_mean_weight_is_max_of_one_over_n_and_window() -> None:
+    """The running mean m follows m += alpha (z - m), alpha = max(1/n, 1/mean_window),
+    after the deviation z - m (mean before the update) has entered g+ / g-. Hand
+    computation, mean_window 4, delta 0.5, z all within the clip (dyadic numbers: exact):
+
+      n  z     alpha  mean   dev = z - mean_before   g+     g-     statistic
+      1  3     1      3      3                       2.5    0      2.5
+      2  1     1/2    2      -2                      0      1.5    1.5
+      3  2     1/3    2      0                       0      1.0    1.0
+      4  4     1/4    2.5    2                       1.5    0      1.5
+      5  3.5   1/4    2.75   1                       2.0    0      2.0   (1/n would give 2.7)
+      6  0.75  1/4    2.25   -2                      0      1.5    1.5
+    """
+    kind, dp = params("page_hinkley", delta=0.5, warning=100.0, alarm=200.0, mean_window=4, clip=4.0)
+    ds = drift.new_detector_state()
+    z = [3.0, 1.0, 2.0, 4.0, 3.5, 0.75]
+    means = [3.0, 2.0, 2.0, 2.5, 2.75, 2.25]
+    stats = [2.5, 1.5, 1.0, 1.5, 2.0, 1.5]
+    g_plus = [2.5, 0.0, 0.0, 1.5, 2.0, 0.0]
+    g_minus = [0.0, 1.5, 1.0, 0.0, 0.0, 1.5]
+    for i, v in enumerate(z):
+        assert drift.detector_update(kind, dp, ds, v) == stats[i], i
+        assert ds[drift.DS_MEAN] == means[i], i
+        assert (ds[drift.DS_A], ds[drift.DS_B]) == (g_plus[i], g_minus[i]), i
+        assert ds[drift.DS_N] == i + 1
+        assert ds[drift.DS_STATE] == drift.OK
+
+
+def test_page_hinkley_running_mean_absorbs_a_constant_bias() -> None:
+    """A constant bias of 0.3 s.d. (seeded N(0.3, 1) stream, 12,000 samples, fresh state):
+    the fleet-default Page-Hinkley (window 1000) raises no alarm, because the running
+    mean takes the bias out of the deviations. The same detector with its mean held
+    at 0 (window 10^12 and a state that has already seen 10^12 samples at mean 0, so
+    alpha ~ 1e-12) is a CUSUM with k = delta seeing a 0.3 s.d. shift, whose ARL by the
+    Brook-Evans chain is 1,551 (clip 4): it alarms (here at sample 599), and would
+    miss 12,000 samples with probability ~exp(-12,000 / 1,551) ~ 4e-4.
+    With the window, the in-control alarm ARL (~208,000) gives a ~6 % chance of an
+    alarm in 12,000 samples on an arbitrary seed; this seed has none.
+    """
+    n = 12_000
+    z = np.random.default_rng(701).standard_normal(n) + 0.3
+    kind, dp = fleet_params("page_hinkley")
+    assert dp[drift.DP_ALPHA] == 1.0 / 1000
+    ds = drift.new_detector_state()
+    assert drift.first_reach(kind, dp, ds, z, drift.ALARM) == -1
+    assert abs(ds[drift.DS_MEAN] - 0.3) < 0.1  # the mean has taken the bias
+
+    frozen_ref = arl.cusum_two_sided(0.5, 11.0, 0.3, clip=4.0)
+    assert frozen_ref == pytest.approx(1551, rel=0.01)
+    kind, frozen = params("page_hinkley", delta=0.5, warning=6.0, alarm=11.0, mean_window=10**12, clip=4.0)
+    ds = drift.new_detector_state()
+    ds[drift.DS_N] = 1e12  # a long history at mean 0: alpha = max(1/n, 1e-12) ~ 1e-12
+    hit = drift.first_reach(kind, frozen, ds, z, drift.ALARM)
+    report("PH mean held at 0, bias 0.3: first alarm at", hit + 1, f"ARL {frozen_ref:,.0f} (chain)")
+    assert 0 <= hit < n
+    assert abs(ds[drift.DS_MEAN]) < 1e-6
