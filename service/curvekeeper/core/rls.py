@@ -13,16 +13,21 @@ with lambda = 1 the recursion gives the closed-form least-squares weights of all
 rows, to rounding (exact initialisation of RLS, as in Haykin's Adaptive Filter
 Theory; other texts call it "initialisation by the first M samples").
 
-**Bounded trace.** With lambda < 1 and an input that does not move (a cold room at
-a steady temperature), P / lambda grows without limit in the directions the
-input does not excite (covariance windup) until it overflows. Here the division
-is by lambda_eff = max(lambda, trace(P - k phi' P) / T_max) (at most 1): P forgets
-at the configured rate while its trace is under the bound T_max and stops
-forgetting at the bound, so trace(P) <= T_max always and the excited directions
-still shrink. This is a trace-bounded variant of the constant-trace algorithm
-(Goodwin and Sin, Adaptive Filtering Prediction and Control, 1984; cited from
-memory). T_max is ``covariance_bound`` times trace(P) right after the last
-calibration or initialisation.
+**Bounded covariance.** With lambda < 1 and an input that does not move (a cold room
+at a steady temperature), P / lambda grows without limit in the directions the input
+does not excite (covariance windup) until it overflows, while in the excited
+direction it shrinks. Here, after the EFRA idea (exponential forgetting and
+resetting, Salgado, Goodwin and Middleton, 1988; cited from memory):
+
+    P <- (P - k phi' P) / lambda_eff + beta I,   beta = (1 - lambda)^2
+
+with lambda_eff = lambda while the trace stays under the bound T_max, and larger (at
+most 1) as far as needed to keep trace(P) <= T_max. The floor beta I keeps the gain
+alive in every direction (under a constant row, the excited direction settles near
+p = (1 - lambda) / |phi| instead of shrinking as 1/n, so the memory stays about
+1 / (1 - lambda) samples); the trace cap takes the place of EFRA's -delta P^2 term.
+T_max is ``covariance_bound`` times trace(P) right after the last calibration or
+initialisation. With lambda = 1, beta = 0 and the step is plain RLS.
 """
 
 from __future__ import annotations
@@ -61,15 +66,21 @@ def rls_step(w: Any, P: Any, phi: Any, r: float, lam: float, tr_max: float, Pphi
     trace = 0.0
     for i in range(M):
         trace += P[i, i] - Pphi[i] * Pphi[i] / den
+    beta = (1.0 - lam) * (1.0 - lam)
     lam_eff = lam
-    if tr_max > 0.0 and trace > lam * tr_max:
-        lam_eff = trace / tr_max if trace < tr_max else 1.0
+    if tr_max > 0.0:
+        room = tr_max - M * beta
+        if trace > lam * room:
+            lam_eff = trace / room if 0.0 < room and trace < room else 1.0
+        if trace / lam_eff + M * beta > tr_max:
+            beta = max(0.0, (tr_max - trace / lam_eff) / M)
     for i in range(M):
         ki = Pphi[i] / den
         for j in range(i, M):
             v = (P[i, j] - ki * Pphi[j]) / lam_eff
             P[i, j] = v
             P[j, i] = v
+        P[i, i] += beta
     for i in range(M):
         w[i] = wn[i]
     return True
