@@ -2,11 +2,11 @@
 
 Components, per predicted value (``uncertainty.py`` combines them):
 
-- ``curve`` (Type A): s sqrt(phi' P phi), the calibration curve's own uncertainty from
-  its parameter covariance P (none for an SGD learner taught from scratch, whose
-  prior residuals already hold it);
-- ``scatter`` (Type A): s, the residual s.d. (the fit's pooled with the samples');
-  both in the fitted space with sensitivity |dy/dz|, and the pooled degrees of freedom;
+- ``curve and scatter`` (Type A): s sqrt(1 + phi' P phi), s the residual s.d. (the
+  fit's pooled with the samples') and phi' P phi the curve's own share from its
+  parameter covariance P (none for an SGD learner taught from scratch, whose prior
+  residuals already hold it); in the fitted space with sensitivity |dy/dz|, and the
+  pooled degrees of freedom;
 - ``reference`` (Type B, normal): the reference instrument's U / k from its certificate;
 - ``resolution`` (Type B, rectangular), per input with a declared resolution:
   res / sqrt(12) in input units with sensitivity dy/dx (a central difference).
@@ -64,10 +64,12 @@ def predict(model: ChannelModel, X: Array) -> Prediction:
     sd, dof = model.residual_sd_dof()
     comps: list[Component] = []
     if sd is not None:
+        quad = np.zeros(len(y))
         if model.s.cov is not None and model.s.info_b is None:
             quad = np.maximum(((Phi @ model.s.cov) * Phi).sum(axis=1), 0.0)
-            comps.append(Component("curve", "A", "normal", sd * np.sqrt(quad), slope, dof))
-        comps.append(Component("scatter", "A", "normal", np.full(len(y), sd), slope, dof))
+        # one Type A component: both parts rest on the same s, so Welch-Satterthwaite (which
+        # assumes independent estimates) must see them as one with s's degrees of freedom
+        comps.append(Component("curve and scatter", "A", "t", sd * np.sqrt(1.0 + quad), slope, dof))
     ref = cfg.get("reference")
     if ref is not None:
         comps.append(Component("reference", "B", "normal", from_expanded(ref["expanded_uncertainty"],
