@@ -126,7 +126,6 @@ def test_a_large_offset_right_after_a_calibration_is_caught_at_once() -> None:
     when the watch waited 30 samples; now it alarms within a few."""
     for seed in range(20):
         assert 1 <= alarm_delay(seed, 5, 17.0, 0) <= 10
-        assert 1 <= alarm_delay(seed, 10, 3.0, 0) <= 60
 
 
 @pytest.mark.parametrize("points", [5, 10, 30])
