@@ -92,8 +92,11 @@ def info_step(A: Any, b: Any, phi: Any, z: float, lam: float) -> bool:
     row would make it non-finite (nothing changed)."""
     M = b.shape[0]
     for i in range(M):
-        if not math.isfinite(phi[i] * phi[i]) or not math.isfinite(phi[i] * z):
+        if not math.isfinite(lam * b[i] + phi[i] * z):
             return False
+        for j in range(M):
+            if not math.isfinite(lam * A[i, j] + phi[i] * phi[j]):
+                return False
     for i in range(M):
         b[i] = lam * b[i] + phi[i] * z
         for j in range(M):
@@ -103,8 +106,9 @@ def info_step(A: Any, b: Any, phi: Any, z: float, lam: float) -> bool:
 
 @kernel
 def info_solve(A: Any, b: Any, w: Any, L: Any) -> bool:
-    """When A (M, M) is positive definite: overwrite A with P = A^-1 and w with P b, and
-    return True; otherwise leave everything as it is and return False. L (M, M) scratch."""
+    """When A (M, M) is positive definite and its solution finite: overwrite A with
+    P = A^-1 and w with P b, and return True; otherwise change nothing (but the scratch
+    L (M, M)) and return False."""
     M = b.shape[0]
     top = 0.0
     for i in range(M):
@@ -133,16 +137,24 @@ def info_solve(A: Any, b: Any, w: Any, L: Any) -> bool:
             for k in range(j, i):
                 s -= L[i, k] * Li[k, j]
             Li[i, j] = s / L[i, i]
+    P = np.empty((M, M))
     for i in range(M):
         for j in range(i, M):
             s = 0.0
             for k in range(j, M):
                 s += Li[k, i] * Li[k, j]
-            A[i, j] = s
-            A[j, i] = s
+            if not math.isfinite(s):
+                return False
+            P[i, j] = s
+            P[j, i] = s
+    wn = np.empty(M)
     for i in range(M):
         s = 0.0
         for j in range(M):
-            s += A[i, j] * b[j]
-        w[i] = s
+            s += P[i, j] * b[j]
+        if not math.isfinite(s):
+            return False
+        wn[i] = s
+    A[:, :] = P
+    w[:] = wn
     return True
