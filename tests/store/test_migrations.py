@@ -8,6 +8,7 @@ import uuid
 from collections.abc import Iterator
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -85,10 +86,12 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
     the channel loads and learns as before. Downgrading puts it back."""
     config = channel_config({"id": "site-a.p1", "inputs": [{"name": "raw", "min": 0, "max": 100}],
                              "drift": {"detector": "cusum", "tolerance": 0.5}})
+    config = _as_before_0005(config)
     model = ChannelModel.from_config(config)
     x = np.linspace(0.0, 100.0, 60)
     model.learn(x, 2.0 * x + 1.0)
-    state = model.to_state()
+    current = model.to_state()
+    state = _as_format_2(current)
     old_state = {**state, "format": 1, "config": config}
     snap_config = {**config, "description": "before a settings change"}
     old_snap = {**state, "format": 1, "config": snap_config}
@@ -110,8 +113,8 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
         migrate.upgrade(engine)
         with engine.connect() as conn:
             assert conn.execute(select(ChannelState.model_state)).scalar_one() == state
-            assert conn.execute(select(Channel.config)).scalar_one() == config
-            assert conn.execute(select(Snapshot.config, Snapshot.model_state)).one() == (snap_config, state)
+            assert conn.execute(select(Channel.config)).scalar_one() == _filled(config)
+            assert conn.execute(select(Snapshot.config, Snapshot.model_state)).one() == (_filled(snap_config), state)
     finally:
         engine.dispose()
     store = Store(empty_url)
@@ -124,10 +127,10 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
             st = repo.learning_state("site-a.p1", lock=False)
             assert st is not None
             loaded = unit.read_model(st)
-            assert loaded.to_state() == state and loaded.config == config
+            assert _as_format_2(loaded.to_state()) == state and loaded.config == _filled(config)
             snap = repo.get_snapshot(1, 1)
             assert snap is not None
-            assert ChannelModel.from_state(snap.config, snap.model_state).to_state() == state
+            assert _as_format_2(ChannelModel.from_state(snap.config, snap.model_state).to_state()) == state
     finally:
         store.dispose()
     engine = make_engine(empty_url)
@@ -137,6 +140,72 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
             states = [conn.execute(text(f"SELECT model_state FROM {t}")).scalar_one()
                       for t in ("channel_state", "snapshot")]
             assert [json.loads(s) if isinstance(s, str) else s for s in states] == [old_state, old_snap]
+    finally:
+        engine.dispose()
+
+
+NEW_IN_3 = ("reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held")
+
+
+def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
+    """A format-3 state as format 2 wrote it (no reference residuals, change points, RLS
+    information vector, service state)."""
+    out = {k: v for k, v in state.items() if k not in ("change_weights", "info_b", "service")}
+    out["format"] = 2
+    out["running"] = {k: v for k, v in state["running"].items() if k not in NEW_IN_3}
+    out["detector"] = {k: v for k, v in state["detector"].items() if k != "mean_bound"}
+    return out
+
+
+def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
+    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin")}
+    out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
+    out["coverage_factor"] = 2.0
+    return out
+
+
+def _filled(config: dict[str, Any]) -> dict[str, Any]:
+    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, **config,
+            "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
+
+
+def test_0005_fills_the_trust_settings_with_the_old_behaviour(empty_url: str) -> None:
+    """A channel and snapshot from before 0005 (rls, fixed k = 2, no margin) get coverage
+    0.95, no reference, margin 1, no resolution and covariance_bound 10, keep their k and
+    initial_covariance, and load and predict; downgrading removes the fields again."""
+    config = _as_before_0005(channel_config({"id": "site-b.p2", "inputs": [{"name": "raw", "min": 0, "max": 10}],
+                                             "learner": {"kind": "rls", "initial_covariance": 1000.0}}))
+    config["learner"].pop("covariance_bound")
+    now = datetime.now(UTC)
+    engine = make_engine(empty_url)
+    try:
+        migrate.upgrade(engine, "0004")
+        model = ChannelModel.from_config(channel_config({k: v for k, v in config.items() if k != "id"}))
+        model.learn([1.0, 5.0, 9.0], [2.0, 6.0, 10.0])
+        state = _as_format_2(model.to_state())
+        with engine.begin() as conn:
+            conn.execute(insert(Channel.__table__).values(pk=1, id="site-b.p2", config=config, created_at=now))
+            conn.execute(insert(ChannelState.__table__).values(
+                channel_pk=1, model_state=state, version=3, n_samples=3, n_rejected=0, drift_state="ok",
+                tolerance_state=None, rmse=None, last_sample_at=None, updated_at=now))
+            conn.execute(insert(Snapshot.__table__).values(pk=1, channel_pk=1, reason="manual", label=None,
+                                                           config=config, model_state=state, version=3,
+                                                           n_samples=3, created_at=now))
+        migrate.upgrade(engine)
+        with engine.connect() as conn:
+            got = conn.execute(select(Channel.config)).scalar_one()
+            assert conn.execute(select(Snapshot.config)).scalar_one() == got
+        assert got["coverage"] == 0.95 and got["coverage_factor"] == 2.0 and got["reference"] is None
+        assert got["range_margin"] == 1.0 and got["inputs"][0]["resolution"] is None
+        assert got["learner"] == {**config["learner"], "covariance_bound": 10.0}
+        assert channel_config({k: v for k, v in got.items() if k != "id"}) == {
+            k: v for k, v in got.items() if k != "id"}  # a complete, valid declaration
+        loaded = ChannelModel.from_state(got, state)
+        p = loaded.prediction([[5.0]])
+        assert p.k[0] == 2.0
+        _downgrade(engine, "0004")
+        with engine.connect() as conn:
+            assert conn.execute(select(Channel.config)).scalar_one() == config
     finally:
         engine.dispose()
 
