@@ -202,6 +202,8 @@ def test_sgd_step_matches_plain_lms_recursion() -> None:
 
 
 def test_rls_matches_textbook_recursion_with_forgetting() -> None:
+    """The textbook recursion plus the floor (1 - lambda)^2 I of core/rls.py; the trace
+    stays under its bound on a moving input, so the cap never acts."""
     x, y = quadratic_stream(9, 300)
     lam, p0 = 0.98, 100.0
     m = model_of(channel(learner={"kind": "rls", "forgetting": lam,
@@ -211,8 +213,9 @@ def test_rls_matches_textbook_recursion_with_forgetting() -> None:
     for phi, target in zip(Phi, y, strict=True):
         k = P @ phi / (lam + phi @ P @ phi)
         w = w + k * (target - w @ phi)
-        P = (P - np.outer(k, phi @ P)) / lam
+        P = (P - np.outer(k, phi @ P)) / lam + (1 - lam) ** 2 * np.eye(3)
     m.learn(x, y)
+    assert np.trace(m.s.cov) < 10 * 3 * p0
     np.testing.assert_allclose(m.weights, w, rtol=1e-9)
     np.testing.assert_allclose(m.s.cov, P, rtol=1e-7, atol=1e-12)
 

@@ -18,10 +18,12 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .basis import Basis, PolyBasis, make_basis
+from .basis import Basis, make_basis
+from .comparison import CURVE_GRID, CurveComparison
 from .config import MUTABLE, Config
-from .drift import DS_BOUND, DS_N, DS_STATE, STATES, detector_params, detector_statistic
+from .drift import DS_STATE, STATES, detector_params
 from .errors import ConfigError, InputError, StateError
+from .facts import RESIDUAL_WINDOW, WARMUP, ModelFacts
 from .learners import (
     GUARD,
     IP_DETECTOR,
@@ -42,44 +44,25 @@ from .learners import (
     NOT_FINITE,
     OUT_OF_RANGE,
     OUT_OF_SERVICE,
-    ST_ACC,
-    ST_EMEAN,
-    ST_EN,
-    ST_EVAR,
-    ST_FDOF,
-    ST_FVAR,
-    ST_GUARD,
-    ST_HELD,
     ST_INIT,
-    ST_OMS,
-    ST_ON,
-    ST_REJ,
-    ST_RN,
-    ST_RVAR,
-    ST_SCALE,
-    ST_T,
     ST_TRMAX,
     STATUS_NAMES,
     learn_batch,
 )
-from .lstsq import fit_least_squares
+from .lifecycle import Lifecycle
+from .prediction import Prediction
+from .prediction import predict as predict_values
 from .scaling import InputScaler
 from .schedules import schedule_params
 from .state import ModelState
 from .transform import OutputTransform
-from .prediction import Prediction
-from .prediction import predict as predict_values
 
 Array = NDArray[np.float64]
 
-WARMUP = 30  # degrees of freedom behind the residual s.d. before the outlier gate starts
-RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimates
 COVARIANCE_BOUND = 10.0  # the RLS trace bound of a channel declared before it was a setting
-BASELINE_PRIOR = 30.0  # samples: the prior weight of the drift baseline's start at 0
 RANGE_MARGIN = 1.0  # the out-of-range margin of a channel declared before it was a setting
-CURVE_GRID = 201  # points over the input range for curve comparisons
 
-__all__ = ["MUTABLE", "ChannelModel", "LearnResult"]
+__all__ = ["CURVE_GRID", "MUTABLE", "RESIDUAL_WINDOW", "WARMUP", "ChannelModel", "LearnResult"]
 
 
 @dataclass
@@ -104,7 +87,7 @@ class LearnResult:
 
 
 
-class ChannelModel:
+class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
     """A channel's model; build it with ``from_config`` or ``from_state``. ``config`` is
     the channel's validated configuration (``curvekeeper.core.config``), fixed for the
     model's life; the learned state is ``to_state()``."""
@@ -244,7 +227,7 @@ class ChannelModel:
             return np.zeros((n, self.basis.size)), np.zeros(n), hold
         margin = self.config.get("range_margin", RANGE_MARGIN)
         span = self.scaler.hi - self.scaler.lo
-        far = ((X < self.scaler.lo - margin * span) | (X > self.scaler.hi + margin * span)).any(axis=1)
+        far = ((self.scaler.lo - margin * span > X) | (self.scaler.hi + margin * span < X)).any(axis=1)
         hold[far] = OUT_OF_RANGE
         keep = ~far
         Phi = np.zeros((n, self.basis.size))
@@ -321,87 +304,6 @@ class ChannelModel:
                            [STATES[int(c)] for c in out_state], out_stat, events,
                            alarm_at if alarm_at >= 0 else None, before_alarm)
 
-    def fit_closed_form(self, X: Any, y: Any) -> dict[str, Any]:
-        """Least-squares calibration on points X (n, d), y (n,); replaces the weights,
-        resets the learner's clock and the drift detector, and makes this curve the
-        reference for the tolerance check. Returns the fit report."""
-        Xa, ya = self._samples(X, y)
-        Phi = self.basis.expand(Xa)
-        z = self.transform.forward(ya)
-        fit = fit_least_squares(Phi, z, has_intercept=self.basis.has_intercept)
-        old = self.s.w.copy()
-        s = self.s
-        s.w = fit.weights.copy()
-        s.w_ref = fit.weights.copy()
-        s.cov = fit.cov_unscaled.copy()
-        yhat, _ = self.transform.inverse(Phi @ fit.weights)
-        out_resid = ya - yhat
-        s.st[ST_T] = 0.0
-        s.st[ST_SCALE] = 1.0
-        # the fit's residual s.d. serves the uncertainty until samples arrive; the warm-up
-        # starts again, because residuals in service are seldom as small as on the bench
-        s.st[ST_RN] = 0.0
-        s.st[ST_RVAR] = 0.0
-        s.st[ST_FVAR] = fit.residual_sd**2 if fit.dof > 0 else 0.0
-        s.st[ST_FDOF] = float(fit.dof)
-        s.st[ST_ON] = float(fit.n)
-        s.st[ST_OMS] = float(np.mean(out_resid**2))
-        # the drift watch starts afresh on this fit's curve: its residuals, its scale
-        s.st[ST_EN] = s.st[ST_EMEAN] = s.st[ST_EVAR] = 0.0
-        s.info_b, s.st[ST_INIT] = None, 0.0
-        self._arm(fit.n)
-        s.service = "in_service"
-        if self.config["learner"]["kind"] == "rls":
-            self._bound_trace()
-        s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
-        s.max_curve_change = 0.0
-        change = self.max_curve_difference(old)
-        report: dict[str, Any] = {
-            "weights": fit.weights.tolist(),
-            "weight_sd": _nan_to_none(fit.weight_sd),
-            "residual_sd": _float_or_none(fit.residual_sd),
-            "rmse_output": float(np.sqrt(np.mean(out_resid**2))),
-            "r_squared": _float_or_none(fit.r_squared),
-            "n": fit.n,
-            "max_curve_change": change if np.isfinite(change) else None,
-        }
-        report.update(self.raw_coefficients(fit.residual_sd))
-        return report
-
-    def raw_coefficients(self, residual_sd: float | None = None) -> dict[str, Any]:
-        """Coefficients in raw units where the basis has such a form (with s.d. when a
-        covariance and residual s.d. are known). ``poly_coefficients`` for one-input poly."""
-        T = self.basis.raw_map()
-        if T is None:
-            return {}
-        c = T @ self.s.w
-        sd = residual_sd if residual_sd is not None else self.residual_sd()
-        if self.s.cov is not None and sd is not None and np.isfinite(sd):
-            csd = _nan_to_none(sd * np.sqrt(np.maximum(np.diag(T @ self.s.cov @ T.T), 0.0)))
-        else:
-            csd = None
-        out: dict[str, Any] = {"raw_terms": self.basis.raw_terms(), "raw_coefficients": c.tolist(),
-                               "raw_coefficient_sd": csd}
-        if isinstance(self.basis, PolyBasis) and self.scaler.d == 1:
-            out["poly_coefficients"] = c.tolist()
-            out["poly_coefficient_sd"] = csd
-        return out
-
-    # prediction ---------------------------------------------------------------
-    def residual_sd_dof(self) -> tuple[float | None, float]:
-        """(s, dof): the residual s.d. in the fitted space, the last fit's residual variance
-        pooled with that of the samples since (counted up to the estimate's window), and
-        its degrees of freedom; (None, 0) when there is none yet."""
-        st = self.s.st
-        n = min(st[ST_RN], RESIDUAL_WINDOW)
-        dof = st[ST_FDOF] + n
-        if dof <= 0:
-            return None, 0.0
-        return float(np.sqrt((st[ST_FDOF] * st[ST_FVAR] + n * st[ST_RVAR]) / dof)), float(dof)
-
-    def residual_sd(self) -> float | None:
-        return self.residual_sd_dof()[0]
-
     def prediction(self, X: Any) -> Prediction:
         """Calibrated values at raw inputs X (n, d) with their uncertainty budget; raises
         ``InputError`` for inputs that are not finite numbers of the right shape."""
@@ -415,202 +317,6 @@ class ChannelModel:
 
     def out_of_range(self, X: Any) -> NDArray[np.bool_]:
         return self.scaler.out_of_range(self.scaler.check(X))
-
-    def _grid(self) -> tuple[Array, Array]:
-        """The standard grid, (g, d) raw inputs, and its basis (g, p), made once."""
-        if self._grid_x is None or self._grid_phi is None:
-            self._grid_x = self.scaler.grid(CURVE_GRID)
-            self._grid_phi = self.basis.expand(self._grid_x)
-        return self._grid_x, self._grid_phi
-
-    def curve_values(self, weights: Array) -> Array:
-        """The curve with the given weights on the standard grid, output units."""
-        y, _ = self.transform.inverse(self._grid()[1] @ weights)
-        return y
-
-    def _gap(self, weights: Array) -> Array:
-        """|f_now(x) - f_other(x)| on the standard grid (g,), output units (NaN where both
-        curves overflow alike)."""
-        with np.errstate(invalid="ignore"):
-            return np.abs(self.curve_values(self.s.w) - self.curve_values(weights))
-
-    def max_curve_difference(self, weights: Array) -> float:
-        """Largest |f_now(x) - f_other(x)| over the input range, output units (not finite
-        when either curve is not finite somewhere on the grid)."""
-        return float(np.max(self._gap(weights)))
-
-    def curve_difference(self, weights: Array) -> tuple[float | None, Array | None, int]:
-        """``max_curve_difference`` among the grid points where both curves are finite, with
-        the raw inputs x (d,) where it is and how many grid points were left out as not
-        finite; ``(None, None, g)`` when no point is finite in both."""
-        gap = self._gap(weights)
-        finite = np.isfinite(gap)
-        left_out = int(gap.size - np.count_nonzero(finite))
-        if left_out == gap.size:
-            return None, None, left_out
-        i = int(np.argmax(np.where(finite, gap, -np.inf)))  # the first of equal largest
-        return float(gap[i]), self._grid()[0][i].copy(), left_out
-
-    def set_reference(self) -> None:
-        """Accept the current curve as the reference for the drift watch, the tolerance
-        check and the l2 pull; the watch restarts on it."""
-        s = self.s
-        s.w_ref = s.w.copy()
-        s.tolerance_state = "ok" if self.config["drift"]["tolerance"] is not None else None
-        s.max_curve_change = 0.0
-        s.st[ST_EN] = s.st[ST_EMEAN] = s.st[ST_EVAR] = 0.0
-        s.reset_detector(keep_alarm=True, baseline=False)
-
-    def _arm(self, n_points: int) -> None:
-        """Start the drift watch on the reference curve of a fit of ``n_points`` points: its
-        baseline (Page-Hinkley's running mean) starts at 0 with a prior weight of
-        ``BASELINE_PRIOR`` samples and may explain a bias of the reference fit of at most
-        three of its standard errors, 3 sqrt(M / n) in residual s.d. (M / n: the points'
-        mean leverage); a larger offset than the fit can explain always raises the alarm."""
-        s = self.s
-        s.reset_detector(baseline=False)
-        s.ds[DS_N] = max(n_points, 1) / self.basis.size
-        s.ds[DS_BOUND] = 3.0 * np.sqrt(self.basis.size / max(n_points, 1))
-
-    def acknowledge(self) -> None:
-        """A technician has seen the drift state: the alarm (or warning) clears and the
-        watch restarts, its baseline learnt again from the next samples, so only a further
-        change raises it again."""
-        self.s.reset_detector(baseline=False)
-
-    def set_service(self, state: str) -> None:
-        """``in_service`` or ``out_of_service``: out of service, samples are stored but
-        not learned nor watched."""
-        if state not in ("in_service", "out_of_service"):
-            raise ConfigError(f"unknown service state {state!r}", field="state")
-        self.s.service = state
-
-    def take_curve(self, other: ChannelModel, *, set_reference: bool) -> ChannelModel:
-        """A rollback: ``other``'s curve and learner state under this model's lifecycle (its
-        reference curve and drift watch, service state, sample count), unless ``set_reference``
-        makes the restored curve the new reference. ``other`` has this model's basis."""
-        state = other.s.copy()
-        s = self.s
-        state.n_samples = s.n_samples
-        state.service = s.service
-        state.ds, state.change_w = s.ds.copy(), np.stack([state.w, state.w])
-        for k in (ST_EN, ST_EMEAN, ST_EVAR, ST_FVAR, ST_FDOF, ST_ACC, ST_REJ, ST_GUARD, ST_HELD):
-            state.st[k] = s.st[k]
-        restored = ChannelModel(other.config, state)
-        if set_reference:
-            restored.set_reference()
-        else:
-            state.w_ref = None if s.w_ref is None else s.w_ref.copy()
-            restored._check_tolerance()
-        return restored
-
-    def _check_tolerance(self) -> None:
-        self.s.tolerance_state, mcc = self._tolerance(self.s.w)
-        if self.s.tolerance_state is not None:
-            self.s.max_curve_change = mcc
-
-    def _tolerance(self, w: Array) -> tuple[str | None, float | None]:
-        """(tolerance state, largest change from the reference curve) for weights w."""
-        tol = self.config["drift"]["tolerance"]
-        w_ref = self.s.w_ref
-        if tol is None or w_ref is None:
-            return None, None
-        change = float(np.max(np.abs(self.curve_values(w) - self.curve_values(w_ref))))
-        ok = np.isfinite(change) and change <= tol
-        return "ok" if ok else "out_of_tolerance", change if np.isfinite(change) else None
-
-    # what the model knows, by name -----------------------------------------------------
-    @property
-    def weights(self) -> Array:
-        """(M,) current weights, in the basis's scaled space (read only)."""
-        w = self.s.w.view()
-        w.flags.writeable = False
-        return w
-
-    @property
-    def n_samples(self) -> int:
-        """Samples seen, learned or not."""
-        return self.s.n_samples
-
-    @property
-    def n_accepted(self) -> int:
-        return int(self.s.st[ST_ACC])
-
-    @property
-    def n_rejected(self) -> int:
-        """Samples not learnt: outliers, guarded (unstable) steps, and those held back (out
-        of range, not finite, out of service)."""
-        return int(self.s.st[ST_REJ] + self.s.st[ST_GUARD] + self.s.st[ST_HELD])
-
-    @property
-    def drift_state(self) -> str:
-        """``ok``, ``warning`` or ``alarm`` (an alarm stays until the drift watch restarts)."""
-        return STATES[int(self.s.ds[DS_STATE])]
-
-    @property
-    def in_alarm(self) -> bool:
-        return self.drift_state == "alarm"
-
-    @property
-    def drift_statistic(self) -> float:
-        """The detector's statistic now, in its own units (compare with warning / alarm)."""
-        return float(detector_statistic(int(self.ip[IP_DETECTOR]), self.dp, self.s.ds))
-
-    @property
-    def tolerance_state(self) -> str | None:
-        """``ok`` / ``out_of_tolerance`` against the reference curve; None without a check."""
-        return self.s.tolerance_state
-
-    @property
-    def max_curve_change(self) -> float | None:
-        """Largest |f_now - f_ref| over the input range at the last check, output units."""
-        return self.s.max_curve_change
-
-    @property
-    def rmse(self) -> float | None:
-        """Running root mean square of the accepted samples' residuals, output units."""
-        return float(np.sqrt(self.s.st[ST_OMS])) if self.s.st[ST_ON] > 0 else None
-
-    @property
-    def warmed_up(self) -> bool:
-        """The outlier gate works: the residual s.d. rests on ``WARMUP`` degrees of freedom."""
-        return self.residual_sd_dof()[1] >= WARMUP
-
-    @property
-    def calibrated(self) -> bool:
-        """The channel has a curve: a calibration, or a learnt sample (an RLS learner: its
-        first solution)."""
-        return self.s.w_ref is not None or (self.s.st[ST_ACC] > 0 and self.s.info_b is None)
-
-    @property
-    def service(self) -> str:
-        return self.s.service
-
-    def quality(self) -> dict[str, Any]:
-        """What a data user should know about every value this model gives."""
-        return {"calibrated": self.calibrated, "drift": self.drift_state,
-                "tolerance": self.tolerance_state or "ok", "service": self.s.service,
-                "warming_up": not self.warmed_up}
-
-    def summary(self) -> dict[str, Any]:
-        """Counts, rmse (output units) and drift state for ``GET /v1/channels/{id}``."""
-        return {
-            "n_samples": self.n_samples,
-            "n_accepted": self.n_accepted,
-            "n_rejected": self.n_rejected,
-            "rmse": self.rmse,
-            "residual_sd": self.residual_sd(),
-            "drift": {
-                "state": self.drift_state,
-                "statistic": self.drift_statistic,
-                "warning": self.config["drift"]["warning"],
-                "alarm": self.config["drift"]["alarm"],
-                "tolerance_state": self.tolerance_state,
-                "max_curve_change": self.max_curve_change,
-            },
-            "warmed_up": self.warmed_up,
-        }
-
 
 def _watch(drift: dict[str, Any]) -> dict[str, Any]:
     """The drift settings that shape the detector's statistic (not the tolerance)."""

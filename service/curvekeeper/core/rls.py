@@ -71,7 +71,7 @@ def rls_step(w: Any, P: Any, phi: Any, r: float, lam: float, tr_max: float, Pphi
     if tr_max > 0.0:
         room = tr_max - M * beta
         if trace > lam * room:
-            lam_eff = trace / room if 0.0 < room and trace < room else 1.0
+            lam_eff = trace / room if room > 0.0 and trace < room else 1.0
         if trace / lam_eff + M * beta > tr_max:
             beta = max(0.0, (tr_max - trace / lam_eff) / M)
     for i in range(M):
