@@ -12,32 +12,30 @@ less than one part in 10,000 per sample).
 
     S+ = max(0, S+ + z - k),  S- = max(0, S- - z - k),  statistic max(S+, S-)
 
-Average run lengths (ARL) by Siegmund's approximation for each side,
-ARL = (exp(-2 D b) + 2 D b - 1) / (2 D^2), D = shift - k, b = h + 1.166,
-combined as 1/ARL = 1/ARL+ + 1/ARL-. With k = 0.5: h = 5 gives 469 in control
-and 10.3 for a 1 s.d. shift; the defaults h = 6 (warning) and h = 11 (alarm)
-give 1,286 and 192,000 in control, and 22.3 samples to an alarm after a
-sustained 1 s.d. shift.
+Average run lengths (ARL), computed by the Markov-chain method of Brook and Evans with
+the clip (tests/core/arl.py; Siegmund's approximation agrees within 1 %). CUSUM with
+k = 0.5, h = 5: 465 in control and 10.4 after a 1 s.d. shift (Montgomery's table). The
+defaults h = 6 (warning) and h = 11 (alarm): about 1,280 and 192,000 in control, and 22.4
+samples to an alarm after a sustained 1 s.d. shift.
 
-``page_hinkley`` (two-sided, allowance ``delta``, running mean over the last
-``mean_window`` samples): the cumulative deviations from the running mean,
-minus ``delta``, against their running minimum, in the equivalent recursive
-form ``g+ = max(0, g+ + z - m - delta)`` (and the mirror for decreases). The
-running mean makes it insensitive to a constant bias of the residuals. ARL,
-derived quasi-statically (the mean moves slowly next to a run of the test):
-the mean estimate error e ~ N(0, a / (2 - a)), a = 1 / mean_window, and
-1/ARL = E_e[1/ARL_cusum(k = delta, shift = e)]. Defaults (delta 0.5, warning
-6, alarm 11, window 1000): 1,254 to a warning and 174,000 to an alarm in
-control; about 22.3 samples to an alarm after a 1 s.d. shift. The quasi-static value
-is a lower bound: the running mean absorbs part of each excursion toward the
-threshold, and simulation gives about 210,000 to an alarm (1,280 to a warning).
+``page_hinkley`` (two-sided, allowance ``delta``, running mean over ``mean_window``
+samples): the cumulative deviations from the running mean, minus ``delta``, against their
+running minimum, in the recursive form ``g+ = max(0, g+ + z - m - delta)`` (and the mirror
+for decreases). The running mean (the baseline) makes it a test for a change rather than
+for a level: insensitive to a constant bias of the residuals, such as a reference fit's own
+error. The baseline learns from every sample for its first ``SETTLE`` (prior count
+included), then only while both statistics are under ``FREEZE``, so that a change under
+test is not absorbed into it; it may start at 0 with a prior count and be held within
++-``bound`` (``DS_BOUND``; the channel sets both after a calibration). ARL in control,
+quasi-statically (the mean moves slowly next to a run of the test): 1,250 to a warning and
+173,000 to an alarm at the defaults (delta 0.5, warning 6, alarm 11, window 1000), a lower
+bound (simulation gives about 1,280 and 208,000); about 22.4 samples to an alarm after a
+1 s.d. shift once the baseline has settled.
 
 ``ewma`` (weight ``lambda``): e = lambda z + (1 - lambda) e, statistic
-|e| / sqrt(lambda / (2 - lambda)) (in s.d. of e at steady state). ARL by the
-Markov-chain method of Brook and Evans: with lambda = 0.1 and L = 2.814 about
-500 in control (the textbook design); the defaults lambda = 0.05, warning 3.0,
-alarm 4.4 give 1,376 and 204,000 (a 201-state chain; 206,000 with 801 states)
-in control and 23.8 samples after a 1 s.d. shift.
+|e| / sqrt(lambda / (2 - lambda)) (in s.d. of e at steady state). With lambda = 0.1 and
+L = 2.814 about 500 in control (the textbook design); the defaults lambda = 0.05, warning
+3.0, alarm 4.4 give 1,380 and 207,000 in control and 23.8 samples after a 1 s.d. shift.
 """
 
 from __future__ import annotations
