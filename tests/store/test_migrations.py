@@ -153,7 +153,7 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
     out = {k: v for k, v in state.items() if k not in ("change_weights", "info_b", "service")}
     out["format"] = 2
     out["running"] = {k: v for k, v in state["running"].items() if k not in NEW_IN_3}
-    out["detector"] = {k: v for k, v in state["detector"].items() if k != "mean_bound"}
+    out["detector"] = dict(state["detector"])
     return out
 
 

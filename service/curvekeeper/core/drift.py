@@ -25,8 +25,8 @@ for decreases). The running mean (the baseline) makes it a test for a change rat
 for a level: insensitive to a constant bias of the residuals, such as a reference fit's own
 error. The baseline learns from every sample for its first ``SETTLE`` (prior count
 included), then only while both statistics are under ``FREEZE``, so that a change under
-test is not absorbed into it; it may start at 0 with a prior count and be held within
-+-``bound`` (``DS_BOUND``; the channel sets both after a calibration). ARL in control,
+test is not absorbed into it; it may start at 0 with a prior count (the channel sets one
+after a calibration). ARL in control,
 quasi-statically (the mean moves slowly next to a run of the test): 1,250 to a warning and
 173,000 to an alarm at the defaults (delta 0.5, warning 6, alarm 11, window 1000), a lower
 bound (simulation gives about 1,280 and 208,000); about 22.4 samples to an alarm after a
@@ -60,9 +60,9 @@ DETECTOR_DEFAULTS: dict[str, dict[str, Any]] = {
 DP_REF, DP_WARNING, DP_ALARM, DP_CLIP, DP_ALPHA = range(5)
 DP_SIZE = 5
 # layout of the state vector ds: a (S+ / g+ / e), b (S- / g-), running mean, n seen (plus the
-# prior count of the mean), state code, and the bound on |running mean| (0: none)
-DS_A, DS_B, DS_MEAN, DS_N, DS_STATE, DS_BOUND = range(6)
-DS_SIZE = 6
+# prior count of the mean), state code
+DS_A, DS_B, DS_MEAN, DS_N, DS_STATE = range(5)
+DS_SIZE = 5
 OK, WARNING, ALARM = range(3)
 # Page-Hinkley's running mean (the baseline) learns from every sample for its first SETTLE
 # (prior count included), then only while both statistics are under FREEZE, so a change
@@ -121,12 +121,6 @@ def detector_update(kind: int, dp: Any, ds: Any, z: float) -> float:
             alpha = dp[DP_ALPHA]
         if ds[DS_N] < SETTLE or (ds[DS_A] < FREEZE and ds[DS_B] < FREEZE):
             ds[DS_MEAN] += alpha * (z - ds[DS_MEAN])
-        bound = ds[DS_BOUND]
-        if bound > 0.0:
-            if ds[DS_MEAN] > bound:
-                ds[DS_MEAN] = bound
-            elif ds[DS_MEAN] < -bound:
-                ds[DS_MEAN] = -bound
         stat = float(ds[DS_A] if ds[DS_A] > ds[DS_B] else ds[DS_B])
     else:
         lam = dp[DP_REF]

@@ -38,7 +38,7 @@ import numpy as np
 
 from .drift import ALARM, DS_A, DS_B, DS_SIZE, DS_STATE, detector_statistic, detector_update
 from .jit import kernel
-from .residuals import pooled_sd, scale_margin, weight
+from .residuals import pooled_sd, reference_sd, scale_margin, weight
 from .rls import info_solve, info_step, rls_step
 from .schedules import eta_at
 
@@ -195,7 +195,7 @@ def learn_batch(
         # the drift watch
         score = math.nan
         if has_ref:
-            es, edof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_EVAR], st[ST_EN], window)
+            es, edof = reference_sd(st[ST_FVAR], st[ST_FDOF], st[ST_EVAR], st[ST_EN], window)
             if es > 0.0:
                 score = e / (es * scale_margin(edof, SCALE_Z))
         elif warm:
@@ -221,7 +221,7 @@ def learn_batch(
         if has_ref:  # the reference residuals' running mean and variance, after the watch used them
             es = math.sqrt(st[ST_EVAR])
             st[ST_EN] += 1.0
-            a = weight(st[ST_EN], window)
+            a = 1.0 / st[ST_EN] if st[ST_EN] < window else 1.0 / window
             d = e - st[ST_EMEAN]
             if es > 0.0:  # winsorised at 4 s.d., so one wild reading cannot blunt the watch
                 d = max(-4.0 * es, min(4.0 * es, d))

@@ -10,7 +10,7 @@ from numpy.typing import NDArray
 
 from .basis import Basis, PolyBasis
 from .config import Config
-from .drift import DS_BOUND, DS_N
+from .drift import DS_N
 from .errors import ConfigError
 from .learners import (
     ST_ACC,
@@ -138,14 +138,12 @@ class Lifecycle:
 
     def _arm(self, n_points: int) -> None:
         """Start the drift watch on the reference curve of a fit of ``n_points`` points: its
-        baseline (Page-Hinkley's running mean) starts at 0 with a prior weight of
-        ``BASELINE_PRIOR`` samples and may explain a bias of the reference fit of at most
-        three of its standard errors, 3 sqrt(M / n) in residual s.d. (M / n: the points'
-        mean leverage); a larger offset than the fit can explain always raises the alarm."""
+        baseline (Page-Hinkley's running mean) starts at 0 with a prior weight of n / M
+        samples (M basis terms), the posterior mean of the fit's own bias in the residuals
+        (its variance is about M / n residual variances)."""
         s = self.s
         s.reset_detector(baseline=False)
         s.ds[DS_N] = max(n_points, 1) / self.basis.size
-        s.ds[DS_BOUND] = 3.0 * np.sqrt(self.basis.size / max(n_points, 1))
 
     def acknowledge(self) -> None:
         """A technician has seen the drift state: the alarm (or warning) clears and the

@@ -12,8 +12,9 @@ usual exponential one of W samples.
 **Reference residuals.** After a calibration the drift watch takes the residual
 e = z - phi . w_ref against the reference curve (the last calibration's, which the
 learner cannot move). Its scale pools the fit's residual variance (nu_fit degrees
-of freedom) with a running variance of e around its running mean (n samples,
-counted up to W): s^2 = (nu_fit s_fit^2 + n v) / (nu_fit + n), nu = nu_fit + n. The
+of freedom) with the variance v of e around its running mean (a plain mean of n samples,
+exponential with memory W past W): s^2 = (nu_fit s_fit^2 + n v) / (nu_fit + n - 1),
+nu = nu_fit + n - 1. The
 watch divides e by an upper confidence bound of the s.d., s sqrt(nu / chi2_0.1(nu)):
 a scale estimated on few degrees of freedom (a 5-point calibration has 3) is as often
 too small as too large, and a too small one persists from sample to sample, which
@@ -46,6 +47,19 @@ def pooled_sd(fit_var: float, fit_dof: float, var: float, n: float, window: floa
     up to ``window``); (0, 0) when there is neither."""
     m = n if n < window else window
     dof = fit_dof + m
+    if dof <= 0.0:
+        return 0.0, 0.0
+    v = (fit_dof * fit_var + m * var) / dof
+    return math.sqrt(v) if v > 0.0 else 0.0, dof
+
+
+@kernel
+def reference_sd(fit_var: float, fit_dof: float, var: float, n: float, window: float) -> Any:
+    """(s, dof) of the reference residuals: the fit's variance pooled with their variance
+    about their own running mean (a mean over n samples, exponential past ``window``), which
+    costs that estimate one degree of freedom; (0, 0) when there is neither."""
+    m = n if n < window else window
+    dof = fit_dof + (m - 1.0 if m > 1.0 else 0.0)
     if dof <= 0.0:
         return 0.0, 0.0
     v = (fit_dof * fit_var + m * var) / dof

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .drift import ALARM, DS_BOUND, DS_MEAN, DS_N, DS_SIZE, DS_STATE, STATES
+from .drift import ALARM, DS_MEAN, DS_N, DS_SIZE, DS_STATE, STATES
 from .errors import StateError
 from .learners import ST_SCALE, ST_SIZE
 
@@ -29,7 +29,7 @@ RUNNING_NAMES = (
 )
 NEW_IN_3 = dict.fromkeys(RUNNING_NAMES[11:], 0.0)
 SERVICE_STATES = ("in_service", "out_of_service")
-DETECTOR_NAMES = ("a", "b", "mean", "n", "state", "mean_bound")
+DETECTOR_NAMES = ("a", "b", "mean", "n", "state")
 
 
 @dataclass
@@ -70,9 +70,8 @@ class ModelState:
     def reset_detector(self, *, keep_alarm: bool = False, baseline: bool = True) -> None:
         """Restart the detector's statistics; Page-Hinkley keeps its running mean unless
         ``baseline`` is false; an alarm stays when ``keep_alarm``."""
-        mean, n, state, bound = self.ds[DS_MEAN], self.ds[DS_N], self.ds[DS_STATE], self.ds[DS_BOUND]
+        mean, n, state = self.ds[DS_MEAN], self.ds[DS_N], self.ds[DS_STATE]
         self.ds[:] = 0.0
-        self.ds[DS_BOUND] = bound
         if baseline:
             self.ds[DS_MEAN], self.ds[DS_N] = mean, n
         if keep_alarm and state == ALARM:
@@ -107,7 +106,6 @@ class ModelState:
                 raise StateError(f"unknown model state format (expected one of {READS})")
             if d["format"] == 2:
                 d = {**d, "running": {**NEW_IN_3, **d["running"]}, "change_weights": [d["weights"]] * 2,
-                     "detector": {"mean_bound": 0.0, **d["detector"]},
                      "info_b": None, "service": "in_service"}
             w = _vector(d["weights"], "weights")
             M = w.shape[0]
