@@ -6,7 +6,7 @@ errors, ``curvekeeper.core.errors``, too).
     ├── Unauthorized      missing, unknown or revoked key
     ├── Forbidden         role or channel prefix not allowed
     ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
-    ├── Conflict          ChannelExists, ImmutableField
+    ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
     │   └── InvalidConfig a merged channel configuration the declaration refuses
@@ -64,6 +64,14 @@ class ChannelExists(Conflict):
 
 class ImmutableField(Conflict):
     code = "immutable_field"
+
+
+class NothingToAcknowledge(Conflict):
+    code = "nothing_to_acknowledge"
+
+
+class ServiceUnchanged(Conflict):
+    code = "service_unchanged"
 
 
 class PayloadTooLarge(ServiceError):

@@ -82,6 +82,12 @@ def requests(ids: dict[str, Any]) -> list[tuple[str, str, Any]]:
         ("POST", f"/v1/channels/{CH}/predict", {"x": [10.0]}),
         ("GET", f"/v1/channels/{CH}/curve?points=5", None),
         ("POST", f"/v1/channels/{CH}/calibrate", {"points": [{"x": 0, "y": 1.0}, {"x": 100, "y": 201.0}]}),
+        # a calibration with scatter, then samples well off it: a drift alarm to acknowledge
+        ("POST", f"/v1/channels/{CH}/calibrate", {"points": [{"x": float(x), "y": 2.0 * x + 1 + 0.05 * (-1) ** i}
+                                                             for i, x in enumerate(range(0, 101, 10))]}),
+        ("POST", f"/v1/channels/{CH}/samples", {"samples": [{"x": float(x), "y": 2.0 * x + 2} for x in range(30)]}),
+        ("POST", f"/v1/channels/{CH}/acknowledge", {"note": "checked"}),
+        ("POST", f"/v1/channels/{CH}/service", {"state": "out_of_service", "note": "repair"}),
         ("GET", f"/v1/channels/{CH}/snapshots", None),
         ("POST", f"/v1/channels/{CH}/snapshots", {"label": "x"}),
         ("GET", f"/v1/channels/{CH}/snapshots/{ids['snapshot']}", None),

@@ -40,6 +40,7 @@ class Row(NamedTuple):
     other_device: int
     technician: int
     admin: int
+    alarm: bool = False  # each cell first puts the channel in service with a drift alarm (see raise_alarm)
 
 
 NEW_CHANNEL = {"id": "{new}", **LINEAR}
@@ -70,6 +71,9 @@ MATRIX = [
     Row("POST",   f"{C}/rollback",                {"snapshot": "{snapshot_id}"},
                                                                               401, 401, 401, 403, 403, 200, 200),
     Row("GET",    f"{C}/events",                  None,                       401, 401, 401, 403, 403, 200, 200),
+    Row("POST",   f"{C}/acknowledge",             {"note": "matrix"},         401, 401, 401, 403, 403, 200, 200, True),
+    Row("POST",   f"{C}/service",                 {"state": "out_of_service", "note": "matrix"},
+                                                                              401, 401, 401, 403, 403, 200, 200, True),
     Row("POST",   "/v1/keys",                     {"role": "device", "prefixes": ["site-a."]},
                                                                               401, 401, 401, 403, 403, 403, 201),
     Row("GET",    "/v1/keys",                     None,                       401, 401, 401, 403, 403, 403, 200),
@@ -97,6 +101,17 @@ def app_routes(client: TestClient) -> set[tuple[str, str]]:
     return {(method.upper(), path) for path, ops in paths.items() for method in ops}
 
 
+def raise_alarm(client: TestClient, keys: Keys) -> None:
+    """A calibration (which puts the channel back in service) on the line y = 1 + 0.02 x,
+    then samples 1.0 off it: the drift watch raises its alarm."""
+    h = keys["technician"]
+    r = client.post(f"/v1/channels/{CH}/calibrate", json=POINTS, headers=h)
+    assert r.status_code == 200, r.text
+    r = client.post(f"/v1/channels/{CH}/samples", headers=h,
+                    json={"samples": [{"x": 10.0 * (i % 11), "y": 2.0 + 0.02 * 10.0 * (i % 11)} for i in range(30)]})
+    assert r.status_code == 200 and r.json()["drift"]["state"] == "alarm", r.text
+
+
 def test_the_table_lists_every_route_of_the_app(client: TestClient) -> None:
     routes = app_routes(client)
     table = {(row.method, row.path) for row in MATRIX}
@@ -121,6 +136,8 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
                 made = client.post("/v1/keys", json={"role": "device"}, headers=keys["admin"])
                 assert made.status_code == 201, made.text
                 names["kid"] = made.json()["id"]
+            if row.alarm:
+                raise_alarm(client, keys)
             before = store_fingerprint(client) if want >= 400 else None
             r = client.request(row.method, row.path.format(**names), json=fill(row.body, names),
                                headers=headers[caller])

@@ -382,6 +382,10 @@ def test_rollback_bad_body(client: TestClient, keys: Keys, channel: dict[str, An
         {"snapshot": 2**63},
         [sid],
         {"snapshot": sid, "force": True},
+        {"snapshot": sid, "set_reference": "yes"},
+        {"snapshot": sid, "set_reference": 1},
+        {"snapshot": sid, "set_reference": "true"},
+        {"snapshot": sid, "set_reference": None},
     ):
         expect_error(client, "POST", ROLLBACK, 422, "validation_error", json=body, headers=tech)
     expect_error(
@@ -433,6 +437,7 @@ def test_rollback_restores_the_snapshot_bit_for_bit(
     before = store_fingerprint(client)
     out = ok(client.post(ROLLBACK, json={"snapshot": rep["snapshot_after"]}, headers=tech))
     assert out["version"] == 32 and out["restored_snapshot"] == rep["snapshot_after"]
+    assert out["reference"] == "kept"
     after = store_fingerprint(client)
     assert after["counts"]["snapshot"] == before["counts"]["snapshot"] + 1
     assert after["counts"]["sample"] == before["counts"]["sample"]
@@ -458,7 +463,7 @@ def test_rollback_restores_the_snapshot_bit_for_bit(
 
     (event,) = ok(client.get(EVENTS, params={"kind": "rollback"}, headers=tech))["items"]
     assert event["version"] == 32 and event["key_id"]
-    assert event["details"] == {"snapshot": rep["snapshot_after"], "snapshot_before": sb}
+    assert event["details"] == {"snapshot": rep["snapshot_after"], "snapshot_before": sb, "set_reference": False}
     assert ok(client.get(BASE, headers=tech))["version"] == 32
 
     # and back again: rolling back to the before-rollback snapshot restores the learned curve
@@ -469,12 +474,102 @@ def test_rollback_restores_the_snapshot_bit_for_bit(
 def test_rollback_to_the_state_before_a_calibration(
     client: TestClient, keys: Keys, channel: dict[str, Any]
 ) -> None:
+    """The zero curve comes back; the calibration's curve stays the reference, so the
+    tolerance check measures the zero curve against it."""
     tech = keys["technician"]
+    ok(client.patch(BASE, json={"drift": {"tolerance": 0.5}}, headers=tech))  # before: settings come back
     rep = calibrate(client, tech, BENCH_Y)
     out = ok(client.post(ROLLBACK, json={"snapshot": rep["snapshot_before"]}, headers=tech))
-    assert out["version"] == 2
-    now = predict(client, tech)
-    assert now["y"] == [0.0] * len(X0) and now["u"] == [None] * len(X0)
+    assert out["version"] == 3 and out["reference"] == "kept"
+    assert predict(client, tech)["y"] == [0.0] * len(X0)
+    c0, c1 = rep["poly_coefficients"]
+    # the line's largest distance from zero over [0, 100] is at an end (the standard grid holds both)
+    assert out["drift"]["max_curve_change"] == pytest.approx(max(abs(c0), abs(c0 + 100 * c1)), rel=1e-12)
+    assert out["drift"]["tolerance_state"] == "out_of_tolerance"
+
+
+def two_calibrations(client: TestClient, tech: Headers) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The bench line (A), then a second calibration that moves it (B, now the reference)."""
+    ok(client.patch(BASE, json={"drift": {"tolerance": 0.1}}, headers=tech))
+    a = calibrate(client, tech, BENCH_Y)
+    b = calibrate(client, tech, [y + 0.25 - 0.004 * x for x, y in zip(BENCH_X, BENCH_Y, strict=True)])
+    return a, b
+
+
+def largest_gap(a: dict[str, Any], b: dict[str, Any]) -> float:
+    """max |f_a - f_b| over the standard grid (201 points over [0, 100]), by numpy."""
+    grid = np.linspace(0.0, 100.0, 201)
+    pa, pb = (np.polynomial.Polynomial(r["poly_coefficients"]) for r in (a, b))
+    return float(np.max(np.abs(pa(grid) - pb(grid))))
+
+
+def test_rollback_keeps_the_reference_by_default(client: TestClient, keys: Keys, channel: dict[str, Any]) -> None:
+    tech = keys["technician"]
+    a, b = two_calibrations(client, tech)
+    out = ok(client.post(ROLLBACK, json={"snapshot": a["snapshot_after"]}, headers=tech))
+    assert out["reference"] == "kept"
+    assert predict(client, tech)["y"] == predict(client, tech, snapshot=a["snapshot_after"])["y"]
+    # curve A measured against B, the last calibration's curve: 0.25 apart at x = 0
+    assert out["drift"]["max_curve_change"] == pytest.approx(largest_gap(a, b), rel=1e-9)
+    assert largest_gap(a, b) > 0.1 and out["drift"]["tolerance_state"] == "out_of_tolerance"
+    (event,) = ok(client.get(EVENTS, params={"kind": "rollback"}, headers=tech))["items"]
+    assert event["details"]["set_reference"] is False
+    assert ok(client.post(ROLLBACK, json={"snapshot": a["snapshot_after"], "set_reference": False},
+                          headers=tech))["drift"]["tolerance_state"] == "out_of_tolerance"
+
+
+def test_rollback_with_set_reference_makes_the_restored_curve_the_reference(
+    client: TestClient, keys: Keys, channel: dict[str, Any]
+) -> None:
+    tech = keys["technician"]
+    a, b = two_calibrations(client, tech)
+    out = ok(client.post(ROLLBACK, json={"snapshot": a["snapshot_after"], "set_reference": True}, headers=tech))
+    assert out["reference"] == "restored_snapshot"
+    assert out["drift"]["max_curve_change"] == 0.0 and out["drift"]["tolerance_state"] == "ok"
+    assert predict(client, tech)["y"] == predict(client, tech, snapshot=a["snapshot_after"])["y"]
+    (event,) = ok(client.get(EVENTS, params={"kind": "rollback"}, headers=tech))["items"]
+    assert event["details"]["set_reference"] is True
+    # back to B without making it the reference: now B is measured against A
+    back = ok(client.post(ROLLBACK, json={"snapshot": b["snapshot_after"]}, headers=tech))
+    assert back["drift"]["max_curve_change"] == pytest.approx(largest_gap(a, b), rel=1e-9)
+    assert back["drift"]["tolerance_state"] == "out_of_tolerance"
+
+
+@pytest.mark.parametrize("set_reference", [False, True])
+def test_rollback_keeps_the_drift_alarm_and_the_service_state(
+    client: TestClient, keys: Keys, channel: dict[str, Any], set_reference: bool
+) -> None:
+    """A rollback restores a curve, not the channel's history: an alarm stays until it is
+    acknowledged (or a calibration clears it), and so does the service state."""
+    tech, dev = keys["technician"], keys["device"]
+    rep = calibrate(client, tech, BENCH_Y)
+    rng = np.random.default_rng(11)
+    xs = rng.uniform(0.0, 100.0, 100)
+    off = [{"x": float(x), "y": 3.0 + 0.5 * float(x) + 1.0 + rng.normal(0.0, 0.05)} for x in xs]
+    assert ok(client.post(f"{BASE}/samples", json={"samples": off}, headers=dev))["drift"]["state"] == "alarm"
+    ok(client.post(f"{BASE}/service", json={"state": "out_of_service", "note": "checking"}, headers=tech))
+    body = {"snapshot": rep["snapshot_after"], "set_reference": set_reference}
+    out = ok(client.post(ROLLBACK, json=body, headers=tech))
+    assert out["drift"]["state"] == "alarm" and out["service_state"] == "out_of_service"
+    assert out["n_samples"] == 100  # the samples stored stay counted
+    assert ok(client.post(f"{BASE}/acknowledge", json={"note": "rolled back"}, headers=tech))["drift"]["state"] == "ok"
+
+
+def test_rollback_to_other_drift_settings_restarts_the_watch(
+    client: TestClient, keys: Keys, channel: dict[str, Any]
+) -> None:
+    """The snapshot's settings come back with its curve; the drift watch then restarts under
+    them, as after a PATCH of the detector (a CUSUM's sums mean nothing to Page-Hinkley)."""
+    tech, dev = keys["technician"], keys["device"]
+    rep = calibrate(client, tech, BENCH_Y)
+    ok(client.patch(BASE, json={"drift": {"detector": "cusum"}}, headers=tech))
+    rng = np.random.default_rng(3)
+    xs = rng.uniform(0.0, 100.0, 5)
+    off = [{"x": float(x), "y": 3.0 + 0.5 * float(x) + 0.08 + rng.normal(0.0, 0.01)} for x in xs]
+    got = ok(client.post(f"{BASE}/samples", json={"samples": off}, headers=dev))
+    assert got["drift"]["state"] == "ok" and got["drift"]["statistic"] > 0.0
+    out = ok(client.post(ROLLBACK, json={"snapshot": rep["snapshot_after"]}, headers=tech))
+    assert out["drift"]["detector"] == "page_hinkley" and out["drift"]["statistic"] == 0.0
 
 
 # GET /v1/channels/{id}/events --------------------------------------------------------------

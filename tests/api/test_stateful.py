@@ -3,7 +3,8 @@
 Each example is a fresh store behind the in-process app: a copy of the session's migrated
 SQLite template, or the emptied PostgreSQL test database when there is one. The rules
 create channels, post samples (one channel or a gateway batch, with and without source
-and seq, retries included), calibrate, change settings, take snapshots, roll back, predict
+and seq, retries included), calibrate, change settings, take snapshots, roll back (keeping
+the reference or not), acknowledge drift, take channels out of service and back, predict
 and restart the app on the same store (an empty cache of decoded models). After every
 step: no answer is a 5xx, every channel answers 200 with a schema-valid body, holds the
 samples this test's model says were stored, and its version has not gone back. At the
@@ -71,6 +72,7 @@ class Channel:
         self.version = 0
         self.seen: set[tuple[str, int]] = set()  # (source, seq) already stored
         self.next_seq = 0
+        self.service = "in_service"
 
 
 class ApiMachine(RuleBasedStateMachine):
@@ -170,6 +172,8 @@ class ApiMachine(RuleBasedStateMachine):
         assert (out["duplicates"], out["accepted"] + len(out["rejected"])) == (dups, kept), out
         assert out["n_samples"] == self.model[ch].n_samples
         self.seen_version(ch, out["version"], grew=kept > 0)
+        if self.model[ch].service == "out_of_service":  # stored, none learned
+            assert out["accepted"] == 0 and {r["reason"] for r in out["rejected"]} <= {"out_of_service"}, out
 
     @precondition(lambda self: len(self.model) >= 2)
     @rule(source=st.sampled_from(SOURCES), n=st.integers(1, 8), data=st.data())
@@ -202,6 +206,7 @@ class ApiMachine(RuleBasedStateMachine):
         if r.status_code == 200:
             out = self.ok(r, CalibrationAnswer)
             self.seen_version(ch, out["version"], grew=True)
+            self.model[ch].service = "in_service"  # a calibration puts the channel back in service
         else:  # too few points (or distinct inputs) for the basis: refused, and nothing stored
             assert r.status_code == 422, r.text
             assert store_fingerprint(self.client) == before, "a refused calibration changed the store"
@@ -229,8 +234,38 @@ class ApiMachine(RuleBasedStateMachine):
         if not ids:
             return
         sid = data.draw(st.sampled_from(ids))
-        out = self.ok(self.call("POST", f"/v1/channels/{ch}/rollback", {"snapshot": sid}), RollbackAnswer)
+        set_reference = data.draw(st.booleans())
+        body = {"snapshot": sid, "set_reference": set_reference}
+        out = self.ok(self.call("POST", f"/v1/channels/{ch}/rollback", body), RollbackAnswer)
         assert out["restored_snapshot"] == sid and out["n_samples"] == self.model[ch].n_samples, out
+        assert out["reference"] == ("restored_snapshot" if set_reference else "kept"), out
+        assert out["service_state"] == self.model[ch].service, out  # a rollback keeps it
+        self.seen_version(ch, out["version"], grew=True)
+
+    @rule(ch=channels, state=st.sampled_from(["in_service", "out_of_service"]))
+    def service(self, ch: str, state: str) -> None:
+        before = store_fingerprint(self.client)
+        r = self.call("POST", f"/v1/channels/{ch}/service", {"state": state, "note": "stateful"})
+        if state == self.model[ch].service:
+            assert_error(r, 409, "service_unchanged")
+            assert store_fingerprint(self.client) == before, "a refused service change changed the store"
+            return
+        out = self.ok(r, ChannelPublic)
+        assert out["service_state"] == state, out
+        self.model[ch].service = state
+        self.seen_version(ch, out["version"], grew=True)
+
+    @rule(ch=channels)
+    def acknowledge(self, ch: str) -> None:
+        drift = self.ok(self.call("GET", f"/v1/channels/{ch}"), ChannelPublic)["drift"]["state"]
+        before = store_fingerprint(self.client)
+        r = self.call("POST", f"/v1/channels/{ch}/acknowledge", {"note": "stateful"})
+        if drift == "ok":
+            assert_error(r, 409, "nothing_to_acknowledge")
+            assert store_fingerprint(self.client) == before, "a refused acknowledgement changed the store"
+            return
+        out = self.ok(r, ChannelPublic)
+        assert out["drift"]["state"] == "ok", out
         self.seen_version(ch, out["version"], grew=True)
 
     @rule(ch=channels, xs=st.lists(st.floats(-20.0, 120.0, allow_nan=False), min_size=1, max_size=5),
@@ -255,6 +290,7 @@ class ApiMachine(RuleBasedStateMachine):
         for ch, m in self.model.items():
             out = self.ok(self.call("GET", f"/v1/channels/{ch}"), ChannelPublic)
             assert out["n_samples"] == m.n_samples, (ch, out["n_samples"], m.n_samples)
+            assert out["service_state"] == m.service, (ch, out["service_state"], m.service)
             self.seen_version(ch, out["version"], grew=False)
 
     def teardown(self) -> None:

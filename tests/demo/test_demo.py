@@ -26,6 +26,8 @@ def test_the_demo_flags_the_faulty_probe_only_and_its_rollback_restores_the_snap
     # the ageing probe is caught by the curve check, not by the alarm; the rest are healthy
     assert result.out_of_tolerance == [scenario.AGEING]
     assert result.rollback_restores and result.rollback_snapshot is not None
+    # taken out of service until inspected, its alarm acknowledged
+    assert result.faulty_after == ("out_of_service", "ok")
     assert result.samples == 8 * 60 * 12
     text = "\n".join(lines)
     assert "Drift alarm: coldstore.produce.p2 on day 40" in text and result.key in text

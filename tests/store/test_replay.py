@@ -58,6 +58,72 @@ def test_replay_check_reproduces_the_stored_state(client: TestClient, history: s
     assert "bit for bit" in out and "replayed 340 samples and 3 state changes" in out
 
 
+@pytest.fixture
+def lifecycle(client: TestClient, admin: dict[str, str]) -> str:
+    """A channel through every lifecycle change: out of service and back (by a calibration
+    and by the route), an alarm acknowledged, settings changed, rollbacks with and without
+    set_reference. No calibration after the acknowledgement: its effect on the drift watch
+    lasts to the end, as does each rollback's on the reference."""
+    ch = "site-a.replay2"
+    base = f"/v1/channels/{ch}"
+    r = client.post("/v1/channels", json={"id": ch, "inputs": [{"name": "raw", "min": 0, "max": 100}],
+                                          "drift": {"tolerance": 0.1}, "snapshot_every": 50}, headers=admin)
+    assert r.status_code == 201
+
+    def call(path: str, body: dict[str, Any]) -> Any:
+        r = client.post(f"{base}/{path}", json=body, headers=admin)
+        assert r.status_code == 200, r.text
+        return r.json()
+
+    line = [{"x": float(x), "y": 1 + 0.02 * float(x) + e} for x, e in zip(np.linspace(0, 100, 20),
+                                                                          np.random.default_rng(9).normal(0, 0.05, 20),
+                                                                          strict=True)]
+    first = call("calibrate", {"points": line})
+    call("service", {"state": "out_of_service", "note": "repair"})
+    assert feed(client, admin, ch, 40, 0, offset=0.5, seed=1)["accepted"] == 0
+    call("calibrate", {"points": line[::2]})  # back in service by a calibration
+    assert feed(client, admin, ch, 60, 100, offset=0.5, seed=2)["drift"]["state"] == "alarm"
+    call("acknowledge", {"note": "door open"})
+    feed(client, admin, ch, 30, 200, seed=3)
+    assert client.patch(base, headers=admin, json={"drift": {"alarm": 20.0}}).status_code == 200
+    call("service", {"state": "out_of_service", "note": "again"})
+    feed(client, admin, ch, 20, 300, seed=4)  # the 150th sample: a periodic snapshot out of service
+    call("service", {"state": "in_service", "note": "back"})
+    snaps = client.get(f"{base}/snapshots", params={"limit": 1000}, headers=admin).json()["items"]
+    learned = next(s["id"] for s in snaps if s["reason"] == "periodic" and s["n_samples"] == 100)
+    # the effect of each rollback lasts to the end (no calibration comes after them): the first
+    # calibration's curve becomes the reference, then a curve that learnt the offset comes back
+    assert call("rollback", {"snapshot": first["snapshot_after"], "set_reference": True}
+                )["reference"] == "restored_snapshot"
+    feed(client, admin, ch, 30, 400, seed=5)
+    assert call("rollback", {"snapshot": learned})["reference"] == "kept"
+    # on the line: the alarm acknowledged above is not raised again (a replay without the
+    # acknowledgement would end in alarm)
+    assert feed(client, admin, ch, 30, 500, seed=6)["drift"]["state"] == "ok"
+    return ch
+
+
+def test_replay_check_reproduces_every_lifecycle_change(client: TestClient, admin: dict[str, str], lifecycle: str,
+                                                        database_url: str, capsys: pytest.CaptureFixture[str]
+                                                        ) -> None:
+    kinds = [e["kind"] for e in client.get(f"/v1/channels/{lifecycle}/events", params={"limit": 1000},
+                                           headers=admin).json()["items"]]
+    for kind in ("acknowledged", "service_changed", "rollback", "settings_changed", "calibration"):
+        assert kind in kinds
+    assert main(["replay", lifecycle, "--check", "--quiet", "--db", database_url]) == 0
+    out = capsys.readouterr().out
+    # 2 calibrations, 3 service changes, 1 acknowledgement, 1 settings change, 2 rollbacks
+    assert "bit for bit" in out and "replayed 210 samples and 9 state changes" in out
+    # from every snapshot of the channel's state at its version (periodic ones, those before a
+    # calibration or rollback, one taken out of service); an alarm's snapshot holds an earlier curve
+    snaps = client.get(f"/v1/channels/{lifecycle}/snapshots", params={"limit": 1000}, headers=admin).json()["items"]
+    assert {s["reason"] for s in snaps} == {"calibration", "before-calibrate", "periodic", "drift-alarm",
+                                           "before-rollback"}
+    for snap in (s for s in snaps if s["reason"] != "drift-alarm"):
+        assert main(["replay", lifecycle, "--from-snapshot", str(snap["id"]), "--check", "--quiet",
+                     "--db", database_url]) == 0, snap
+
+
 def test_replay_from_a_snapshot(client: TestClient, admin: dict[str, str], history: str, database_url: str) -> None:
     snaps = client.get(f"/v1/channels/{history}/snapshots", headers=admin).json()["items"]
     periodic = [s for s in snaps if s["reason"] == "periodic"]

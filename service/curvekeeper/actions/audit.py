@@ -37,7 +37,12 @@ def summary(e: Event, channel: str | None) -> str:
         case "snapshot":
             return f"took snapshot {d.get('snapshot')}{on} ({d.get('reason')})"
         case "rollback":
-            return f"rolled{on} back to snapshot {d.get('snapshot')}"
+            reference = ", its curve now the reference" if d.get("set_reference") else ""
+            return f"rolled{on} back to snapshot {d.get('snapshot')}{reference}"
+        case "acknowledged":
+            return f"acknowledged drift {d.get('drift_state')}{on}: {d.get('note')}"
+        case "service_changed":
+            return f"put{on} {str(d.get('to')).replace('_', ' ')}: {d.get('note')}"
         case "key_created":
             prefixes = f" limited to {', '.join(d['prefixes'])}" if d.get("prefixes") else ""
             return f"created {d.get('role')} key {d.get('id')}{prefixes}"

@@ -38,6 +38,7 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
         "residual_sd": s["residual_sd"],
         "drift": {**ch.config["drift"], **s["drift"]},
         "version": st.version,
+        "service_state": model.service,
         "last_sample_at": st.last_sample_at,
         "created_at": ch.created_at,
     })

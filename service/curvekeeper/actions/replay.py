@@ -2,7 +2,8 @@
 
 The log is the append-only samples plus the events that change a state without a
 sample: ``calibration`` (its points, and the history window it used), ``settings_changed``
-(the resulting config) and ``rollback`` (the restored snapshot). Each change has the
+(the resulting config), ``rollback`` (the restored snapshot, and whether its curve became
+the reference), ``acknowledged`` (a drift alarm cleared) and ``service_changed``. Each change has the
 channel version it produced, so the log is replayed in version order. Learning is
 deterministic and does not depend on how samples were split into requests, so a
 replay reproduces the stored state to the last bit.
@@ -23,9 +24,10 @@ from ..errors import InvalidRequest, SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Sample
 from .channels import load
+from .snapshots import roll_back
 from .unit import restore
 
-STATE_EVENTS = ("channel_created", "calibration", "settings_changed", "rollback")
+STATE_EVENTS = ("channel_created", "calibration", "settings_changed", "rollback", "acknowledged", "service_changed")
 BATCH = 5000
 
 
@@ -146,9 +148,14 @@ def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, de
         if snap is None:
             raise SnapshotNotFound(f"the log names snapshot {details['snapshot']}, which is missing")
         restored = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
-        restored.set_reference()
-        restored.reset_drift()
-        return restored
+        # a rollback logged before the choice existed made the restored curve the reference
+        return roll_back(model, restored, set_reference=details.get("set_reference", True))
+    if kind == "acknowledged":
+        model.acknowledge()
+        return model
+    if kind == "service_changed":
+        model.set_service(details["to"])
+        return model
     return model
 
 

@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel
+from ..core.config import MUTABLE
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
@@ -80,9 +81,22 @@ def get(unit: Unit, channel_id: str, snapshot_id: int, against: int | None = Non
     return out
 
 
-def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None) -> dict[str, Any]:
-    """Restore a snapshot's state; the current state is snapshotted first. The restored
-    curve becomes the reference for the tolerance check and the drift watch restarts."""
+def roll_back(current: ChannelModel, restored: ChannelModel, *, set_reference: bool) -> ChannelModel:
+    """``restored``'s curve and learner state under ``current``'s lifecycle (reference
+    curve, drift watch and alarm, service state, counts), and under the settings the
+    snapshot was taken under; with ``set_reference`` the restored curve becomes the
+    reference. The replay of a rollback event calls this too."""
+    settings = {**current.config, **{k: restored.config[k] for k in MUTABLE if k in restored.config}}
+    if settings != current.config:  # the watch fits the snapshot's detector, as a PATCH would leave it
+        current = current.with_settings(settings)
+    return current.take_curve(restored, set_reference=set_reference)
+
+
+def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, *,
+             set_reference: bool = False) -> dict[str, Any]:
+    """Restore a snapshot's curve and learner state; the current state is snapshotted
+    first. The reference curve, the drift watch (and any alarm) and the service state stay,
+    unless ``set_reference`` makes the restored curve the reference."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=True)
     snap = repo.get_snapshot(ch.pk, snapshot_id)
@@ -91,16 +105,17 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None) 
     before = repo.insert_snapshot(ch.pk, reason="before-rollback", label=f"before rollback to {snapshot_id}",
                                   config=ch.config, model_state=repo.model_state(ch.pk), version=st.version,
                                   n_samples=st.n_samples)
-    model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
-    model.set_reference()
-    model.reset_drift()
+    restored = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
+    model = roll_back(unit.read_model(st), restored, set_reference=set_reference)
     version = st.version + 1
     if model.config != ch.config:  # the settings it was taken under come back with it
         repo.save_config(ch, model.config)
     unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
-                         "details": {"snapshot": snapshot_id, "snapshot_before": before.pk}}])
+                         "details": {"snapshot": snapshot_id, "snapshot_before": before.pk,
+                                     "set_reference": set_reference}}])
     out = view(ch, st, model)
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id
+    out["reference"] = "restored_snapshot" if set_reference else "kept"
     return out

@@ -40,6 +40,8 @@ class DemoResult:
     alarm_day: float | None = None
     rollback_snapshot: int | None = None
     rollback_restores: bool = False
+    #: the faulty probe after the technician's steps: its service state and drift state
+    faulty_after: tuple[str, str] | None = None
     samples: int = 0
     seconds: float = 0.0
 
@@ -84,7 +86,7 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         say(f"\nThe technician's pages: {url}/ui/ (API documentation at {url}/docs).")
         say(f"Sign in with the admin key: {key}")
         say(f"Look at {scenario.FAULTY} (the alarm and the rollback) and {scenario.AGEING} (out of tolerance).")
-        # the alarmed probe was rolled back, so it is no longer in alarm: show its alarm event
+        # the alarm was acknowledged, so the probe is no longer in alarm: show its alarm event
         auth = f"curl -s -H 'Authorization: Bearer {key}'"
         say(f"Try: {auth} '{url}/v1/channels/{scenario.FAULTY}/events?kind=drift_alarm'")
         say(f"     {auth} '{url}/v1/channels?state=out_of_tolerance'")
@@ -159,7 +161,14 @@ def _tell_alarm(c: Client, cid: str, result: DemoResult, say: Callable[[str], No
     say(f"Rollback: {cid} back to snapshot {alarm_snap['id']}, taken when the alarm fired (the last curve "
         f"learned before the fault); the curve moves back by up to {change:.3f} degC, and its predictions "
         f"equal the snapshot's {'exactly' if result.rollback_restores else 'NOT exactly'}.")
-    say("  The probe itself needs a look: moisture in the housing shows as a sudden step like this one.")
+    note = "sudden step: moisture in the housing suspected; probe to be inspected"
+    c.request("POST", f"/v1/channels/{cid}/service", json={"state": "out_of_service", "note": note},
+              idempotent=False)
+    ch = c.request("POST", f"/v1/channels/{cid}/acknowledge", json={"note": "rolled back; " + note},
+                   idempotent=False)
+    result.faulty_after = (ch["service_state"], ch["drift"]["state"])
+    say("  The probe itself needs a look: moisture in the housing shows as a sudden step like this one. It is "
+        "out of service until then (its samples are stored, not learned), and the alarm is acknowledged.")
 
 
 def _interrupt(signum: int, frame: Any) -> None:

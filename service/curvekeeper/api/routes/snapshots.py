@@ -56,11 +56,11 @@ def get_snapshot(channel_id: ChannelPath, snapshot_id: SnapshotId, ctx: Ctx, who
     return SnapshotDetail.model_validate(out)
 
 
-@router.post("/rollback", summary="Restore a snapshot (the current state is snapshotted first)")
+@router.post("/rollback", summary="Restore a snapshot's curve (the current state is snapshotted first)")
 def rollback(channel_id: ChannelPath, body: RollbackIn, ctx: Ctx, who: Who) -> RollbackAnswer:
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=True) as unit:
-        out = snapshots.rollback(unit, channel_id, body.snapshot, who.key_id)
+        out = snapshots.rollback(unit, channel_id, body.snapshot, who.key_id, set_reference=body.set_reference)
     return RollbackAnswer.model_validate(out)
 
 

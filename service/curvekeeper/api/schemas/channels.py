@@ -59,6 +59,9 @@ class EwmaPublic(Ewma, DriftStatus):
     pass
 
 
+#: in service the channel learns from its samples; out of service it stores them only
+ServiceState = Literal["in_service", "out_of_service"]
+
 DriftPublic = Annotated[PageHinkleyPublic | CusumPublic | EwmaPublic, Field(discriminator="detector")]
 
 
@@ -71,6 +74,7 @@ class ChannelPublic(ChannelConfig):
     rmse: float | None = Field(description="running root mean square residual of learned samples, output units")
     residual_sd: float | None = Field(description="residual standard deviation in the fitted space")
     version: int = Field(description="counts every change of the channel's state")
+    service_state: ServiceState = Field(description="out_of_service: samples are stored, not learned nor watched")
     last_sample_at: datetime | None
     created_at: datetime
 

@@ -9,8 +9,8 @@ from pydantic import Field
 
 from .common import Answer, Page
 
-KIND = ("channel_created, settings_changed, calibration, snapshot, rollback, guard, drift_warning, "
-        "drift_alarm, drift_ok, key_created, key_revoked")
+KIND = ("channel_created, settings_changed, calibration, snapshot, rollback, acknowledged, service_changed, "
+        "guard, drift_warning, drift_alarm, drift_ok, ok, out_of_tolerance, key_created, key_revoked")
 
 
 class EventPublic(Answer):

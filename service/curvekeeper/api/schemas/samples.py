@@ -46,7 +46,9 @@ class GatewayIn(BaseModel):
     samples: list[GatewaySampleItem] = Field(min_length=1)
 
 
-REASON = "why the sample was stored but not learned: outlier (beyond outlier_sd) or guard (a step refused)"
+REASON = ("why the sample was stored but not learned: outlier (beyond outlier_sd), guard (a step refused), "
+          "out_of_range (far outside the declared input range), not_finite (a value the curve cannot take) "
+          "or out_of_service (the channel is out of service)")
 
 
 class DriftBrief(Answer):

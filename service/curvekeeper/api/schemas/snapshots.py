@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -22,9 +23,13 @@ class SnapshotIn(BaseModel):
 
 
 class RollbackIn(BaseModel):
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{"snapshot": 12}]})
+    model_config = ConfigDict(extra="forbid", json_schema_extra={
+        "examples": [{"snapshot": 12}, {"snapshot": 12, "set_reference": True}]})
 
     snapshot: SnapshotId
+    set_reference: bool = Field(False, strict=True, description=(
+        "make the restored curve the reference for the tolerance check and the drift watch; "
+        "false: the reference in force (the last calibration's curve) stays"))
 
 
 class SnapshotPublic(Answer):
@@ -79,3 +84,5 @@ class RollbackAnswer(ChannelPublic):
 
     snapshot_before: int = Field(description="snapshot of the state the rollback replaced")
     restored_snapshot: int
+    reference: Literal["kept", "restored_snapshot"] = Field(
+        description="the reference curve in force: the one before the rollback (kept) or the restored curve")
