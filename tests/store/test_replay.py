@@ -122,6 +122,12 @@ def test_replay_check_reproduces_every_lifecycle_change(client: TestClient, admi
     for snap in (s for s in snaps if s["reason"] != "drift-alarm"):
         assert main(["replay", lifecycle, "--from-snapshot", str(snap["id"]), "--check", "--quiet",
                      "--db", database_url]) == 0, snap
+    # the alarm's snapshot is refused as a starting point, with the reason
+    alarm = next(s for s in snaps if s["reason"] == "drift-alarm")
+    capsys.readouterr()
+    assert main(["replay", lifecycle, "--from-snapshot", str(alarm["id"]), "--check", "--quiet",
+                 "--db", database_url]) != 0
+    assert "before the estimated change point" in capsys.readouterr().err
 
 
 def test_replay_from_a_snapshot(client: TestClient, admin: dict[str, str], history: str, database_url: str) -> None:

@@ -69,6 +69,10 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
         snap = repo.get_snapshot(ch.pk, from_snapshot)
         if snap is None:
             raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {from_snapshot}")
+        if snap.reason == "drift-alarm":
+            raise InvalidRequest(f"snapshot {from_snapshot} was taken at a drift alarm and holds the curve from "
+                                 "before the estimated change point, not the state at its version: replay from "
+                                 "another snapshot (or from the start)", details={"field": "from_snapshot"})
         model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
         version, seq = snap.version, snap.n_samples
     else:
