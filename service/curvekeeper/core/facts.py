@@ -101,14 +101,16 @@ class ModelFacts:
 
     @property
     def warmed_up(self) -> bool:
-        """The outlier gate works: the residual s.d. rests on ``WARMUP`` degrees of freedom."""
-        return self.residual_sd_dof()[1] >= WARMUP
+        """The outlier gate works: ``WARMUP`` samples learnt since the start or the last
+        calibration."""
+        return bool(self.s.st[ST_RN] >= WARMUP)
 
     @property
     def calibrated(self) -> bool:
-        """The channel has a curve: a calibration, or a learnt sample (an RLS learner: its
-        first solution)."""
-        return self.s.w_ref is not None or (self.s.st[ST_ACC] > 0 and self.s.info_b is None)
+        """The channel has a curve: a calibration, or a learnt sample (an RLS learner from
+        scratch: its first solution; one switched from SGD keeps the curve it had)."""
+        s = self.s
+        return s.w_ref is not None or (s.st[ST_ACC] > 0 and (s.info_b is None or bool(np.any(s.w != 0.0))))
 
     @property
     def service(self) -> str:

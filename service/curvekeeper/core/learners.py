@@ -11,8 +11,9 @@ For each sample i (phi = Phi[i], transformed reference z = z[i]):
    takes the reference residual e = z - w_ref . phi, standardised by the pooled
    scale of ``residuals.py``, from the first sample on, so a change the learner
    absorbs still shows; without one, it takes r / s after the warm-up;
-4. outlier gate: |r| > outlier_sd * s once s rests on ``WARMUP`` degrees of freedom
-   (the fit's and the samples') -> stored, not learned;
+4. outlier gate: |r| > outlier_sd * s after ``WARMUP`` samples learnt since the start
+   or the last calibration (a bench calibration's scatter is seldom that of the
+   installation, so s must have seen the installation first) -> stored, not learned;
 5. the step, ``sgd`` (LMS with a schedule, optional l2 pull toward the reference
    weights and Huber clipping of r at ``huber`` * s) or ``rls`` (``rls.py``:
    exact initialisation, forgetting with a bounded trace)::
@@ -191,7 +192,7 @@ def learn_batch(
         if math.isfinite(ro * ro):
             out_r[i] = ro
         s, dof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_RVAR], st[ST_RN], window)
-        warm = dof >= warmup and s > 0.0
+        warm = st[ST_RN] >= warmup and s > 0.0
         # the drift watch
         score = math.nan
         if has_ref:
