@@ -6,13 +6,13 @@ errors, ``curvekeeper.core.errors``, too).
     ├── Unauthorized      missing, unknown or revoked key
     ├── Forbidden         role or channel prefix not allowed
     ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
-    ├── Conflict          ChannelExists, ImmutableField
+    ├── Conflict          ChannelExists, ImmutableField, NotCalibrated
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
     │   └── InvalidConfig a merged channel configuration the declaration refuses
     ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
     ├── NotReady          still starting: the compiled kernels are not built (retry after ``retry_after`` s)
-    └── StoredStateDamaged a stored model state cannot be restored: the server's fault
+    └── StateDamaged      a stored model state cannot be restored: the server's fault
 """
 
 from __future__ import annotations
@@ -64,6 +64,13 @@ class ChannelExists(Conflict):
 
 class ImmutableField(Conflict):
     code = "immutable_field"
+
+
+class NotCalibrated(Conflict):
+    """The channel has no curve yet (no calibration, no learnt sample): nothing to predict
+    with until it is calibrated."""
+
+    code = "not_calibrated"
 
 
 class PayloadTooLarge(ServiceError):
@@ -119,11 +126,12 @@ class StoreBusy(ServiceError):
         self.retry_after = retry_after
 
 
-class StoredStateDamaged(ServiceError):
+class StateDamaged(ServiceError):
     """A channel's (or snapshot's) stored state cannot be restored: damaged or written by
-    an incompatible version. Nothing the client sent is wrong."""
+    an incompatible version. Nothing the client sent is wrong; the way out is a rollback
+    to a snapshot."""
 
-    code = "stored_state_damaged"
+    code = "state_damaged"
 
 
 class NotReady(ServiceError):
