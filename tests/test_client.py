@@ -262,6 +262,6 @@ def test_the_routes_through_the_app(app: TestClient) -> None:
         back = c.rollback("site-a.p2", snap["id"])
         assert back["restored_snapshot"] == snap["id"] and back["snapshot_before"] > snap["id"]
         now = c.predict("site-a.p2", [10.0, 50.0])
-        assert now["y"] == at_snap["y"] and now["k"] == 2.0
+        assert now["y"] == at_snap["y"] and now["k"] == at_snap["k"]
         assert c.get_channel("site-a.p2")["n_samples"] == 61
     assert rec.sleeps == [] and c.retries == 0

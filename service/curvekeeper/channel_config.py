@@ -322,6 +322,17 @@ class Reference(Strict):
                                                                                           "states with U")
 
 
+#: the settings of the expanded uncertainty and of the out-of-range hold (PATCH takes them too)
+Coverage = Annotated[Finite, Field(ge=0.5, le=0.9999)]
+CoverageFactor = Annotated[Positive, Field(le=10.0)]
+RangeMargin = Annotated[Finite, Field(ge=0.0, le=1e6)]
+COVERAGE = "coverage probability of the expanded uncertainty"
+COVERAGE_FACTOR = ("fixed k of the expanded uncertainty k u; null: k from Student's t at the effective degrees "
+                   "of freedom and coverage")
+REFERENCE = "the reference instrument's stated uncertainty; null: not counted"
+RANGE_MARGIN = "a sample whose input lies more than this many spans outside [min, max] is held as out of range"
+
+
 EXAMPLE: dict[str, Any] = {
     "id": "coldroom2.probe07", "description": "thermistor probe, rack 2",
     "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000, "resolution": 0.1}],
@@ -358,16 +369,10 @@ class ChannelSettings(Strict):
         6.0, description="residual s.d. beyond which a sample is stored but not learned; null: off")
     snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None = Field(
         1000, description="take a snapshot every N samples; null: off")
-    coverage: Annotated[Finite, Field(ge=0.5, le=0.9999)] = Field(
-        default=0.95, description="coverage probability of the expanded uncertainty")
-    coverage_factor: Annotated[Positive, Field(le=10.0)] | None = Field(
-        default=None, description="fixed k of the expanded uncertainty k u; null: k from Student's t at the "
-                                  "effective degrees of freedom and coverage")
-    reference: Reference | None = Field(default=None, description="the reference instrument's stated "
-                                                                  "uncertainty; null: not counted")
-    range_margin: Annotated[Finite, Field(ge=0.0, le=1e6)] = Field(
-        default=1.0, description="a sample whose input lies more than this many spans outside [min, max] "
-                                 "is held as out of range")
+    coverage: Coverage = Field(default=0.95, description=COVERAGE)
+    coverage_factor: CoverageFactor | None = Field(default=None, description=COVERAGE_FACTOR)
+    reference: Reference | None = Field(default=None, description=REFERENCE)
+    range_margin: RangeMargin = Field(default=1.0, description=RANGE_MARGIN)
 
     @model_validator(mode="wrap")
     @classmethod

@@ -6,13 +6,13 @@ errors, ``curvekeeper.core.errors``, too).
     ├── Unauthorized      missing, unknown or revoked key
     ├── Forbidden         role or channel prefix not allowed
     ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
-    ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged
+    ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged, NotCalibrated
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
     │   └── InvalidConfig a merged channel configuration the declaration refuses
     ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
     ├── NotReady          still starting: the compiled kernels are not built (retry after ``retry_after`` s)
-    └── StoredStateDamaged a stored model state cannot be restored: the server's fault
+    └── StateDamaged      a stored model state cannot be restored: the server's fault
 """
 
 from __future__ import annotations
@@ -74,6 +74,13 @@ class ServiceUnchanged(Conflict):
     code = "service_unchanged"
 
 
+class NotCalibrated(Conflict):
+    """The channel has no curve yet (no calibration, no learnt sample): nothing to predict
+    with until it is calibrated."""
+
+    code = "not_calibrated"
+
+
 class PayloadTooLarge(ServiceError):
     code = "payload_too_large"
 
@@ -127,11 +134,12 @@ class StoreBusy(ServiceError):
         self.retry_after = retry_after
 
 
-class StoredStateDamaged(ServiceError):
+class StateDamaged(ServiceError):
     """A channel's (or snapshot's) stored state cannot be restored: damaged or written by
-    an incompatible version. Nothing the client sent is wrong."""
+    an incompatible version. Nothing the client sent is wrong; the way out is a rollback
+    to a snapshot."""
 
-    code = "stored_state_damaged"
+    code = "state_damaged"
 
 
 class NotReady(ServiceError):

@@ -14,7 +14,7 @@ from curvekeeper.actions import channels, samples
 from curvekeeper.actions.unit import ModelCache, Work
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
-from curvekeeper.errors import StoredStateDamaged
+from curvekeeper.errors import StateDamaged
 from curvekeeper.store import Store
 from curvekeeper.store.tables import ChannelState
 from sqlalchemy import update
@@ -71,14 +71,17 @@ def test_a_rolled_back_unit_caches_nothing_and_runs_no_after_commit_step(work: W
     assert _pk_version(work) == (pk, v0), "the rolled-back learning was stored"
 
 
-def test_a_state_the_core_cannot_restore_is_stored_state_damaged(work: Work) -> None:
+def test_a_state_the_core_cannot_restore_is_state_damaged(work: Work) -> None:
     pk, _ = _pk_version(work)
     with work.unit(write=True) as unit:
         unit.repo.session.execute(update(ChannelState).where(ChannelState.channel_pk == pk)
                                   .values(model_state={"format": 999}, version=ChannelState.version + 1))
-    with pytest.raises(StoredStateDamaged) as err, work.unit(write=False) as unit:
+    with pytest.raises(StateDamaged) as err, work.unit(write=False) as unit:
         channels.get(unit, "u.c1")
-    assert err.value.code == "stored_state_damaged"
+    assert err.value.code == "state_damaged"
+    # the way out, named with the channel's id
+    assert "POST /v1/channels/u.c1/rollback" in err.value.message
+    assert work.models.get(pk, _pk_version(work)[1]) is None  # nothing cached
 
 
 def _model() -> ChannelModel:

@@ -9,6 +9,7 @@ then success. Every failed request must leave the store exactly as it was
 from __future__ import annotations
 
 import copy
+import math
 from datetime import datetime
 from typing import Any
 
@@ -19,6 +20,7 @@ from curvekeeper.channel_config import EXAMPLE, channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
+from scipy import stats
 from sqlalchemy import select
 
 from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
@@ -299,7 +301,7 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     assert r.status_code == 201, r.text
     ch = r.json()
     assert ch["id"] == "site-a.p1"
-    assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}]
+    assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0, "resolution": None}]
     # the contract's defaults when a field is left out
     assert ch["basis"]["kind"] == "poly" and ch["basis"]["degree"] == 1
     assert ch["learner"]["kind"] == "sgd"
@@ -310,7 +312,8 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     assert ch["outlier_sd"] == 6.0
     assert ch["snapshot_every"] == 1000
     assert ch["output"]["transform"] == "none"  # "default none"
-    assert ch["coverage_factor"] == 2.0  # "k (2 by default)"
+    assert ch["coverage_factor"] is None  # k from Student's t at the effective degrees of freedom
+    assert ch["coverage"] == 0.95 and ch["reference"] is None and ch["range_margin"] == 1.0
     # the summary of a new channel
     assert ch["n_samples"] == 0
     assert ch["n_rejected"] == 0
@@ -331,7 +334,8 @@ def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
     ch = r.json()
     assert ch["id"] == "coldroom2.probe07"
     assert ch["description"] == "thermistor probe, rack 2"
-    assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0}]
+    assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0, "resolution": 0.1}]
+    assert ch["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0}
     assert ch["output"] == {"name": "temperature", "unit": "degC", "transform": "reciprocal",
                             "offset": 273.15}
     assert ch["basis"] == {"kind": "log_poly", "powers": [0, 1, 3]}
@@ -514,14 +518,20 @@ def test_get_summarises_the_samples(client: TestClient, keys: Keys, make_channel
     assert ch["n_rejected"] == 1
     assert ch["version"] == 210
     assert datetime.fromisoformat(ch["last_sample_at"]) == datetime.fromisoformat("2026-12-01T10:30:00+00:00")
-    # rmse: the core's figure for the same stream, and (n <= 500, equal weights) the
-    # root mean square of the accepted samples' prior residuals
+    # rmse: the core's figure for the same stream, and by hand the running mean square of the
+    # accepted samples' prior residuals that forgets the start-up transient: the n-th sample's
+    # weight is min(1, max(4 / n, 1 / 500)) (the rule core/residuals.py states)
     direct = ChannelModel.from_config(channel_config({"id": "site-a.p1", **LINEAR}))
     stream = warm + [wild] + tail
     direct.learn([[s["x"]] for s in stream], [s["y"] for s in stream])
     assert ch["rmse"] == direct.summary()["rmse"]
-    accepted = np.array(a["residuals"] + [r for i, r in enumerate(b["residuals"]) if i != 0])
-    assert ch["rmse"] == pytest.approx(float(np.sqrt(np.mean(accepted**2))), rel=1e-9)
+    accepted = a["residuals"] + [r for i, r in enumerate(b["residuals"]) if i != 0]
+    ms = 0.0
+    for n, r in enumerate(accepted, start=1):
+        ms += min(1.0, max(4.0 / n, 1.0 / 500)) * (r * r - ms)
+    assert ch["rmse"] == pytest.approx(math.sqrt(ms), rel=1e-9)
+    # not the plain root mean square, which the early residuals of the zero curve dominate
+    assert ch["rmse"] < 0.5 * float(np.sqrt(np.mean(np.square(accepted))))
     assert ch["drift"]["state"] == direct.summary()["drift"]["state"]
     assert ch["drift"]["statistic"] == direct.summary()["drift"]["statistic"]
 
@@ -556,6 +566,8 @@ IMMUTABLE_CHANGES = [
     ("same basis", {"basis": {"kind": "poly", "degree": 1}}),
     ("inputs", {"inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 200}]}),
     ("output", {"output": {"name": "pressure", "unit": "Pa"}}),
+    ("inputs resolution", {"inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100, "resolution": 0.01}]}),
+    ("inputs null", {"inputs": None}),
     ("basis with a tolerance", {"basis": {"kind": "poly", "degree": 2}, "drift": {"tolerance": 0.5}}),
 ]
 
@@ -590,7 +602,14 @@ BAD_CHANGES: list[tuple[str, dict[str, Any], str]] = [
     ("outlier_sd text", {"outlier_sd": "six"}, "outlier_sd"),
     ("snapshot_every 0", {"snapshot_every": 0}, "snapshot_every"),
     ("snapshot_every 2.5", {"snapshot_every": 2.5}, "snapshot_every"),
-    ("coverage_factor null", {"coverage_factor": None}, "coverage_factor"),
+    ("coverage_factor 0", {"coverage_factor": 0}, "coverage_factor"),
+    ("coverage null", {"coverage": None}, "coverage"),
+    ("coverage 1", {"coverage": 1.0}, "coverage"),
+    ("range_margin null", {"range_margin": None}, "range_margin"),
+    ("range_margin -1", {"range_margin": -1}, "range_margin"),
+    ("reference without U", {"reference": {"coverage_factor": 2.0}}, "reference.expanded_uncertainty"),
+    ("reference k 0", {"reference": {"expanded_uncertainty": 0.1, "coverage_factor": 0}},
+     "reference.coverage_factor"),
     ("extra field", {"colour": "blue"}, "colour"),
     ("id", {"id": "site-a.p2"}, "id"),
 ]
@@ -652,7 +671,9 @@ def test_patch_changes_tolerance_and_learner(client: TestClient, keys: Keys, mak
     assert ch["n_samples"] == 40
     assert ch["drift"]["tolerance"] == 0.5
     assert ch["drift"]["detector"] == "cusum" and ch["drift"]["k"] == 0.7  # the rest of drift is kept
-    assert ch["learner"] == {"kind": "rls", "forgetting": 0.99, "initial_covariance": 1000.0}
+    # null: exact initialisation from the first samples (the default)
+    assert ch["learner"] == {"kind": "rls", "forgetting": 0.99, "initial_covariance": None,
+                             "covariance_bound": 10.0}
     for same in ("inputs", "output", "basis", "outlier_sd", "snapshot_every", "description"):
         assert ch[same] == old[same]
     assert client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json() == ch
@@ -676,9 +697,66 @@ def test_patch_changes_tolerance_and_learner(client: TestClient, keys: Keys, mak
     second = in_control(20, seed=22)
     out = post_samples(client, "site-a.p1", second, keys["device"])
     res = direct.learn([[s["x"]] for s in second], [s["y"] for s in second])
-    assert out["residuals"] == res.residuals.tolist()
+    # null where the residual is unknown (the rls learner's exact start)
+    assert out["residuals"] == [None if math.isnan(r) else r for r in res.residuals.tolist()]
     assert out["version"] == 61 and out["n_samples"] == 60
     assert stored_state(client, "site-a.p1") == direct.to_state()
+
+
+BENCH = {"points": [{"x": x, "y": 3.0 + 0.5 * x + e} for x, e in
+                   zip([0.0, 20.0, 40.0, 60.0, 80.0, 100.0], [0.02, -0.05, 0.03, 0.04, -0.01, -0.06], strict=True)]}
+
+
+def test_patch_changes_the_uncertainty_settings_and_null_restores_students_t(client: TestClient, keys: Keys,
+                                                                             make_channel: Any) -> None:
+    """coverage_factor, coverage and reference reach the predictions; null (not a left-out
+    field) puts k back to Student's t; range_margin reaches the out-of-range hold."""
+    make_channel("site-a.p1")
+    tech, url = keys["technician"], f"{CHANNELS}/site-a.p1"
+    assert client.post(f"{url}/calibrate", json=BENCH, headers=tech).status_code == 200
+
+    def predicted() -> dict[str, Any]:
+        r = client.post(f"{url}/predict", json={"x": [50.0]}, headers=keys["device"])
+        assert r.status_code == 200, r.text
+        out: dict[str, Any] = r.json()
+        return out
+
+    t = predicted()
+    dof = math.floor(t["dof"][0])  # GUM G.4.1: truncated to an integer
+    assert t["k"] == [pytest.approx(float(stats.t.ppf(0.975, dof)), rel=1e-12)]  # Student's t, scipy
+
+    def patch(change: dict[str, Any]) -> dict[str, Any]:
+        r = client.patch(url, json=change, headers=tech)
+        assert r.status_code == 200, r.text
+        out: dict[str, Any] = r.json()
+        return out
+
+    ch = patch({"coverage_factor": 3.0})
+    assert ch["coverage_factor"] == 3.0 and ch["coverage"] == 0.95
+    fixed = predicted()
+    assert fixed["k"] == [3.0] and fixed["U"] == [3.0 * fixed["u"][0]]
+    # left out: kept
+    assert patch({"description": "bench"})["coverage_factor"] == 3.0
+    assert predicted()["k"] == [3.0]
+    # null: Student's t again, now at 99 % coverage
+    ch = patch({"coverage_factor": None, "coverage": 0.99})
+    assert ch["coverage_factor"] is None and ch["coverage"] == 0.99
+    assert predicted()["k"] == [pytest.approx(float(stats.t.ppf(0.995, dof)), rel=1e-12)]
+    # a reference instrument of U = 0.2, k = 2: u^2 gains (0.2 / 2)^2 (GUM 4.3.3 and eq. 10)
+    ch = patch({"reference": {"expanded_uncertainty": 0.2}})
+    assert ch["reference"] == {"expanded_uncertainty": 0.2, "coverage_factor": 2.0}
+    with_ref = predicted()
+    assert with_ref["u"][0] == pytest.approx(float(np.hypot(t["u"][0], 0.1)), rel=1e-12)
+    assert patch({"reference": None})["reference"] is None
+    assert predicted()["u"] == t["u"]
+    # range_margin 0: a sample just past max is held as out of range (with 1, the default, it is learned)
+    patch({"range_margin": 0.0})
+    out = post_samples(client, "site-a.p1", [{"x": 100.5, "y": 53.25}], keys["device"])
+    assert out["rejected"] == [{"index": 0, "reason": "out_of_range"}]
+    patch({"range_margin": 1.0})
+    assert post_samples(client, "site-a.p1", [{"x": 100.5, "y": 53.25}], keys["device"])["rejected"] == []
+    events = client.get(f"{url}/events?kind=settings_changed", headers=tech).json()["items"]
+    assert {"coverage_factor": None, "coverage": 0.99} in [e["details"]["changes"] for e in events]
 
 
 def test_patch_a_schedule_keeps_the_other_learner_settings(client: TestClient, keys: Keys,

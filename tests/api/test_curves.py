@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
+from scipy import stats
 
 from tests.api.helpers import Headers, expect_error
 from tests.conftest import store_fingerprint
@@ -235,6 +236,8 @@ def test_predict_refuses_inputs_the_basis_cannot_take(
     client: TestClient, keys: Keys, make_channel: Any
 ) -> None:
     make_channel("site-a.th", **THERMISTOR)
+    calibrate(client, keys["technician"], [1500.0, 6000.0, 15000.0, 38000.0], [60.0, 30.0, 10.0, -10.0],
+              url="/v1/channels/site-a.th/calibrate")
     for x in ([0.0], [5000.0, -1.0]):  # ln x needs x > 0
         err = expect_error(
             client,
@@ -281,16 +284,27 @@ def test_predict_unknown_snapshot_is_404(client: TestClient, keys: Keys, make_ch
         )
 
 
-def test_predict_on_a_fresh_channel(
+def test_predict_on_a_fresh_channel_is_409_not_calibrated(
     client: TestClient, keys: Keys, channel: dict[str, Any]
 ) -> None:
     for who in ("device", "technician", "admin"):
-        out = predict(client, keys[who], [0.0, 50.0])
-        assert out["y"] == [0.0, 0.0]
-        assert out["u"] == [None, None]  # no residual estimate yet
-        assert out["k"] == 2.0
-        assert out["out_of_range"] == [False, False]
-        assert out["version"] == 0
+        err = expect_error(
+            client, "POST", PREDICT, 409, "not_calibrated", json={"x": [0.0, 50.0]}, headers=keys[who]
+        )
+        assert "calibrat" in err["message"] and CH in err["message"]
+
+
+def assert_expanded(out: dict[str, Any], coverage: float = 0.95, fixed: float | None = None) -> None:
+    """U = k u per value; k Student's t (scipy.stats.t.ppf) at the coverage and the answered
+    degrees of freedom truncated to an integer (GUM G.3, G.4.1 note), or the fixed k."""
+    assert len(out["k"]) == len(out["u"]) == len(out["U"]) == len(out["dof"]) == len(out["y"])
+    for u, U, k, dof in zip(out["u"], out["U"], out["k"], out["dof"], strict=True):
+        if fixed is not None:
+            assert k == fixed
+        else:
+            nu = math.inf if dof is None else math.floor(dof)  # null: infinite
+            assert k == pytest.approx(float(stats.t.ppf(0.5 * (1.0 + coverage), nu)), rel=1e-12)
+        assert k * u == U
 
 
 def test_predict_after_calibration_matches_least_squares(
@@ -301,10 +315,17 @@ def test_predict_after_calibration_matches_least_squares(
     out = predict(client, keys["device"], X0)
     assert store_fingerprint(client) == before  # predicting stores nothing
     assert_close(out["y"], ref.y(X0))
+    assert out["reason"] == [None] * len(X0)
+    # the curve's and the scatter's parts together: u = s sqrt(1 + x0' (X'X)^-1 x0)
     assert_close(out["u"], ref.u(X0))
-    assert out["k"] == 2.0
+    assert None not in out["dof"]
+    assert_expanded(out)
     assert out["out_of_range"] == [False, False, False, False, False, True, True]
     assert out["version"] == bench["version"] == 1
+    assert out["unit"] == "kPa"
+    # 6 degrees of freedom from the bench: the outlier gate is still warming up
+    assert out["quality"] == {"calibrated": True, "drift": "ok", "tolerance": "ok", "service": "in_service",
+                              "warming_up": True, "stale": False}
     # a one-input channel also takes rows of one value
     assert predict(client, keys["device"], [[v] for v in X0])["y"] == out["y"]
 
@@ -313,7 +334,68 @@ def test_predict_states_the_channels_coverage_factor(
     client: TestClient, keys: Keys, make_channel: Any
 ) -> None:
     make_channel(CH, coverage_factor=3.0)
-    assert predict(client, keys["device"], [1.0])["k"] == 3.0
+    calibrate(client, keys["technician"], BENCH_X, BENCH_Y)
+    out = predict(client, keys["device"], X0)
+    assert out["k"] == [3.0] * len(X0)
+    assert_expanded(out, fixed=3.0)
+
+
+def test_predict_at_the_channels_coverage(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    make_channel(CH, coverage=0.99)
+    calibrate(client, keys["technician"], BENCH_X, BENCH_Y)
+    out = predict(client, keys["device"], X0)
+    assert_expanded(out, coverage=0.99)
+
+
+def test_predict_quality_after_a_drift_alarm(client: TestClient, keys: Keys, make_channel: Any) -> None:
+    """Calibrated on the bench, then 40 samples 2 kPa above the bench line (about 50 of the
+    bench's residual s.d.): the drift watch on the reference curve alarms, the learner follows
+    the offset out of the 0.5 kPa tolerance, and every prediction says so."""
+    make_channel(CH, drift={"tolerance": 0.5})
+    calibrate(client, keys["technician"], BENCH_X, BENCH_Y)
+    ok = predict(client, keys["device"], [50.0, 150.0])
+    assert ok["quality"]["drift"] == "ok" and ok["quality"]["tolerance"] == "ok"
+    xs, ys = stream(40, 5.0, 0.5, 7)  # 3 + 2 kPa
+    body = {"samples": [{"x": x, "y": y} for x, y in zip(xs, ys, strict=True)]}
+    r = client.post(f"/v1/channels/{CH}/samples", json=body, headers=keys["device"])
+    assert r.status_code == 200, r.text
+    out = predict(client, keys["device"], [50.0, 150.0])
+    ch = client.get(f"/v1/channels/{CH}", headers=keys["technician"]).json()
+    assert ch["drift"]["state"] == "alarm" and ch["drift"]["tolerance_state"] == "out_of_tolerance"
+    # 6 degrees of freedom from the bench and 40 learnt samples: past the 30 of the warm-up
+    assert out["quality"] == {"calibrated": True, "drift": "alarm", "tolerance": "out_of_tolerance",
+                              "service": "in_service", "warming_up": False, "stale": False}
+    # a value is still given, with the input past the declared range flagged
+    assert out["out_of_range"] == [False, True] and None not in out["y"]
+    assert out["reason"] == [None, None]
+    assert_expanded(out)
+
+
+RECIPROCAL = {
+    "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],
+    "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal", "offset": 273.15},
+    "basis": {"kind": "poly", "degree": 1},
+}
+
+
+def test_predict_withholds_a_value_outside_the_reciprocal_transforms_domain(
+    client: TestClient, keys: Keys, make_channel: Any
+) -> None:
+    """1 / (y + 273.15) = a + b x: past the input where the line reaches zero there is no
+    temperature (y + 273.15 would be infinite, then negative: below absolute zero)."""
+    make_channel("site-a.rc", **RECIPROCAL)
+    xs, ts = [0.0, 30.0, 60.0, 100.0], [100.0, 231.0, 420.0, 1000.0]
+    calibrate(client, keys["technician"], xs, ts, url="/v1/channels/site-a.rc/calibrate")
+    z = np.polyfit(xs, 1.0 / (np.asarray(ts) + 273.15), 1)  # numpy's line through the fitted space
+    root = -z[1] / z[0]
+    at = [50.0, root + 1.0, 200.0]
+    assert 100.0 < root < 200.0 and np.polyval(z, at[1]) < 0.0 and np.polyval(z, at[2]) < 0.0
+    out = predict(client, keys["device"], at, url="/v1/channels/site-a.rc/predict")
+    assert out["y"][0] == pytest.approx(1.0 / np.polyval(z, 50.0) - 273.15, rel=1e-9)
+    assert out["y"][1:] == [None, None]
+    assert out["reason"] == [None, "outside_domain", "outside_domain"]
+    assert out["u"][1:] == [None, None] and out["U"][1:] == [None, None] and out["k"][1:] == [None, None]
+    assert out["u"][0] is not None and out["out_of_range"] == [False, True, True]
 
 
 def test_predict_with_a_snapshot_uses_that_snapshots_curve(
@@ -336,8 +418,10 @@ def test_predict_with_a_snapshot_uses_that_snapshots_curve(
     # the same state as the second calibration's "before" snapshot, bit for bit
     assert predict(client, keys["device"], X0, snapshot=second["snapshot_before"])["y"] == old["y"]
 
-    fresh = predict(client, keys["device"], X0, snapshot=bench["snapshot_before"])
-    assert fresh["y"] == [0.0] * len(X0) and fresh["version"] == 0
+    # the snapshot before the first calibration has no curve: not calibrated, though the channel is
+    err = expect_error(client, "POST", PREDICT, 409, "not_calibrated", headers=keys["device"],
+                       json={"x": X0, "snapshot": bench["snapshot_before"]})
+    assert f"snapshot {bench['snapshot_before']}" in err["message"]
 
 
 # GET /v1/channels/{id}/curve ---------------------------------------------------------
@@ -393,8 +477,9 @@ def test_curve_of_a_fresh_channel(client: TestClient, keys: Keys, channel: dict[
     out = r.json()
     assert [p["x"] for p in out["points"]] == [0.0, 100.0]
     assert [p["y"] for p in out["points"]] == [0.0, 0.0]
-    assert [p["u"] for p in out["points"]] == [None, None]
-    assert [p["lower"] for p in out["points"]] == [None, None]
+    for key in ("u", "U", "k", "lower", "upper"):
+        assert [p[key] for p in out["points"]] == [None, None], key
+    assert out["quality"]["calibrated"] is False
     assert out["weights"] == [0.0, 0.0] and out["poly_coefficients"] == [0.0, 0.0]
     assert out["basis"]["kind"] == "poly" and out["n_samples"] == 0 and out["version"] == 0
     assert out["rmse"] is None and out["drift"]["state"] == "ok"
@@ -413,10 +498,13 @@ def test_curve_after_calibration(client: TestClient, keys: Keys, bench: dict[str
     assert xs == pytest.approx(grid, abs=1e-12)
     assert_close(ys, ref.y(grid))
     assert_close(us, ref.u(grid))
-    assert out["k"] == 2.0
+    same = predict(client, keys["technician"], grid)
+    assert [p["U"] for p in out["points"]] == same["U"] and [p["k"] for p in out["points"]] == same["k"]
+    assert_expanded(same)
     for p in out["points"]:
-        assert p["lower"] == p["y"] - out["k"] * p["u"]
-        assert p["upper"] == p["y"] + out["k"] * p["u"]
+        assert p["lower"] == p["y"] - p["U"]
+        assert p["upper"] == p["y"] + p["U"]
+    assert out["quality"] == same["quality"]
     assert out["weights"] == bench["weights"]
     assert out["poly_coefficients"] == bench["poly_coefficients"]
     assert_close(out["poly_coefficients"], ref.coef)

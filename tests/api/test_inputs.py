@@ -216,6 +216,8 @@ def test_channel_ids_of_dots_only_are_422(client: TestClient, keys: Keys) -> Non
 # 7. strict integers -----------------------------------------------------------------------
 
 def test_ids_and_counts_must_be_json_integers(client: TestClient, keys: Keys, channel: dict[str, Any]) -> None:
+    bench = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 26.0}, {"x": 100.0, "y": 51.2}]}
+    ok(client.post(CALIBRATE, json=bench, headers=keys["technician"]))  # a curve to predict with
     snap = ok(client.post(SNAPSHOTS, json={}, headers=keys["technician"]), 201)["id"]
     cases = Cases()
     for loose in [f'"{snap}"', "true", f"{snap}.0", f"{snap}.5"]:

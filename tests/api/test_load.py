@@ -105,6 +105,8 @@ def test_a_long_list_validated_in_slices_is_the_same_list(client: TestClient, ke
     n = 3 * bodies.VALIDATE_SLICE + 7
     xs = [float(i) for i in range(n)]
     url = "/v1/channels/site-a.p1/predict"
+    bench = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 26.0}, {"x": 100.0, "y": 51.2}]}
+    assert client.post("/v1/channels/site-a.p1/calibrate", json=bench, headers=keys["technician"]).status_code == 200
     r = client.post(url, json={"x": xs}, headers=keys["device"])
     assert r.status_code == 200 and r.json()["y"] == client.post(url, json={"x": [[v] for v in xs]},
                                                                   headers=keys["device"]).json()["y"]

@@ -632,8 +632,9 @@ def test_post_a_drift_alarm_writes_events_and_a_snapshot(client: TestClient, key
     assert alarms[0]["version"] == 200 + k + 1
     snaps = stored_snapshots(client, channel)
     assert [(r, v, n) for r, v, n, _ in snaps] == [("drift-alarm", 200 + k, 200 + k)]
-    direct.learn(*xy(shifted[:k]))  # the state just before the alarm
-    assert snaps[0][3] == direct.to_state()
+    # the state just before the alarm, with the curve from the estimated change point: the
+    # core's ``before_alarm`` for the same stream
+    assert snaps[0][3] == res.before_alarm and snaps[0][3]["n_samples"] == 200 + k
     listed = client.get(f"{CHANNELS}/{channel}/snapshots", headers=keys["technician"]).json()["items"]
     assert [(x["reason"], x["n_samples"]) for x in listed] == [("drift-alarm", 200 + k)]
     snap_events = [e for e in events(client, channel, keys["technician"], "snapshot")
@@ -654,10 +655,11 @@ def test_post_a_drift_alarm_and_a_periodic_snapshot_in_one_request(client: TestC
     post(client, "site-a.p1", {"samples": shifted}, keys["device"])
     direct = direct_model("site-a.p1", {**LINEAR, "snapshot_every": 210})
     direct.learn(*xy(warm))
-    k = ChannelModel.from_state(direct.config, direct.to_state()).learn(*xy(shifted)).drift_state.index("alarm")
+    probe = ChannelModel.from_state(direct.config, direct.to_state()).learn(*xy(shifted))
+    k = probe.drift_state.index("alarm")
     assert k < 10
+    at_alarm = probe.before_alarm  # the state before the alarm with the change point's curve
     direct.learn(*xy(shifted[:k]))
-    at_alarm = direct.to_state()
     direct.learn(*xy(shifted[k:10]))
     at_210 = direct.to_state()
     direct.learn(*xy(shifted[10:]))
@@ -666,6 +668,47 @@ def test_post_a_drift_alarm_and_a_periodic_snapshot_in_one_request(client: TestC
     assert snaps[0][3] == at_alarm
     assert snaps[1][3] == at_210
     assert stored_state(client, "site-a.p1") == direct.to_state()
+
+
+DEGREE_12 = {**LINEAR, "basis": {"kind": "poly", "degree": 12}}
+
+
+def test_a_meters_overload_code_is_stored_out_of_range_and_learning_goes_on(
+        client: TestClient, keys: Keys, settings: Settings) -> None:
+    """9.9e37, the overload code SCPI instruments send for a reading past their range (from
+    memory), raised to the 12th power overflows a double (numpy: inf):
+    the sample is stored and held back as out_of_range, never learned, and the channel learns,
+    answers and restarts as before."""
+    with np.errstate(over="ignore"):
+        assert math.isinf(np.float64(9.9e37) ** 12)  # what learning it would meet
+    create(client, keys["admin"], "site-a.p12", DEGREE_12)
+    url = f"{CHANNELS}/site-a.p12/samples"
+    before, wild, after = in_control(40, seed=81), {"x": 9.9e37, "y": 5.0}, in_control(20, seed=82)
+    post(client, "site-a.p12", {"samples": before}, keys["device"])
+    out = post(client, "site-a.p12", {"samples": [wild, *after[:1]]}, keys["device"])
+    assert out["rejected"] == [{"index": 0, "reason": "out_of_range"}]
+    assert out["accepted"] == 1 and out["residuals"][0] is None
+    later = post(client, "site-a.p12", {"samples": after[1:]}, keys["device"])
+    assert later["accepted"] == len(after) - 1 and later["n_samples"] == 61
+    # learnt as if the wild sample had not been there (the core, fed the others alone)
+    direct = direct_model("site-a.p12", DEGREE_12)
+    direct.learn(*xy(before + after))
+    assert stored_state(client, "site-a.p12")["weights"] == direct.to_state()["weights"]
+    # stored with its reason, in the JSON and the CSV export
+    rows = client.get(url, params={"limit": 1000}, headers=keys["technician"]).json()["items"]
+    assert [(r["x"], r["accepted"], r["reason"]) for r in rows if not r["accepted"]] == [
+        ([9.9e37], False, "out_of_range")]
+    text = client.get(url, params={"format": "csv", "limit": 1000}, headers=keys["technician"]).text
+    held = [r for r in csv.DictReader(io.StringIO(text)) if r["accepted"] == "false"]
+    assert [(float(r["x"]), r["reason"]) for r in held] == [(9.9e37, "out_of_range")]
+    got = client.get(f"{CHANNELS}/site-a.p12", headers=keys["technician"])
+    assert got.status_code == 200 and got.json()["n_rejected"] == 1 and got.json()["n_samples"] == 61
+    # a fresh process on the same store decodes the stored state
+    with TestClient(create_app(settings)) as fresh:
+        again = fresh.get(f"{CHANNELS}/site-a.p12", headers=keys["technician"])
+        assert again.status_code == 200, again.text
+        assert again.json() == got.json()
+        assert post(fresh, "site-a.p12", {"samples": in_control(3, seed=83)}, keys["device"])["accepted"] == 3
 
 
 def test_post_a_failed_request_leaves_learning_untouched(client: TestClient, keys: Keys, channel: str) -> None:

@@ -174,7 +174,7 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     assert main(["curve", cid, "--points", "3"]) == 0
     out = capsys.readouterr().out
     lines = out.splitlines()
-    assert lines[0].split() == ["raw", "[mV]", "y", "[degC]", "u", "[degC]"]
+    assert lines[0].split() == ["raw", "[mV]", "y", "[degC]", "u", "[degC]", "U", "[degC]", "k"]
     assert [float(v) for v in lines[2].split()[:2]] == pytest.approx([50.0, 26.5])
     assert "power series" in out
     table = lines[lines.index(next(ln for ln in lines if ln.startswith("coefficients"))) + 2:]
@@ -318,7 +318,7 @@ def test_load_refuses_bad_rows_and_reports_the_service_message(api: Client, tmp_
     bad_x = write_csv(tmp_path / "x.csv", ["x", "y"], [[1, 2], ["nan", 3]])
     assert main(["samples", "load", cid, str(bad_x)]) == 2
     assert "line 3: x is not a finite number" in capsys.readouterr().err
-    huge = write_csv(tmp_path / "huge.csv", ["x", "y"], [[1, 2], [1e20, 3]])
+    huge = write_csv(tmp_path / "huge.csv", ["x", "y"], [[1, 2], [1e40, 3]])  # past a reading's 1e38
     assert main(["samples", "load", cid, str(huge), "--batch", "1"]) == 1
     err = capsys.readouterr().err
     assert "stopped after 1 of 2 rows" in err and "the service refused the request (422" in err

@@ -65,14 +65,18 @@ ANSWERED: dict[str, set[int]] = {}
 
 @pytest.fixture(scope="module", autouse=True)
 def running_app() -> Iterator[None]:
-    """Start the app (its store and keys) once, with a channel, samples, a snapshot and a
-    device key to find."""
+    """Start the app (its store and keys) once, with a channel, samples, a snapshot, a
+    calibration and a device key to find."""
     with TestClient(APP) as c:
         body: dict[str, Any] = {"id": "site-a.p1", "inputs": [{"name": "raw", "min": 0, "max": 100}]}
         assert c.post("/v1/channels", json=body, headers=AUTH).status_code == 201
         c.post("/v1/channels/site-a.p1/samples", headers=AUTH,
                json={"samples": [{"x": float(i), "y": 2.0 * i + 1} for i in range(50)]})
         assert c.post("/v1/channels/site-a.p1/snapshots", headers=AUTH, json={"label": "fuzz"}).json()["id"] == 1
+        # a calibration: a reference curve, so the channel stays calibrated whatever learner a
+        # fuzzed PATCH picks (predict answers 409 not_calibrated without a curve)
+        assert c.post("/v1/channels/site-a.p1/calibrate", headers=AUTH, json={"points": [
+            {"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 101.0}, {"x": 100.0, "y": 201.5}]}).status_code == 200
         KNOWN["kid"] = c.post("/v1/keys", headers=AUTH, json={"role": "device", "label": "fuzz"}).json()["id"]
         assert c.post("/v1/channels", json={**body, "id": ALARMED}, headers=AUTH).status_code == 201
         c.post(f"/v1/channels/{ALARMED}/calibrate", headers=AUTH,

@@ -10,13 +10,16 @@ from sqlalchemy.exc import IntegrityError
 from ..channel_config import ChannelConfig
 from ..core import ChannelModel, ConfigError
 from ..core.config import MUTABLE
-from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest
+from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest, StateDamaged
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
 from .paging import Page, decode_cursor, encode_cursor
 from .unit import Unit, summary_columns
 
-STATES = {"ok", "warning", "alarm", "out_of_tolerance"}
+#: the ``state`` filter of the list: the drift watch's states, the tolerance check's, and
+#: ``damaged`` (a stored state that cannot be restored)
+STATES = {"ok", "warning", "alarm", "out_of_tolerance", "damaged"}
+DAMAGED = "damaged"
 
 
 def load(repo: Repository, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState]:
@@ -76,16 +79,42 @@ def get(unit: Unit, channel_id: str) -> dict[str, Any]:
     return view(ch, st, unit.read_model(st))
 
 
+def damaged_item(ch: Channel, st: ChannelState, error: StateDamaged) -> dict[str, Any]:
+    """A list item for a channel whose stored state cannot be restored: what the channel and
+    state rows say, and the error its own routes answer with."""
+    return {"id": ch.id, "state": DAMAGED, "error": {"code": error.code, "message": error.message},
+            "n_samples": st.n_samples, "n_rejected": st.n_rejected, "version": st.version,
+            "last_sample_at": st.last_sample_at, "created_at": ch.created_at}
+
+
 def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | None,
           limit: int) -> Page:
+    """A page of channels by creation order. A channel whose stored state cannot be restored
+    is listed as ``damaged`` (only under the ``damaged`` filter, or none), so one damaged
+    channel never breaks the fleet's list. The filters on the drift and tolerance states
+    go to the store; ``damaged`` is known only by restoring each state (most are cached)."""
     repo = unit.repo
     if state is not None and state not in STATES:
         raise InvalidRequest(f"state must be one of {', '.join(sorted(STATES))}", details={"field": "state"})
     after = decode_cursor(cursor)
-    rows = repo.list_channels(prefix=prefix, state=state, after_pk=after, limit=limit + 1)
-    items = [view(ch, st, unit.read_model(st)) for ch, st in rows[:limit]]
-    nxt = encode_cursor(rows[limit - 1][0].pk) if len(rows) > limit else None
-    return Page(items, nxt)
+    items: list[dict[str, Any]] = []
+    while True:
+        rows = repo.list_channels(prefix=prefix, state=None if state == DAMAGED else state, after_pk=after,
+                                  limit=limit + 1)
+        for ch, st in rows:
+            if len(items) == limit and state is None:  # every row is listed: this one opens the next page
+                return Page(items, encode_cursor(after))
+            try:
+                item = view(ch, st, unit.read_model(st))
+            except StateDamaged as exc:
+                item = damaged_item(ch, st, exc)
+            if state is None or (item.get("state") == DAMAGED) == (state == DAMAGED):
+                if len(items) == limit:
+                    return Page(items, encode_cursor(after))
+                items.append(item)
+            after = ch.pk
+        if len(rows) <= limit:
+            return Page(items, None)
 
 
 def merge(config: dict[str, Any], changes: dict[str, Any]) -> dict[str, Any]:

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
-from ..errors import ChannelNotFound, InvalidRequest, PayloadTooLarge, SnapshotNotFound
+from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
 from .channels import load
 from .unit import Unit, item_cost, restore
 
@@ -51,17 +51,40 @@ def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
     raise InvalidRequest(f"x must be {shape}", details={"field": "x"})
 
 
-def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
-    model, version = _model_for(unit, channel_id, snapshot)
-    unit.spend(len(x) * item_cost(model) / 10)  # a prediction costs about a tenth of an update
-    X = _inputs(model, x)
+def quality(model: ChannelModel) -> dict[str, Any]:
+    """What a data user should know about every value the model gives: the core's quality
+    flags and ``stale`` (not yet watched: always false)."""
+    return {**model.quality(), "stale": False}
+
+
+def _values(model: ChannelModel, X: np.ndarray) -> dict[str, Any]:
+    """Per value: y (null where withheld), reason, u, U, k, dof (null: infinite, or u
+    unknown) and out_of_range, all JSON-ready lists; raises ``InvalidRequest`` for inputs
+    the curve cannot take."""
     try:
-        y, u = model.predict(X)
+        p = model.prediction(X)
     except InputError as exc:
         raise InvalidRequest(exc.message, details={"field": "x", **(exc.details or {})}) from exc
-    return {"y": _floats(y), "u": _floats(u), "k": model.config["coverage_factor"],
-            "out_of_range": model.out_of_range(X).tolist(), "version": version,
-            "unit": model.config["output"]["unit"]}
+    dof = p.dof.tolist()
+    if not np.isfinite(p.dof).all():  # inf: infinitely many degrees of freedom, JSON's null
+        dof = [v if math.isfinite(v) else None for v in dof]
+    return {"y": _floats(p.y), "reason": p.reason, "u": _floats(p.u), "U": _floats(p.U), "k": _floats(p.k),
+            "dof": dof, "out_of_range": p.out_of_range.tolist()}
+
+
+def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
+    """Calibrated values with their uncertainty from the channel's curve (or a snapshot's);
+    raises ``NotCalibrated`` while that model has no curve."""
+    model, version = _model_for(unit, channel_id, snapshot)
+    X = _inputs(model, x)  # a malformed request is refused before the channel's state is
+    if not model.calibrated:
+        what = f"snapshot {snapshot} of channel {channel_id!r}" if snapshot is not None else f"channel {channel_id!r}"
+        raise NotCalibrated(f"{what} has no calibration curve yet: calibrate it (POST /v1/channels/{channel_id}"
+                            "/calibrate) or let it learn from samples first", details={"snapshot": snapshot})
+    unit.spend(len(x) * item_cost(model) / 10)  # a prediction costs about a tenth of an update
+    out = _values(model, X)
+    out.update({"quality": quality(model), "version": version, "unit": model.config["output"]["unit"]})
+    return out
 
 
 def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
@@ -69,20 +92,20 @@ def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
     ch, st = load(repo, channel_id)
     model = unit.read_model(st)
     grid = model.scaler.grid(points)
-    y, u = model.predict(grid)
-    k = model.config["coverage_factor"]
+    v = _values(model, grid)
     single = grid.shape[1] == 1
     pts = []
-    for xi, yi, ui in zip(grid.tolist(), _floats(y), _floats(u), strict=True):
-        band = None if yi is None or ui is None else k * ui
-        pts.append({"x": xi[0] if single else xi, "y": yi, "u": ui,
-                    "lower": None if band is None else yi - band,
-                    "upper": None if band is None else yi + band})
+    for i, xi in enumerate(grid.tolist()):
+        yi, Ui = v["y"][i], v["U"][i]
+        pts.append({"x": xi[0] if single else xi, "y": yi, "u": v["u"][i], "U": Ui, "k": v["k"][i],
+                    "lower": None if yi is None or Ui is None else yi - Ui,
+                    "upper": None if yi is None or Ui is None else yi + Ui})
     summary = model.summary()
     out: dict[str, Any] = {
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
-        "weights": model.weights.tolist(), "k": k, "points": pts,
-        "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "version": st.version,
+        "weights": model.weights.tolist(), "points": pts,
+        "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "quality": quality(model),
+        "version": st.version,
     }
     out.update(model.raw_coefficients())
     return out

@@ -18,7 +18,7 @@ from threading import Lock
 from typing import Any
 
 from ..core import ChannelModel, StateError
-from ..errors import StoredStateDamaged
+from ..errors import StateDamaged
 from ..store import Repository, Store
 from ..store.repository import LearningState
 from ..store.tables import ChannelState
@@ -69,12 +69,23 @@ def summary_columns(model: ChannelModel) -> dict[str, Any]:
 
 def restore(config: dict[str, Any], state: dict[str, Any], what: str) -> ChannelModel:
     """A model from stored config and state; a state the core refuses is the store's
-    fault (``StoredStateDamaged``), never the client's."""
+    fault (``StateDamaged``), never the client's."""
     try:
         return ChannelModel.from_state(config, state)
     except StateError as exc:
-        raise StoredStateDamaged(f"the stored state of {what} cannot be restored; it has been logged",
-                                 details={"reason": exc.message}) from exc
+        raise damaged(exc, what) from exc
+
+
+def damaged(exc: StateError, what: str, way_out: str | None = None) -> StateDamaged:
+    """The service's error for a state of ``what`` the core refused with ``exc``."""
+    message = f"the stored state of {what} cannot be restored; it has been logged"
+    return StateDamaged(f"{message}. {way_out}" if way_out else message, details={"reason": exc.message})
+
+
+def rollback_hint(channel_id: str) -> str:
+    """The way out of a channel whose stored state is damaged: a rollback to a snapshot."""
+    return (f"Roll the channel back to a snapshot: POST /v1/channels/{channel_id}/rollback with "
+            f'{{"snapshot": <id>}} (GET /v1/channels/{channel_id}/snapshots lists them)')
 
 
 class OverBudget(Exception):
@@ -114,7 +125,12 @@ class Unit:
         model = self.models.get(st.channel_pk, st.version)
         if model is None:
             config, state = self.repo.config_and_state(st.channel_pk)
-            model = restore(config, state, f"channel {st.channel_pk}")
+            try:
+                model = ChannelModel.from_state(config, state)
+            except StateError as exc:
+                # named by its id, looked up only now that it is needed
+                channel_id = self.repo.channel_id(st.channel_pk)
+                raise damaged(exc, f"channel {channel_id!r}", rollback_hint(channel_id)) from exc
             self.models.put(st.channel_pk, st.version, model)
         return model
 

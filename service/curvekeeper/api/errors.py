@@ -18,12 +18,13 @@ from ..errors import (
     Conflict,
     Forbidden,
     InvalidRequest,
+    NotCalibrated,
     NotFound,
     NotReady,
     PayloadTooLarge,
     ServiceError,
+    StateDamaged,
     StoreBusy,
-    StoredStateDamaged,
     Unauthorized,
     validation_details,
     validation_message,
@@ -37,10 +38,10 @@ HTTP_CODES = {404: "not_found", 405: "method_not_allowed", 413: "payload_too_lar
 
 
 #: the HTTP status of each domain error class (the first match in this order wins);
-#: anything else, StoredStateDamaged included, is the server's fault: 500
+#: anything else, StateDamaged included, is the server's fault: 500
 STATUS: tuple[tuple[type[ServiceError], int], ...] = (
-    (Unauthorized, 401), (Forbidden, 403), (NotFound, 404), (Conflict, 409), (PayloadTooLarge, 413),
-    (InvalidRequest, 422), (StoreBusy, 503), (NotReady, 503), (StoredStateDamaged, 500),
+    (Unauthorized, 401), (Forbidden, 403), (NotFound, 404), (NotCalibrated, 409), (Conflict, 409),
+    (PayloadTooLarge, 413), (InvalidRequest, 422), (StoreBusy, 503), (NotReady, 503), (StateDamaged, 500),
 )
 
 
@@ -86,7 +87,7 @@ def install(app: FastAPI) -> None:
         if isinstance(exc, StateError):
             # a state the core cannot restore came from the store, not from the client
             log.error("stored state cannot be restored: %s", exc.message)
-            return error_response(500, StoredStateDamaged.code, "a stored state cannot be restored; "
+            return error_response(500, StateDamaged.code, "a stored state cannot be restored; "
                                   "it has been logged", {"field": exc.field})
         return error_response(422, exc.code, exc.message, {"field": exc.field})
 

@@ -4,7 +4,9 @@ The service declares and checks it (``curvekeeper.channel_config``) and passes t
 result, every default filled in: ``inputs`` (each ``name``, ``unit``, ``min`` < ``max``),
 ``output`` (``transform``, ``offset``), ``basis`` (by ``kind``; rbf centres as points),
 ``learner`` (``sgd`` with a ``schedule``, or ``rls``), ``drift`` (``detector`` and its
-thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage_factor``.
+thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage``,
+``coverage_factor`` (null: k from Student's t), ``reference`` (the reference instrument's
+``expanded_uncertainty`` and ``coverage_factor``, or null), ``range_margin``.
 The core reads it and never changes it.
 """
 
@@ -15,5 +17,7 @@ from typing import Any
 #: a channel's configuration, validated (see the module docstring)
 Config = dict[str, Any]
 
-#: settings a channel may change after creation; the rest fix the curve's form
-MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage_factor"})
+#: settings a channel may change after creation; the rest (inputs with their resolution,
+#: output, basis) fix the curve's form
+MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage",
+                     "coverage_factor", "reference", "range_margin"})

@@ -102,6 +102,10 @@ class Repository:
     def get_channel(self, channel_id: str) -> Channel | None:
         return self.session.scalars(select(Channel).where(Channel.id == channel_id)).one_or_none()
 
+    def channel_id(self, channel_pk: int) -> str:
+        """The id of the channel with this key."""
+        return self.session.scalars(select(Channel.id).where(Channel.pk == channel_pk)).one()
+
     def channel_and_state(self, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState] | None:
         """The channel with its state row; ``lock`` takes the row lock for a write
         (SELECT ... FOR UPDATE on PostgreSQL; SQLite holds the write lock already)."""

@@ -107,13 +107,15 @@ def curve(client: Client, args: argparse.Namespace) -> int:
         _json(c)
         return 0
     inputs, unit = c["inputs"], _unit(c)
-    heads = [f"{i['name']} [{i.get('unit') or '-'}]" for i in inputs] + [f"y [{unit}]", f"u [{unit}]"]
+    heads = [f"{i['name']} [{i.get('unit') or '-'}]" for i in inputs] + [f"y [{unit}]", f"u [{unit}]",
+                                                                          f"U [{unit}]", "k"]
     rows = []
     for p in c["points"]:
         xs = p["x"] if isinstance(p["x"], list) else [p["x"]]
-        rows.append([_num(v) for v in xs] + [_num(p["y"]), _num(p["u"], 3)])
+        rows.append([_num(v) for v in xs] + [_num(p["y"]), _num(p["u"], 3), _num(p.get("U"), 3),
+                                             _num(p.get("k"), 3)])
     _table(heads, rows)
-    print(f"\nk = {_num(c.get('k'))}; {c.get('n_samples')} samples, rmse "
+    print(f"\nU = k u; {c.get('n_samples')} samples, rmse "
           f"{_num(c.get('rmse'), 4)} {unit}; drift {c.get('drift', {}).get('state')}; version {c.get('version')}")
     coef = _coefficients(c, c)
     if coef:

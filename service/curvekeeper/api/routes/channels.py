@@ -16,6 +16,7 @@ router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON
 
 ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
+STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
 
 
 @router.post("", status_code=201, summary="Create a channel", response_model=ChannelPublic)
@@ -27,7 +28,7 @@ def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
 
 @router.get("", summary="List channels", response_model=ChannelPage)
 def list_channels(ctx: Ctx, who: Who, prefix: Annotated[Plain | None, Query(max_length=128)] = None,
-                  state: Annotated[str | None, Query(description="ok, warning, alarm or out_of_tolerance")] = None,
+                  state: Annotated[str | None, Query(description=STATE_FILTER)] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=False) as unit:
@@ -47,4 +48,4 @@ def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
 def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=True) as unit:
-        return channels.patch(unit, channel_id, body.model_dump(exclude_unset=True), who.key_id)
+        return channels.patch(unit, channel_id, body.changes(), who.key_id)

@@ -22,7 +22,7 @@ from ..bodies import (
 )
 from ..deps import Ctx, Who
 from ..schemas.common import COMMON_ERRORS, error_responses
-from ..schemas.curves import CalibrateIn, CalibrationAnswer, CurveAnswer, PredictAnswer, PredictIn
+from ..schemas.curves import CalibrateIn, CalibrationAnswer, CurveAnswer, PredictAnswer, PredictIn, Quality
 from ..work import run_store
 from .channels import ChannelPath
 
@@ -37,7 +37,8 @@ router = APIRouter(prefix="/v1/channels/{channel_id}", tags=["curves"], route_cl
                    responses={**COMMON_ERRORS, **error_responses(404)})
 
 
-@router.post("/predict", summary="Calibrated values with standard uncertainty")
+@router.post("/predict", summary="Calibrated values with their uncertainty and quality flags",
+             responses=error_responses(409))
 @counted("x", lambda s: s.max_predict, "max_predict", "values")
 async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who) -> PredictAnswer:
     body = await checked_body(raw, PredictIn, key="x", cap=ctx.settings.max_predict, noun="values",
@@ -48,7 +49,7 @@ async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who
                           write=False, items=len(body.x) // 10)
     # the action's lists are already JSON-ready floats: model_construct costs the same for any
     # size, where validating them again would cost per value (up to 10,000 here)
-    return PredictAnswer.model_construct(**out)
+    return PredictAnswer.model_construct(**{**out, "quality": Quality.model_construct(**out["quality"])})
 
 
 @router.get("/curve", summary="Coefficients and the curve sampled over the input range")

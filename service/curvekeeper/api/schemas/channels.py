@@ -8,9 +8,25 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import MISSING, BaseModel, ConfigDict, Discriminator, Field, Tag
 
-from ...channel_config import ChannelConfig, Cusum, Ewma, Integer, PageHinkley, Positive, Text
+from ...channel_config import (
+    COVERAGE,
+    COVERAGE_FACTOR,
+    RANGE_MARGIN,
+    REFERENCE,
+    ChannelConfig,
+    Coverage,
+    CoverageFactor,
+    Cusum,
+    Ewma,
+    Integer,
+    PageHinkley,
+    Positive,
+    RangeMargin,
+    Reference,
+    Text,
+)
 
 ChannelCreate = ChannelConfig
 
@@ -18,22 +34,33 @@ Section = Annotated[dict[str, Any], Field(description="fields to change; see the
 
 
 class ChannelUpdate(BaseModel):
-    """Settings that may change. ``learner`` of the same kind (``drift`` with the same
-    detector) is merged field by field; another kind replaces it. ``inputs``, ``output``
-    and ``basis`` fix the curve's form and are refused with 409."""
+    """Settings that may change; a field left out stays as it is, and null sets what null
+    means in the channel body (``coverage_factor``: k from Student's t again; ``reference``:
+    not counted; ``outlier_sd``, ``snapshot_every``: off; ``learner``, ``drift``,
+    ``description``: the default). ``learner`` of the same kind (``drift`` with the same
+    detector) is merged field by field; another kind replaces it. ``inputs`` (with their
+    resolution), ``output`` and ``basis`` fix the curve's form and are refused with 409."""
 
     model_config = ConfigDict(extra="forbid", json_schema_extra={
-        "examples": [{"drift": {"tolerance": 0.5}, "learner": {"kind": "rls", "forgetting": 0.999}}]})
+        "examples": [{"drift": {"tolerance": 0.5}, "learner": {"kind": "rls", "forgetting": 0.999}},
+                     {"coverage_factor": None, "reference": {"expanded_uncertainty": 0.02, "coverage_factor": 2.0}}]})
 
-    description: Text | None = None
-    learner: Section | None = None
-    drift: Section | None = None
-    outlier_sd: Annotated[Positive, Field(le=1e6)] | None = None
-    snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None = None
-    coverage_factor: Annotated[Positive, Field(le=10.0)] | None = None
-    inputs: Any = Field(default=None, description="cannot change: 409")
-    output: Any = Field(default=None, description="cannot change: 409")
-    basis: Any = Field(default=None, description="cannot change: 409")
+    description: Text | None | MISSING = MISSING
+    learner: Section | None | MISSING = MISSING
+    drift: Section | None | MISSING = MISSING
+    outlier_sd: Annotated[Positive, Field(le=1e6)] | None | MISSING = MISSING
+    snapshot_every: Annotated[Integer, Field(ge=1, le=10**9)] | None | MISSING = MISSING
+    coverage: Coverage | MISSING = Field(MISSING, description=COVERAGE)
+    coverage_factor: CoverageFactor | None | MISSING = Field(MISSING, description=COVERAGE_FACTOR)
+    reference: Reference | None | MISSING = Field(MISSING, description=REFERENCE)
+    range_margin: RangeMargin | MISSING = Field(MISSING, description=RANGE_MARGIN)
+    inputs: Any | MISSING = Field(MISSING, description="cannot change: 409")
+    output: Any | MISSING = Field(MISSING, description="cannot change: 409")
+    basis: Any | MISSING = Field(MISSING, description="cannot change: 409")
+
+    def changes(self) -> dict[str, Any]:
+        """The fields given (null included); a NaN stays a NaN, for the declaration to refuse."""
+        return self.model_dump()
 
 
 class DriftStatus(BaseModel):
@@ -79,6 +106,38 @@ class ChannelPublic(ChannelConfig):
     created_at: datetime
 
 
+class DamageError(BaseModel):
+    code: Literal["state_damaged"]
+    message: str = Field(description="what is wrong and the way out: a rollback to a snapshot")
+
+
+class DamagedChannel(BaseModel):
+    """A channel whose stored state cannot be restored, as the list shows it; its own routes
+    answer 500 ``state_damaged`` until it is rolled back to a snapshot."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    id: str
+    state: Literal["damaged"]
+    error: DamageError
+    n_samples: int = Field(description="samples stored")
+    n_rejected: int = Field(description="samples stored but not learned")
+    version: int
+    last_sample_at: datetime | None
+    created_at: datetime
+
+
+def _item_kind(v: Any) -> str:
+    state = v.get("state") if isinstance(v, dict) else getattr(v, "state", None)
+    return "damaged" if state == "damaged" else "channel"
+
+
+ChannelItem = Annotated[Annotated[ChannelPublic, Tag("channel")] | Annotated[DamagedChannel, Tag("damaged")],
+                        Discriminator(_item_kind)]
+
+
 class ChannelPage(BaseModel):
-    items: list[ChannelPublic]
+    items: list[ChannelItem] = Field(
+        description="channels by creation order; one whose stored state cannot be restored is listed with state "
+                    "damaged")
     next_cursor: str | None = Field(description="pass as ?cursor= for the next page; null: the last page")

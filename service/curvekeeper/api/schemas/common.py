@@ -12,6 +12,9 @@ from ...channel_config import Plain
 
 #: a finite JSON number of sane size (NaN, Infinity and |v| > 1e15 are refused)
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e15, le=1e15)]
+#: a device's raw reading in a sample: finite, |v| <= 1e38, so an instrument's overload code
+#: (9.9e37 in SCPI) is stored and held back as out of range rather than refused
+Reading = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-1e38, le=1e38)]
 #: free text without control characters (PostgreSQL cannot store NUL)
 Label = Annotated[Plain, Field(max_length=256)]
 Source = Annotated[Plain, Field(min_length=1, max_length=128, examples=["gw-3"])]
@@ -84,7 +87,8 @@ class ErrorBody(BaseModel):
 def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
     """OpenAPI documentation of the error answers a route gives."""
     text = {400: "malformed JSON", 401: "missing, unknown or revoked key", 403: "role or channel prefix not allowed",
-            404: "unknown channel, snapshot or key", 409: "conflict (exists already, or a field that cannot change)",
+            404: "unknown channel, snapshot or key",
+            409: "conflict (exists already, a field that cannot change, or not calibrated yet)",
             413: "too large (body, samples, values or points)", 422: "invalid request",
             429: "rate limited (see Retry-After)", 503: "store busy or unavailable (see Retry-After)"}
     return {s: {"model": ErrorBody, "description": text[s]} for s in statuses}

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Literal
+
 from pydantic import MISSING, BaseModel, ConfigDict, Field
 
 from ...channel_config import Basis, InputSpec, OutputSpec
@@ -43,16 +45,42 @@ class CalibrateIn(BaseModel):
 
 # answers -----------------------------------------------------------------------------------------
 
-UNCERTAINTY = "standard uncertainty u per value, output units; null before the channel has a residual estimate"
+UNCERTAINTY = ("combined standard uncertainty u per value (GUM: curve, scatter, reference, resolution), output "
+               "units; null where y is withheld or before the channel has a residual estimate")
+EXPANDED = "expanded uncertainty U = k u per value, output units; null where u is"
+COVERAGE_K = ("coverage factor k per value: the channel's fixed coverage_factor, or (null setting) Student's t at "
+              "the effective degrees of freedom for the channel's coverage; null where u is")
+DOF = "effective degrees of freedom of u (Welch-Satterthwaite); null: infinite, or u unknown"
+WITHHELD = ("why y is withheld: outside_domain (the output transform has no value there, e.g. at or below the "
+            "offset's zero of a reciprocal channel) or not_finite (the curve overflows); null: y is given")
+
+Withheld = Literal["outside_domain", "not_finite"]
+
+
+class Quality(Answer):
+    """What a data user should know about every value the channel gives now."""
+
+    calibrated: bool = Field(description="the channel has a curve (a calibration, or learnt samples)")
+    drift: DriftState = Field(description="the drift watch: ok, warning or alarm")
+    tolerance: Literal["ok", "out_of_tolerance"] = Field(
+        description="the curve against its reference curve (ok when the channel has no tolerance)")
+    service: Literal["in_service", "out_of_service"] = Field(
+        description="out of service: samples are stored, not learned")
+    warming_up: bool = Field(description="the residual s.d. rests on too few degrees of freedom for the outlier gate")
+    stale: bool = Field(description="the channel has had no sample for too long (not yet watched: false)")
 
 
 class PredictAnswer(Answer):
-    """Calibrated values for the inputs, in request order."""
+    """Calibrated values for the inputs, in request order, each with its uncertainty."""
 
-    y: list[float | None] = Field(description="calibrated values, output units; null where not finite")
+    y: list[float | None] = Field(description="calibrated values, output units; null where withheld (see reason)")
+    reason: list[Withheld | None] = Field(description=WITHHELD)
     u: list[float | None] = Field(description=UNCERTAINTY)
-    k: float = Field(description="coverage factor: the expanded uncertainty is k*u")
+    U: list[float | None] = Field(description=EXPANDED)
+    k: list[float | None] = Field(description=COVERAGE_K)
+    dof: list[float | None] = Field(description=DOF)
     out_of_range: list[bool] = Field(description="per value: an input outside its declared [min, max]")
+    quality: Quality
     version: int = Field(description="the state version (of the snapshot, when one was asked for)")
     unit: str = Field(description="the output unit")
 
@@ -85,10 +113,12 @@ class RawCoefficients(Answer):
 
 class CurvePoint(Answer):
     x: float | list[float] = Field(description="raw input (a list for several inputs)")
-    y: float | None
-    u: float | None
-    lower: float | None = Field(description="y - k*u")
-    upper: float | None = Field(description="y + k*u")
+    y: float | None = Field(description="output units; null where withheld")
+    u: float | None = Field(description=UNCERTAINTY)
+    U: float | None = Field(description=EXPANDED)
+    k: float | None = Field(description=COVERAGE_K)
+    lower: float | None = Field(description="y - U")
+    upper: float | None = Field(description="y + U")
 
 
 class CurveBody(Answer):
@@ -98,11 +128,11 @@ class CurveBody(Answer):
     inputs: list[InputSpec] = Field(description="the channel's inputs")
     output: OutputSpec = Field(description="the channel's output setting")
     weights: list[float] = Field(description="basis weights (on scaled inputs)")
-    k: float = Field(description="coverage factor of lower and upper")
     points: list[CurvePoint]
     n_samples: int
     rmse: float | None = Field(description="output units; null before any fit or sample")
     drift: DriftSummary
+    quality: Quality
     version: int
 
 

@@ -3,16 +3,17 @@
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import Answer, ChannelId, DriftState, Number, Page, Seq, Source, ToleranceState, When
+from .common import Answer, ChannelId, DriftState, Number, Page, Reading, Seq, Source, ToleranceState, When
 
 
 class SampleItem(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    x: Number | list[Number] = Field(description="raw input, or a list of them in the channel's input order")
+    x: Reading | list[Reading] = Field(description="raw input, or a list of them in the channel's input order")
     y: Number = Field(description="reference value in output units")
     t: When | None = Field(None, description="measurement time, ISO-8601 with a time zone")
     seq: Seq | None = Field(None, description="the source's sequence number: (source, seq) makes retries idempotent")
@@ -46,9 +47,11 @@ class GatewayIn(BaseModel):
     samples: list[GatewaySampleItem] = Field(min_length=1)
 
 
-REASON = ("why the sample was stored but not learned: outlier (beyond outlier_sd), guard (a step refused), "
-          "out_of_range (far outside the declared input range), not_finite (a value the curve cannot take) "
-          "or out_of_service (the channel is out of service)")
+REASON = ("why the sample was stored but not learned: outlier (beyond outlier_sd), guard (an unstable step "
+          "refused), not_finite (its basis row, transformed reference or step is not a finite number), "
+          "out_of_range (an input more than range_margin spans outside [min, max]) or out_of_service")
+#: the reasons, as the core names a sample's status (every status but accepted)
+Reason = Literal["outlier", "guard", "not_finite", "out_of_range", "out_of_service"]
 
 
 class DriftBrief(Answer):
@@ -61,7 +64,7 @@ class DriftBrief(Answer):
 
 class SampleRejection(Answer):
     index: int = Field(description="position of the sample in the request")
-    reason: str = Field(description=REASON)
+    reason: Reason = Field(description=REASON)
 
 
 class IngestAnswer(Answer):
@@ -112,7 +115,7 @@ class SampleRecord(Answer):
     residual: float | None = Field(description="prior residual, output units")
     drift_statistic: float | None
     accepted: bool = Field(description="learned; false: stored only, see reason")
-    reason: str | None = Field(description=REASON)
+    reason: Reason | None = Field(description=REASON)
 
 
 class SamplePage(Page[SampleRecord]):

@@ -59,7 +59,9 @@ function renderFacts() {
     : ["no tolerance check set"]));
   fact(dl, "samples", `${ch.n_samples} stored, ${ch.n_rejected} held back as outliers`);
   fact(dl, "rmse", num(ch.rmse, outUnit(), 3));
-  fact(dl, "coverage factor", `k = ${num(ch.coverage_factor, "", 3)}`);
+  fact(dl, "coverage factor", ch.coverage_factor === null || ch.coverage_factor === undefined
+    ? `k from Student's t at ${num(100 * ch.coverage, "%", 4)} coverage`
+    : `k = ${num(ch.coverage_factor, "", 3)}`);
   fact(dl, "version", String(ch.version));
   fact(dl, "last sample (UTC)", CK.when(ch.last_sample_at));
 }
@@ -67,14 +69,13 @@ function renderFacts() {
 function curveTraces() {
   const pts = page.curve.points.filter((p) => p.y !== null);
   const xs = pts.map((p) => firstX(p.x));
-  const k = page.curve.k;
   const acc = page.samples.filter((s) => s.accepted);
   const rej = page.samples.filter((s) => !s.accepted);
   const traces = [
     { x: xs, y: pts.map((p) => p.upper), mode: "lines", line: { width: 0 }, hoverinfo: "skip",
       showlegend: false, name: "upper" },
     { x: xs, y: pts.map((p) => p.lower), mode: "lines", line: { width: 0 }, fill: "tonexty",
-      fillcolor: COLOURS.band, name: `± k·u band (k = ${k})`, hoverinfo: "skip" },
+      fillcolor: COLOURS.band, name: "± U band (U = k·u)", hoverinfo: "skip" },
     { x: xs, y: pts.map((p) => p.y), mode: "lines", line: { color: COLOURS.curve, width: 2.5 },
       name: `current curve (version ${page.curve.version})`, uid: "curve" },
     { x: acc.map((s) => firstX(s.x)), y: acc.map((s) => s.y), mode: "markers", name: "reference samples, learned",
@@ -102,7 +103,7 @@ function renderCurve() {
   const several = page.ch.inputs.length > 1 ? " (drawn against the first input; the others at the middle of their range)" : "";
   document.getElementById("curve-caption").textContent =
     `${o.name} (${o.unit}) against ${inp.name} (${inp.unit}) over ${CK.num(inp.min, inp.unit)} to ` +
-    `${CK.num(inp.max, inp.unit)}${several}; the band is ± k·u with k = ${page.curve.k}. ` +
+    `${CK.num(inp.max, inp.unit)}${several}; the band is ± U, the expanded uncertainty k·u at each point. ` +
     `Last ${page.samples.length} reference samples shown.`;
   return Plotly.react("curve-plot", curveTraces(), plotLayout(`${inp.name} (${inp.unit})`, `${o.name} (${o.unit})`),
                       PLOT_CONFIG);
