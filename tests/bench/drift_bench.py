@@ -66,7 +66,7 @@ PLAN: dict[str, dict[str, Any]] = {
 
 # what the module docstring of curvekeeper.core.drift gives at the defaults: in-control samples to an
 # alarm and to a warning, and samples to an alarm after a sustained 1 s.d. shift
-DOCUMENTED = {"page_hinkley": (208_000, 1_280, 22.4), "cusum": (192_000, 1_280, 22.4),
+DOCUMENTED = {"page_hinkley": (162_000, 1_000, 24.4), "cusum": (192_000, 1_280, 22.4),
               "ewma": (207_000, 1_380, 23.8)}
 
 

@@ -319,44 +319,43 @@ def fleet_in_control() -> dict[str, dict[str, float]]:
 
 @pytest.mark.slow
 def test_page_hinkley_warning_arl_quasi_static() -> None:
-    """Fleet-default Page-Hinkley (delta .5, window 1000, clip 4), warning level h = 6.
+    """Fleet-default Page-Hinkley (delta .5, window 300, clip 4), warning level h = 6.
 
     Reference: the quasi-static derivation of the drift.py docstring, computed here
     independently (Siegmund's two-sided hazard averaged over e ~ N(0, a/(2-a)),
-    a = 1/1000): 1,254. Tolerance 10 %: the MC rel. s.e. is < 1 %, and the
+    a = 1/100): 1,009. Tolerance 10 %: the MC rel. s.e. is < 1 %, and the
     approximation neglects that the running mean absorbs part of each excursion,
     which lengthens the ARL by a few per cent at h = 6 (growing with h; see the
     alarm-level test). Clipping at 4 s.d. changes the ARL by far less than 1 %.
 
-    Measured: 1,280 (15,628 warnings in 2e7 samples), +2.1 % over 1,254. (2e8
-    samples, clip 0, outside the suite: 1,304, +4 %.)
+    With the window of 1000 that was the default before, 1,280 measured against 1,254.
     """
     res = fleet_in_control()["page_hinkley"]
-    ref = page_hinkley_quasi_static(0.5, 6.0, 1000)
+    ref = page_hinkley_quasi_static(0.5, 6.0, 100)
     rse = 1.0 / math.sqrt(res["warnings"])
     report("PH defaults warning ARL", res["warning_arl"], f"quasi-static {ref:,.0f}", rse)
-    assert ref == pytest.approx(1254, rel=0.01)  # the docstring's figure
-    assert res["warning_arl"] == pytest.approx(ref, rel=0.10)
+    assert ref == pytest.approx(1010, rel=0.01)  # the docstring's figure
+    # a lower bound: the baseline, held while a statistic is at 3 or above, lets the runs
+    # to 6 be longer than with the mean's noise alone (measured 1,257)
+    assert ref <= res["warning_arl"] <= 1.4 * ref
 
 
 @pytest.mark.slow
 def test_page_hinkley_alarm_arl_not_below_quasi_static() -> None:
-    """Fleet-default Page-Hinkley alarm level h = 11: the quasi-static value (173,687,
-    the docstring's 174,000) must not overstate the in-control ARL, i.e. the measured
+    """Fleet-default Page-Hinkley alarm level h = 12: the quasi-static value (162,900,
+    the docstring's 163,000) must not overstate the in-control ARL, i.e. the measured
     ARL is at least 0.9 x the derivation (MC rel. s.e. ~4.6 %). This is the direction
     the fleet requirement (>= 100,000) relies on. The derivation leaves out that the
-    running mean follows each excursion, so it is a lower bound (about 20 % low at h = 11).
-
-    Measured: 207,900 (481 alarms in 1e8 samples), 1.20 x the derivation.
+    running mean follows each excursion, so it is a lower bound (with the baseline held
+    while a statistic is at 3 or above, it follows less of each excursion than a free one).
     """
     res = fleet_in_control()["page_hinkley"]
-    ref = page_hinkley_quasi_static(0.5, 11.0, 1000)
+    ref = page_hinkley_quasi_static(0.5, 12.0, 100)
     rse = 1.0 / math.sqrt(res["alarms"])
     report("PH defaults alarm ARL", res["alarm_arl"], f"quasi-static {ref:,.0f}", rse)
-    assert ref == pytest.approx(173_700, rel=0.01)  # the docstring's 174,000
-    # the quasi-static value is a lower bound: the running mean absorbs part of each
-    # excursion toward the threshold, which lengthens runs (by about 20 % at h = 11)
-    assert 0.9 * ref <= res["alarm_arl"] <= 1.35 * ref
+    assert ref == pytest.approx(162_900, rel=0.01)  # the docstring's 163,000
+    # the quasi-static value is a lower bound (measured 296,700, 1.8 x)
+    assert 0.9 * ref <= res["alarm_arl"] <= 2.2 * ref
 
 
 def delays_after_burn_in(
@@ -396,23 +395,22 @@ def delays_after_burn_in(
 
 @pytest.mark.parametrize("shift", [1.0, -1.0], ids=["+1sd", "-1sd"])
 def test_page_hinkley_shift_arl_siegmund(shift: float) -> None:
-    """Fleet-default Page-Hinkley (delta .5, h 11, window 1000, clip 4): a sustained
+    """Fleet-default Page-Hinkley (delta .5, h 12, window 100, clip 4): a sustained
     1 s.d. shift after 3,000 in-control samples (running mean settled), statistics
-    cleared at the shift. Reference: Siegmund's two-sided ARL with k = delta, h = 11:
-    22.33. Tolerance 10 %: MC rel. s.e. ~0.9 %; the running mean starts following the
-    shift (1/1000 per sample), which slows detection by a few per cent.
-
-    Measured: +1 s.d. 22.63; -1 s.d. 23.18 (2,000 replicates each).
+    cleared at the shift. Reference: Siegmund's two-sided ARL with k = delta, h = 12:
+    24.33. Tolerance 10 %: MC rel. s.e. ~0.9 %; the running mean starts following the
+    shift (at most 1/100 per sample, until a statistic reaches 3), which slows detection:
+    Siegmund's value is a lower bound. Measured: -1 s.d. 27.4 (2,000 replicates).
     """
     kind, dp = fleet_params("page_hinkley")
     d, _ = delays_after_burn_in(kind, dp, shift, 2000, 3000, 301 if shift > 0 else 302, clear=True)
-    ref = float(siegmund_two_sided(1.0, 0.5, 11.0))
+    ref = float(siegmund_two_sided(1.0, 0.5, 12.0))
     rse = d.std() / math.sqrt(d.size) / d.mean()
     report(
         f"PH defaults shift {shift:+.0f} (zero state)", d.mean(), f"Siegmund k=delta {ref:.2f}", rse
     )
-    assert ref == pytest.approx(22.33, rel=1e-3)
-    assert d.mean() == pytest.approx(ref, rel=0.10)
+    assert ref == pytest.approx(24.33, rel=1e-3)
+    assert 0.95 * ref <= d.mean() <= 1.2 * ref
 
 
 # --------------------------------------------------------------------------------------
@@ -431,17 +429,18 @@ def test_fleet_defaults_are_the_documented_ones() -> None:
         assert cfg["clip"] == 4.0
     assert fleet_cfg("cusum")["k"] == 0.5
     assert (fleet_cfg("cusum")["warning"], fleet_cfg("cusum")["alarm"]) == (6.0, 11.0)
-    assert fleet_cfg("page_hinkley")["mean_window"] == 1000
+    assert fleet_cfg("page_hinkley")["mean_window"] == 100
+    assert fleet_cfg("page_hinkley")["alarm"] == 12.0
     assert (fleet_cfg("ewma")["lambda"], fleet_cfg("ewma")["alarm"]) == (0.05, 4.4)
 
 
 def fleet_reference(detector: str, level: int) -> float:
-    h = {"page_hinkley": (6.0, 11.0), "cusum": (6.0, 11.0), "ewma": (3.0, 4.4)}[detector][level - 1]
+    h = {"page_hinkley": (6.0, 12.0), "cusum": (6.0, 11.0), "ewma": (3.0, 4.4)}[detector][level - 1]
     if detector == "cusum":
         return float(siegmund_two_sided(0.0, 0.5, h))
     if detector == "ewma":
         return ewma_arl_markov(0.05, h, 0.0)
-    return page_hinkley_quasi_static(0.5, h, 1000)
+    return page_hinkley_quasi_static(0.5, h, 100)
 
 
 @pytest.mark.slow
@@ -478,13 +477,13 @@ def test_fleet_defaults_in_control(detector: str) -> None:
         f"{ref_warn:,.0f}",
         1.0 / math.sqrt(res["warnings"]),
     )
-    assert rse < 0.08
+    assert rse < 0.09
     assert res["alarm_arl"] >= 100_000
     assert res["warning_arl"] >= 1_000
-    if detector != "page_hinkley":  # PH: see test_page_hinkley_alarm_arl_quasi_static
+    if detector != "page_hinkley":  # PH: see the page_hinkley tests above (a lower bound)
         # consistency with the independent references, ~4 s.e. of slack
         assert res["alarm_arl"] == pytest.approx(ref_alarm, rel=0.20)
-    assert res["warning_arl"] == pytest.approx(ref_warn, rel=0.10)
+        assert res["warning_arl"] == pytest.approx(ref_warn, rel=0.10)
 
 
 @pytest.mark.parametrize("detector", FLEET)
@@ -664,7 +663,7 @@ def test_cusum_two_sided_combination_against_2d_chain(h: float, shift: float, cl
 
 
 def ph_quasi_static_chain(h: float) -> float:
-    return arl.page_hinkley_quasi_static(0.5, h, 1000, m=200, clip=4.0, nodes=16)
+    return arl.page_hinkley_quasi_static(0.5, h, 100, m=200, clip=4.0, nodes=16)
 
 
 # (label, the figure in drift.py's docstring, the chain's value for the same settings)
@@ -694,8 +693,9 @@ DOCSTRING_FIGURES: list[tuple[str, float, Any]] = [
         ),
     ),
     ("ewma defaults, alarm, 1 s.d.", 23.8, lambda: arl.ewma(0.05, 4.4, 1.0, clip=4.0)),
-    ("page_hinkley defaults, warning, quasi-static", 1250.0, lambda: ph_quasi_static_chain(6.0)),
-    ("page_hinkley defaults, alarm, quasi-static", 173_000.0, lambda: ph_quasi_static_chain(11.0)),
+    ("page_hinkley defaults, warning, quasi-static", 1000.0, lambda: ph_quasi_static_chain(6.0)),
+    ("page_hinkley defaults, alarm, quasi-static", 162_000.0, lambda: ph_quasi_static_chain(12.0)),
+    ("page_hinkley defaults, alarm, 1 s.d.", 24.4, lambda: arl.cusum_two_sided(0.5, 12.0, 1.0, clip=4.0)),
 ]
 
 
@@ -847,19 +847,19 @@ def test_page_hinkley_running_mean_weight_is_max_of_one_over_n_and_window() -> N
 
 def test_page_hinkley_running_mean_absorbs_a_constant_bias() -> None:
     """A constant bias of 0.3 s.d. (seeded N(0.3, 1) stream, 12,000 samples, fresh state):
-    the fleet-default Page-Hinkley (window 1000) raises no alarm, because the running
+    the fleet-default Page-Hinkley (window 100) raises no alarm, because the running
     mean takes the bias out of the deviations. The same detector with its mean held
     at 0 (window 10^12 and a state that has already seen 10^12 samples at mean 0, so
     alpha ~ 1e-12) is a CUSUM with k = delta seeing a 0.3 s.d. shift, whose ARL by the
     Brook-Evans chain is 1,551 (clip 4): it alarms (here at sample 599), and would
     miss 12,000 samples with probability ~exp(-12,000 / 1,551) ~ 4e-4.
-    With the window, the in-control alarm ARL (~208,000) gives a ~6 % chance of an
+    With the window, the in-control alarm ARL (over 160,000) gives a < 8 % chance of an
     alarm in 12,000 samples on an arbitrary seed; this seed has none.
     """
     n = 12_000
     z = np.random.default_rng(701).standard_normal(n) + 0.3
     kind, dp = fleet_params("page_hinkley")
-    assert dp[drift.DP_ALPHA] == 1.0 / 1000
+    assert dp[drift.DP_ALPHA] == 1.0 / 100
     ds = drift.new_detector_state()
     assert drift.first_reach(kind, dp, ds, z, drift.ALARM) == -1
     assert abs(ds[drift.DS_MEAN] - 0.3) < 0.1  # the mean has taken the bias

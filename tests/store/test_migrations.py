@@ -144,7 +144,8 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
         engine.dispose()
 
 
-NEW_IN_3 = ("reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held")
+NEW_IN_3 = ("reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held",
+            "outlier_run")
 
 
 def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:

@@ -10,7 +10,9 @@ For each sample i (phi = Phi[i], transformed reference z = z[i]):
 3. the drift watch: with a reference curve (after a calibration), the detector
    takes the reference residual e = z - w_ref . phi, standardised by the pooled
    scale of ``residuals.py``, from the first sample on, so a change the learner
-   absorbs still shows; without one, it takes r / s after the warm-up;
+   absorbs still shows; without one, it takes r / s after the warm-up. An outlier
+   (below) is left out when it comes alone, a contact glitch most likely; from the
+   second of a run on, it goes in (a lasting step must raise the alarm);
 4. outlier gate: |r| > outlier_sd * s after ``WARMUP`` samples learnt since the start
    or the last calibration (a bench calibration's scatter is seldom that of the
    installation, so s must have seen the installation first) -> stored, not learned;
@@ -53,16 +55,19 @@ LP_L2, LP_HUBER, LP_OUTLIER, LP_FORGET, LP_OFFSET, LP_WARMUP, LP_WINDOW, LP_BOUN
 LP_SIZE = 8
 # running state: step count and scale; learner residuals (count, mean square; output units);
 # counts; the last fit's residual variance and dof; reference residuals (count, mean,
-# variance); the RLS trace bound and initialisation flag; samples held back
+# variance); the RLS trace bound and initialisation flag; samples held back; the outliers in a row
 (ST_T, ST_SCALE, ST_RN, ST_RVAR, ST_ON, ST_OMS, ST_ACC, ST_REJ, ST_GUARD, ST_FVAR, ST_FDOF,
- ST_EN, ST_EMEAN, ST_EVAR, ST_TRMAX, ST_INIT, ST_HELD) = range(17)
-ST_SIZE = 17
+ ST_EN, ST_EMEAN, ST_EVAR, ST_TRMAX, ST_INIT, ST_HELD, ST_ORUN) = range(18)
+ST_SIZE = 18
 
 # sample status codes; codes from HELD on are set by the caller before the loop
 ACCEPTED, OUTLIER, GUARD, NOT_FINITE, OUT_OF_RANGE, OUT_OF_SERVICE = range(6)
 HELD = NOT_FINITE
 STATUS_NAMES = ("accepted", "outlier", "guard", "not_finite", "out_of_range", "out_of_service")
 
+# the weight, in degrees of freedom, of the calibration's scatter in the watch's scale: a
+# bench's scatter is seldom the installation's, so the samples soon outweigh it
+SCALE_PRIOR_DOF = 3.0
 SCALE_Z = -1.2816  # the 10 % normal quantile: the watch divides by a 90 % upper bound of the s.d.
 RECOVER = 2.0 ** (1.0 / 20.0)  # the SGD step scale doubles back per 20 applied steps
 
@@ -193,12 +198,21 @@ def learn_batch(
             out_r[i] = ro
         s, dof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_RVAR], st[ST_RN], window)
         warm = st[ST_RN] >= warmup and s > 0.0
-        # the drift watch
+        gated = warm and outlier > 0.0 and abs(r) > outlier * s
+        # the drift watch; a lone outlier (a contact glitch) is left out of it, a run of them
+        # (a step) goes in from its second sample on
+        lone = gated and st[ST_ORUN] == 0.0
+        st[ST_ORUN] = st[ST_ORUN] + 1.0 if gated else 0.0
         score = math.nan
-        if has_ref:
-            es, edof = reference_sd(st[ST_FVAR], st[ST_FDOF], st[ST_EVAR], st[ST_EN], window)
-            if es > 0.0:
-                score = e / (es * scale_margin(edof, SCALE_Z))
+        if lone:
+            pass
+        elif has_ref:
+            es, edof = reference_sd(st[ST_FVAR], min(st[ST_FDOF], SCALE_PRIOR_DOF), st[ST_EVAR], st[ST_EN], window)
+            # a scatter of zero (an exact calibration) cannot scale a residual: floor it at
+            # the rounding of float64 numbers of z's size
+            floor = 1e-12 * abs(z[i]) + 1e-300
+            if edof > 0.0:
+                score = e / (max(es, floor) * scale_margin(edof, SCALE_Z))
         elif warm:
             score = r / s
         if score == score:
@@ -219,7 +233,7 @@ def learn_batch(
                 snap_st[:] = st
                 snap_ds[:] = ds_before
             out_state[i] = int(ds[DS_STATE])
-        if has_ref:  # the reference residuals' running mean and variance, after the watch used them
+        if has_ref and not lone:  # the reference residuals' running mean and variance, after the watch
             es = math.sqrt(st[ST_EVAR])
             st[ST_EN] += 1.0
             a = 1.0 / st[ST_EN] if st[ST_EN] < window else 1.0 / window
@@ -228,7 +242,7 @@ def learn_batch(
                 d = max(-4.0 * es, min(4.0 * es, d))
             st[ST_EMEAN] += a * d
             st[ST_EVAR] = (1.0 - a) * (st[ST_EVAR] + a * d * d)
-        if warm and outlier > 0.0 and abs(r) > outlier * s:
+        if gated:
             out_status[i] = OUTLIER
             st[ST_REJ] += 1.0
             continue

@@ -25,7 +25,7 @@ READS = (2, 3)  # formats read: a format-2 state gets the new fields' starting v
 RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
     "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
-    "reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held",
+    "reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held", "outlier_run",
 )
 NEW_IN_3 = dict.fromkeys(RUNNING_NAMES[11:], 0.0)
 SERVICE_STATES = ("in_service", "out_of_service")
