@@ -159,7 +159,7 @@ BAD = [
     ({"output": {"offset": float("inf")}}, ("output", "offset"), "finite"),
     ({"drift": {"detector": "adwin"}}, ("drift", "detector"), "page_hinkley, cusum, ewma"),
     ({"drift": {"detector": "cusum", "warning": 5, "alarm": 4}}, ("drift", "alarm"), "greater than drift.warning"),
-    ({"drift": {"warning": 11}}, ("drift", "alarm"), "greater than drift.warning"),
+    ({"drift": {"warning": 12}}, ("drift", "alarm"), "greater than drift.warning"),
     ({"drift": {"detector": "cusum", "delta": 1}}, ("drift", "delta"), "Extra inputs"),
     ({"drift": {"detector": "ewma", "lambda": 0}}, ("drift", "lambda"), "greater than 0"),
     ({"drift": {"detector": "ewma", "lambda_": 0.1}}, ("drift", "lambda_"), "Extra inputs"),

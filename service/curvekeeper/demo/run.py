@@ -134,18 +134,29 @@ def _story(c: Client, result: DemoResult, *, fast: bool, seed: int, say: Callabl
     for ch in tol:
         d = ch["drift"]
         say(f"Out of tolerance: {ch['id']}: its curve moved {d['max_curve_change']:.2f} degC from the "
-            f"day-0 calibration (tolerance {d['tolerance']} degC): slow ageing, time for a bench check.")
+            f"day-0 calibration (tolerance {d['tolerance']} degC): steady ageing, time for a bench check.")
+        if ch["id"] in result.alarms:
+            day, _ = _first_alarm(c, ch["id"])
+            say(f"  Its drift alarm came on day {day:.1f}, when its readings had moved from the day-0 curve "
+                "faster than a slow ageing would; a recalibration clears it.")
     for ch in alarm:
-        _tell_alarm(c, ch["id"], result, say)
+        if ch["id"] not in result.out_of_tolerance:
+            _tell_alarm(c, ch["id"], result, say)
+
+
+def _first_alarm(c: Client, cid: str) -> tuple[float, dict[str, Any]]:
+    """The day (measurement time) of a channel's first drift alarm, and its event details."""
+    events = c.request("GET", f"/v1/channels/{cid}/events?kind=drift_alarm")["items"]
+    first: dict[str, Any] = events[0]["details"]
+    page = c.request("GET", f"/v1/channels/{cid}/samples?limit=1&cursor={_cursor(first['sample_seq'] - 1)}")["items"]
+    when = datetime.fromisoformat(page[0]["t"].replace("Z", "+00:00"))
+    return (when - T0) / timedelta(days=1), first
 
 
 def _tell_alarm(c: Client, cid: str, result: DemoResult, say: Callable[[str], None]) -> None:
-    events = c.request("GET", f"/v1/channels/{cid}/events?kind=drift_alarm")["items"]
-    first = events[0]["details"]
+    result.alarm_day, first = _first_alarm(c, cid)
     seq = first["sample_seq"]
-    page = c.request("GET", f"/v1/channels/{cid}/samples?limit=1&cursor={_cursor(seq - 1)}")["items"]
-    when = datetime.fromisoformat(page[0]["t"].replace("Z", "+00:00"))
-    result.alarm_day = (when - T0) / timedelta(days=1)
+    when = T0 + timedelta(days=result.alarm_day)
     say(f"Drift alarm: {cid} on day {result.alarm_day:.1f} ({when:%Y-%m-%d %H:%M} UTC), sample {seq}: "
         f"its residuals against the reference shifted (Page-Hinkley statistic {first['statistic']:.1f}).")
     snaps = c.request("GET", f"/v1/channels/{cid}/snapshots?limit=1000")["items"]
