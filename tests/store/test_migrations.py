@@ -145,7 +145,7 @@ def test_0004_moves_the_config_out_of_the_model_states(empty_url: str) -> None:
 
 
 NEW_IN_3 = ("reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held",
-            "outlier_run")
+            "outlier_run", "gate_var")
 
 
 def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:

@@ -55,10 +55,11 @@ LP_L2, LP_HUBER, LP_OUTLIER, LP_FORGET, LP_OFFSET, LP_WARMUP, LP_WINDOW, LP_BOUN
 LP_SIZE = 8
 # running state: step count and scale; learner residuals (count, mean square; output units);
 # counts; the last fit's residual variance and dof; reference residuals (count, mean,
-# variance); the RLS trace bound and initialisation flag; samples held back; the outliers in a row
+# variance); the RLS trace bound and initialisation flag; samples held back; the outliers in a
+# row; the gate's mean square of the learner residuals (plain mean, then exponential)
 (ST_T, ST_SCALE, ST_RN, ST_RVAR, ST_ON, ST_OMS, ST_ACC, ST_REJ, ST_GUARD, ST_FVAR, ST_FDOF,
- ST_EN, ST_EMEAN, ST_EVAR, ST_TRMAX, ST_INIT, ST_HELD, ST_ORUN) = range(18)
-ST_SIZE = 18
+ ST_EN, ST_EMEAN, ST_EVAR, ST_TRMAX, ST_INIT, ST_HELD, ST_ORUN, ST_GVAR) = range(19)
+ST_SIZE = 19
 
 # sample status codes; codes from HELD on are set by the caller before the loop
 ACCEPTED, OUTLIER, GUARD, NOT_FINITE, OUT_OF_RANGE, OUT_OF_SERVICE = range(6)
@@ -198,7 +199,11 @@ def learn_batch(
             out_r[i] = ro
         s, dof = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_RVAR], st[ST_RN], window)
         warm = st[ST_RN] >= warmup and s > 0.0
-        gated = warm and outlier > 0.0 and abs(r) > outlier * s
+        # the gate keeps the learner's whole history in its scale: while a learner still
+        # converges, its residuals are largest where the curve is worst (often the range's
+        # ends), and a scale that has forgotten the start would hold exactly those back
+        sg, _ = pooled_sd(st[ST_FVAR], st[ST_FDOF], st[ST_GVAR], st[ST_RN], window)
+        gated = warm and outlier > 0.0 and abs(r) > outlier * max(s, sg)
         # the drift watch; a lone outlier (a contact glitch) is left out of it, a run of them
         # (a step) goes in from its second sample on
         lone = gated and st[ST_ORUN] == 0.0
@@ -263,6 +268,7 @@ def learn_batch(
         st[ST_ACC] += 1.0
         st[ST_RN] += 1.0
         st[ST_RVAR] += weight(st[ST_RN], window) * (r * r - st[ST_RVAR])
+        st[ST_GVAR] += max(1.0 / st[ST_RN], 1.0 / window) * (r * r - st[ST_GVAR])
         if out_r[i] == out_r[i]:
             st[ST_ON] += 1.0
             st[ST_OMS] += weight(st[ST_ON], window) * (ro * ro - st[ST_OMS])

@@ -20,6 +20,7 @@ from .learners import (
     ST_FDOF,
     ST_FVAR,
     ST_GUARD,
+    ST_GVAR,
     ST_HELD,
     ST_INIT,
     ST_OMS,
@@ -81,6 +82,7 @@ class Lifecycle:
         # starts again, because residuals in service are seldom as small as on the bench
         s.st[ST_RN] = 0.0
         s.st[ST_RVAR] = 0.0
+        s.st[ST_GVAR] = 0.0
         s.st[ST_FVAR] = fit.residual_sd**2 if fit.dof > 0 else 0.0
         s.st[ST_FDOF] = float(fit.dof)
         s.st[ST_ON] = float(fit.n)

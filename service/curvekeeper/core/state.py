@@ -26,6 +26,7 @@ RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
     "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
     "reference_n", "reference_mean", "reference_var", "trace_bound", "initialising", "n_held", "outlier_run",
+    "gate_var",
 )
 NEW_IN_3 = dict.fromkeys(RUNNING_NAMES[11:], 0.0)
 SERVICE_STATES = ("in_service", "out_of_service")
@@ -105,7 +106,9 @@ class ModelState:
             if not isinstance(d, dict) or d.get("format") not in READS:
                 raise StateError(f"unknown model state format (expected one of {READS})")
             if d["format"] == 2:
-                d = {**d, "running": {**NEW_IN_3, **d["running"]}, "change_weights": [d["weights"]] * 2,
+                running = {**NEW_IN_3, **d["running"]}
+                running["gate_var"] = running["residual_var"]  # the same estimator until format 3
+                d = {**d, "running": running, "change_weights": [d["weights"]] * 2,
                      "info_b": None, "service": "in_service"}
             w = _vector(d["weights"], "weights")
             M = w.shape[0]
