@@ -276,7 +276,14 @@ class ApiMachine(RuleBasedStateMachine):
             page = self.ok(self.call("GET", f"/v1/channels/{ch}/snapshots", params={"limit": 500}), SnapshotPage)
             if page["items"]:
                 body["snapshot"] = data.draw(st.sampled_from([s["id"] for s in page["items"]]))
-        out = self.ok(self.call("POST", f"/v1/channels/{ch}/predict", body), PredictAnswer)
+        r = self.call("POST", f"/v1/channels/{ch}/predict", body)
+        if "snapshot" not in body:  # the channel says whether it has a curve to predict with
+            calibrated = self.ok(self.call("GET", f"/v1/channels/{ch}"), ChannelPublic)["calibrated"]
+            assert r.status_code == (200 if calibrated else 409), r.text[:800]
+        if r.status_code == 409:  # no curve in the channel or in the snapshot asked for
+            assert r.json()["error"]["code"] == "not_calibrated", r.text[:800]
+            return
+        out = self.ok(r, PredictAnswer)
         assert len(out["y"]) == len(xs) and out["out_of_range"] == [not 0 <= x <= 100 for x in xs], out
 
     @rule()

@@ -42,6 +42,7 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
         "drift": {**ch.config["drift"], **s["drift"]},
         "version": st.version,
         "service_state": model.service,
+        "calibrated": model.calibrated,
         "last_sample_at": st.last_sample_at,
         "created_at": ch.created_at,
     })

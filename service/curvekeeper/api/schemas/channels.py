@@ -102,6 +102,8 @@ class ChannelPublic(ChannelConfig):
     residual_sd: float | None = Field(description="residual standard deviation in the fitted space")
     version: int = Field(description="counts every change of the channel's state")
     service_state: ServiceState = Field(description="out_of_service: samples are stored, not learned nor watched")
+    calibrated: bool = Field(description="the channel has a curve (a calibration, or what it has learnt); without "
+                                         "one, predict answers 409 not_calibrated")
     last_sample_at: datetime | None
     created_at: datetime
 
