@@ -84,6 +84,11 @@ def test_drift_detectors_find_a_one_sd_step(smoke: tuple[Path, dict[str, Any]]) 
         assert 10 < h[name]["mean_delay"] < 40, (name, h[name])
         assert h[name]["false_alarms_per_10k"] < 5, (name, h[name])
     assert "river ADWIN" in h and "river PageHinkley" in h
+    # the channel as a whole through the API: every calibration size ran, in control and stepped
+    channel = smoke[1]["sections"]["drift"]["channel"]
+    assert set(channel) == {"5", "30"}
+    for v in channel.values():
+        assert v["samples"] > 0 and v["median_delay"] < 100, v
 
 
 def test_service_measurements_are_taken(smoke: tuple[Path, dict[str, Any]]) -> None:
