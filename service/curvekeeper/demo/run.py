@@ -169,8 +169,8 @@ def _tell_alarm(c: Client, cid: str, result: DemoResult, say: Callable[[str], No
     result.rollback_snapshot = alarm_snap["id"]
     result.rollback_restores = after["y"] == expected["y"] and after["u"] == expected["u"]
     change = max(abs(a - b) for a, b in zip(before["y"], after["y"], strict=True))
-    say(f"Rollback: {cid} back to snapshot {alarm_snap['id']}, taken when the alarm fired (the last curve "
-        f"learned before the fault); the curve moves back by up to {change:.3f} degC, and its predictions "
+    say(f"Rollback: {cid} back to snapshot {alarm_snap['id']}, taken when the alarm fired (the curve from before "
+        f"the estimated change point); the curve moves back by up to {change:.3f} degC, and its predictions "
         f"equal the snapshot's {'exactly' if result.rollback_restores else 'NOT exactly'}.")
     note = "sudden step: moisture in the housing suspected; probe to be inspected"
     c.request("POST", f"/v1/channels/{cid}/service", json={"state": "out_of_service", "note": note},
