@@ -33,6 +33,21 @@ def test_the_demo_flags_the_faulty_probe_only_and_its_rollback_restores_the_snap
     assert result.samples == 8 * 60 * 12
     text = "\n".join(lines)
     assert "Drift alarm: coldstore.produce.p2 on day 40" in text and result.key in text
+    # the command line and the admin commands find the demo (another port than 8000 here)
+    assert f"export CURVEKEEPER_URL={result.url}" in text and f"export CURVEKEEPER_KEY={result.key}" in text
+    assert f"--db sqlite:///{tmp_path / 'demo.db'}" in text
+
+
+def test_the_demo_tells_its_progress_without_a_terminal() -> None:
+    """Under pytest stderr is no terminal: a line at each quarter of the stream, with the total."""
+    from curvekeeper.demo.run import Progress
+
+    lines: list[str] = []
+    progress = Progress(lines.append)
+    for _ in range(8):
+        progress(125, 1000)  # eight requests of 125 samples
+    assert lines == [f"  streamed {n:,} of 1,000 samples ({q} %)" for n, q in
+                     ((250, 25), (500, 50), (750, 75), (1000, 100))]
 
 
 def test_the_scenario_is_seeded_and_physical() -> None:

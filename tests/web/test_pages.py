@@ -39,6 +39,14 @@ def free_port() -> int:
 
 # --- without a browser: the pages, their policy and the plotting library's file ------------
 
+def test_the_service_root_leads_to_the_pages(client: TestClient) -> None:
+    """``serve`` prints the root address: it must not answer 404."""
+    for path in ("/", "/ui"):
+        r = client.get(path, follow_redirects=False)
+        assert (r.status_code, r.headers["location"]) == (307, "/ui/"), path
+    assert client.get("/").status_code == 200  # followed: the sign-in page
+
+
 def test_pages_and_assets_are_served_with_their_own_policy(client: TestClient) -> None:
     for path in ("/ui/", "/ui/fleet", "/ui/channels/site-a.t1"):
         r = client.get(path)

@@ -66,6 +66,7 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
     docs.install(app, "curvekeeper")
     for module in (health, channels, samples, curves, snapshots, lifecycle, keys, audit, web):
         app.include_router(module.router)
+    app.include_router(web.root)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
     origins = [o.strip() for o in settings.cors_origins.split(",") if o.strip()]
     if origins:  # closed unless configured: no browser page elsewhere may call the API

@@ -69,7 +69,7 @@ def start_server(settings: Settings) -> tuple[_Server, threading.Thread]:
 
 def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool = False, seed: int = 7,
              say: Callable[[str], None] = print, keep_running: bool = True,
-             progress: Callable[[int], None] | None = None) -> DemoResult:
+             progress: Callable[[int, int], None] | None = None) -> DemoResult:
     """Tell the cold store's story against a fresh store at ``db``; returns what happened."""
     for suffix in ("", "-wal", "-shm"):
         Path(f"{db}{suffix}").unlink(missing_ok=True)
@@ -85,6 +85,12 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         result.seconds = time.monotonic() - started
         say(f"\nThe technician's pages: {url}/ui/ (API documentation at {url}/docs).")
         say(f"Sign in with the admin key: {key}")
+        say("The command line against this demo, from another shell:")
+        say(f"  export CURVEKEEPER_URL={url}")
+        say(f"  export CURVEKEEPER_KEY={key}")
+        say("  curvekeeper channels list")
+        say(f"Admin commands on the demo's store take --db sqlite:///{db}, e.g. "
+            f"curvekeeper keys create --role technician --db sqlite:///{db}")
         say(f"Look at {scenario.FAULTY} (the alarm and the rollback) and {scenario.AGEING} (out of tolerance).")
         # the alarm was acknowledged, so the probe is no longer in alarm: show its alarm event
         auth = f"curl -s -H 'Authorization: Bearer {key}'"
@@ -105,7 +111,7 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
 
 
 def _story(c: Client, result: DemoResult, *, fast: bool, seed: int, say: Callable[[str], None],
-           progress: Callable[[int], None] | None) -> None:
+           progress: Callable[[int, int], None] | None) -> None:
     step = 120.0 if fast else 30.0
     stream = scenario.stream(seed=seed, days=60.0, step_min=step)
     probes = [scenario.channel_id(p) for p in scenario.PROBES]
@@ -121,7 +127,9 @@ def _story(c: Client, result: DemoResult, *, fast: bool, seed: int, say: Callabl
     gateway = [cid for cid in probes if cid.split(".")[1] in GATEWAY_ROOMS]
     say(f"Streaming {len(stream.channel):,} samples: {', '.join(GATEWAY_ROOMS)} rooms through gateway gw-1, "
         "the other probes as single devices ...")
-    report = simulate(c, stream, t0=T0, gateway=gateway, progress=progress)
+    total = len(stream.channel)
+    report = simulate(c, stream, t0=T0, gateway=gateway,
+                      progress=None if progress is None else (lambda k: progress(k, total)))
     result.samples = report.accepted + report.rejected
     say(f"  {report.requests} requests: {report.accepted:,} samples learned, {report.rejected} held back "
         f"as outliers, {report.duplicates} duplicates")
@@ -192,14 +200,42 @@ def _cursor(seq: int) -> str:
     return encode_cursor(seq)
 
 
+class Progress:
+    """The demo's streaming progress: a bar with its total in a terminal, otherwise a line at
+    every quarter (a log or a pipe shows that the demo is working)."""
+
+    def __init__(self, say: Callable[[str], None] = print) -> None:
+        self.say = say
+        self.done = 0
+        self.next_quarter = 1
+        self.bar: Any = None
+
+    def __call__(self, k: int, total: int) -> None:
+        import sys
+
+        from tqdm import tqdm
+
+        if self.bar is None and sys.stderr.isatty():
+            self.bar = tqdm(total=total, unit="sample", desc="streaming", leave=False)
+        self.done += k
+        if self.bar is not None:
+            self.bar.update(k)
+            return
+        while self.next_quarter <= 4 and self.done * 4 >= self.next_quarter * total:
+            self.say(f"  streamed {self.done:,} of {total:,} samples ({25 * self.next_quarter} %)")
+            self.next_quarter += 1
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
 def demo_command(args: Any) -> int:
     """Entry point of ``curvekeeper demo``."""
-    from tqdm import tqdm
-
-    bar = tqdm(unit="sample", desc="streaming", leave=False, disable=None)
+    progress = Progress()
     try:
         result = run_demo(db=Path(args.db_file), host=args.host, port=args.port, fast=args.fast,
-                          keep_running=not args.no_wait, progress=bar.update)
+                          keep_running=not args.no_wait, progress=progress)
     finally:
-        bar.close()
+        progress.close()
     return 0 if result.rollback_restores and result.alarms else 1

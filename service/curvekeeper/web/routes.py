@@ -20,6 +20,8 @@ from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Resp
 from ..errors import NotFound
 
 router = APIRouter(prefix="/ui", include_in_schema=False)
+#: the service's root: the address ``serve`` prints leads to the pages
+root = APIRouter(include_in_schema=False)
 
 _HERE = Path(__file__).resolve().parent
 STATIC = _HERE / "static"
@@ -46,6 +48,11 @@ def _page(name: str) -> HTMLResponse:
 
 @router.get("")
 def ui_root() -> RedirectResponse:
+    return RedirectResponse("/ui/", status_code=307)
+
+
+@root.get("/")
+def service_root() -> RedirectResponse:
     return RedirectResponse("/ui/", status_code=307)
 
 
