@@ -116,24 +116,24 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="run the service with the cold-store demo (about a minute), then serve")
     demo.add_argument("--db-file", default="curvekeeper-demo.db", help="SQLite file of the demo (replaced)")
-    demo.add_argument("--host", default="127.0.0.1")
-    demo.add_argument("--port", type=int, default=8000)
+    demo.add_argument("--host", default="127.0.0.1", help="address to serve on (default 127.0.0.1: this machine only)")
+    demo.add_argument("--port", type=int, default=8000, help="port to serve on (default 8000)")
     demo.add_argument("--fast", action="store_true", help="fewer samples (a reading every 2 hours)")
     demo.add_argument("--no-wait", action="store_true", help="stop after the story instead of serving")
     demo.set_defaults(func=_demo)
 
     sim = sub.add_parser("simulate", help="post the cold-store scenario to a running service like a device fleet")
-    sim.add_argument("--url", default="http://127.0.0.1:8000")
+    sim.add_argument("--url", default="http://127.0.0.1:8000", help="the running service (default http://127.0.0.1:8000)")
     sim.add_argument("--days", type=float, default=60.0, help="days of readings (default 60)")
     sim.add_argument("--step-min", type=float, default=30.0, help="minutes between readings (default 30)")
     sim.add_argument("--rate", type=float, default=0.0, help="samples per second at most (default: no cap)")
-    sim.add_argument("--seed", type=int, default=7)
+    sim.add_argument("--seed", type=int, default=7, help="seed of the invented scenario (default 7: the demo's)")
     sim.set_defaults(func=_simulate)
 
     keys = sub.add_parser("keys", help="manage API keys directly in an existing store (never creates one)")
     keys_sub = keys.add_subparsers(dest="keys_command", required=True)
     create = keys_sub.add_parser("create", help="mint a key and print its secret once")
-    create.add_argument("--role", required=True, choices=["admin", "technician", "device"])
+    create.add_argument("--role", required=True, choices=["admin", "technician", "device"], help="what the key may do")
     create.add_argument("--prefix", action="append", help="channel-id prefix a device key may use (repeatable)")
     create.add_argument("--label", help="what the key is for")
     create.add_argument("--db", help=EXISTING_DB)
@@ -152,7 +152,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     rp = sub.add_parser("replay", help="rebuild a channel's state from its log in an existing store; --check "
                                    "compares it")
-    rp.add_argument("channel")
+    rp.add_argument("channel", help="the channel's id")
     rp.add_argument("--from-snapshot", type=int, help="start from this snapshot instead of the creation")
     rp.add_argument("--check", action="store_true", help="compare with the stored state; exit 1 on a mismatch")
     rp.add_argument("--output", help="write the replayed state (JSON) to this file")

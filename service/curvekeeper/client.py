@@ -180,10 +180,12 @@ class Client:
                                            idempotent=False)
         return out
 
-    def rollback(self, channel: str, snapshot: int) -> dict[str, Any]:
-        """Restore snapshot ``snapshot``; the state before is kept as ``snapshot_before``."""
+    def rollback(self, channel: str, snapshot: int, *, set_reference: bool = False) -> dict[str, Any]:
+        """Restore snapshot ``snapshot``; the state before is kept as ``snapshot_before``; with
+        ``set_reference`` the restored curve becomes the reference."""
         out: dict[str, Any] = self.request("POST", f"/v1/channels/{channel}/rollback",
-                                           json={"snapshot": snapshot}, idempotent=False)
+                                           json={"snapshot": snapshot, "set_reference": set_reference},
+                                           idempotent=False)
         return out
 
 

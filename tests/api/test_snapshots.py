@@ -437,7 +437,7 @@ def test_rollback_restores_the_snapshot_bit_for_bit(
     before = store_fingerprint(client)
     out = ok(client.post(ROLLBACK, json={"snapshot": rep["snapshot_after"]}, headers=tech))
     assert out["version"] == 32 and out["restored_snapshot"] == rep["snapshot_after"]
-    assert out["reference"] == "kept"
+    assert out["reference_curve"] == "kept"
     after = store_fingerprint(client)
     assert after["counts"]["snapshot"] == before["counts"]["snapshot"] + 1
     assert after["counts"]["sample"] == before["counts"]["sample"]
@@ -480,7 +480,7 @@ def test_rollback_to_the_state_before_a_calibration(
     ok(client.patch(BASE, json={"drift": {"tolerance": 0.5}}, headers=tech))  # before: settings come back
     rep = calibrate(client, tech, BENCH_Y)
     out = ok(client.post(ROLLBACK, json={"snapshot": rep["snapshot_before"]}, headers=tech))
-    assert out["version"] == 3 and out["reference"] == "kept"
+    assert out["version"] == 3 and out["reference_curve"] == "kept"
     assert predict(client, tech)["y"] == [0.0] * len(X0)
     c0, c1 = rep["poly_coefficients"]
     # the line's largest distance from zero over [0, 100] is at an end (the standard grid holds both)
@@ -507,7 +507,7 @@ def test_rollback_keeps_the_reference_by_default(client: TestClient, keys: Keys,
     tech = keys["technician"]
     a, b = two_calibrations(client, tech)
     out = ok(client.post(ROLLBACK, json={"snapshot": a["snapshot_after"]}, headers=tech))
-    assert out["reference"] == "kept"
+    assert out["reference_curve"] == "kept"
     assert predict(client, tech)["y"] == predict(client, tech, snapshot=a["snapshot_after"])["y"]
     # curve A measured against B, the last calibration's curve: 0.25 apart at x = 0
     assert out["drift"]["max_curve_change"] == pytest.approx(largest_gap(a, b), rel=1e-9)
@@ -524,7 +524,7 @@ def test_rollback_with_set_reference_makes_the_restored_curve_the_reference(
     tech = keys["technician"]
     a, b = two_calibrations(client, tech)
     out = ok(client.post(ROLLBACK, json={"snapshot": a["snapshot_after"], "set_reference": True}, headers=tech))
-    assert out["reference"] == "restored_snapshot"
+    assert out["reference_curve"] == "restored_snapshot"
     assert out["drift"]["max_curve_change"] == 0.0 and out["drift"]["tolerance_state"] == "ok"
     assert predict(client, tech)["y"] == predict(client, tech, snapshot=a["snapshot_after"])["y"]
     (event,) = ok(client.get(EVENTS, params={"kind": "rollback"}, headers=tech))["items"]

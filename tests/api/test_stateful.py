@@ -238,7 +238,7 @@ class ApiMachine(RuleBasedStateMachine):
         body = {"snapshot": sid, "set_reference": set_reference}
         out = self.ok(self.call("POST", f"/v1/channels/{ch}/rollback", body), RollbackAnswer)
         assert out["restored_snapshot"] == sid and out["n_samples"] == self.model[ch].n_samples, out
-        assert out["reference"] == ("restored_snapshot" if set_reference else "kept"), out
+        assert out["reference_curve"] == ("restored_snapshot" if set_reference else "kept"), out
         assert out["service_state"] == self.model[ch].service, out  # a rollback keeps it
         self.seen_version(ch, out["version"], grew=True)
 

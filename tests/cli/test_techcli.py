@@ -150,7 +150,9 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     bench = write_csv(tmp_path / "bench.csv", ["x", "y"], [[x, 1.0 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
     # no terminal and no --yes: refused, nothing sent
     assert main(["calibrate", cid, str(bench)]) == 2
-    assert "--yes" in capsys.readouterr().err and api.get_channel(cid)["version"] == 0
+    cap = capsys.readouterr()
+    assert "--yes" in cap.err and api.get_channel(cid)["version"] == 0
+    assert "does not replace traceable, accredited calibration" in cap.out  # the caution, before acting
     # a terminal, answered no
     monkeypatch.setattr(sys, "stdin", Terminal("n\n"))
     assert main(["calibrate", cid, str(bench)]) == 2
@@ -202,14 +204,18 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
     monkeypatch.setattr(sys, "stdin", Terminal("yes\n"))
     assert main(["rollback", cid, str(undo)]) == 0
-    assert f"rolled back to snapshot {undo}" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert f"rolled back to snapshot {undo}" in out and "does not replace traceable, accredited" in out
+    assert "stays the last calibration's" in out and "reference kept" in out
     assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.0)
     assert api.get_channel(cid)["version"] > first
     # --yes needs no terminal
     monkeypatch.setattr(sys, "stdin", io.StringIO(""))
-    assert main(["rollback", cid, str(taken), "--yes"]) == 0
+    assert main(["rollback", cid, str(taken), "--yes", "--set-reference"]) == 0
     assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
-    capsys.readouterr()
+    out = capsys.readouterr().out
+    assert "becomes the restored one" in out and "reference restored_snapshot" in out
+    assert api.get_channel(cid)["drift"]["max_curve_change"] == 0.0  # measured against the restored curve
 
 
 def test_diff_and_rollback_show_the_services_figure(api: Client, tmp_path: Path,

@@ -104,14 +104,14 @@ def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | No
                                   limit=limit + 1)
         for ch, st in rows:
             if len(items) == limit and state is None:  # every row is listed: this one opens the next page
-                return Page(items, encode_cursor(after))
+                return Page(items, None if after is None else encode_cursor(after))
             try:
                 item = view(ch, st, unit.read_model(st))
             except StateDamaged as exc:
                 item = damaged_item(ch, st, exc)
             if state is None or (item.get("state") == DAMAGED) == (state == DAMAGED):
                 if len(items) == limit:
-                    return Page(items, encode_cursor(after))
+                    return Page(items, None if after is None else encode_cursor(after))
                 items.append(item)
             after = ch.pk
         if len(rows) <= limit:

@@ -117,5 +117,5 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
     out = view(ch, st, model)
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id
-    out["reference"] = "restored_snapshot" if set_reference else "kept"
+    out["reference_curve"] = "restored_snapshot" if set_reference else "kept"
     return out

@@ -11,7 +11,7 @@ from urllib.parse import urlencode
 
 from ..client import Client, ClientError
 from ..csvcells import TextSafeWriter
-from .common import EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
+from .common import CAUTION, EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
 from .csvfiles import read_points
 
 
@@ -157,10 +157,13 @@ def rollback(client: Client, args: argparse.Namespace) -> int:
           f"({snap.get('reason')}, version {snap.get('version')}, {snap.get('created_at')})")
     print(f"  now vs the snapshot: {line}")
     print("  the current state is snapshotted first, so this can itself be rolled back")
+    print("  the reference curve " + ("becomes the restored one" if args.set_reference
+                                      else "stays the last calibration's (--set-reference to change it)"))
+    print(f"  {CAUTION}")
     _confirm(f"Roll {args.channel} back to snapshot {args.snapshot}?", args.yes)
-    out = client.rollback(args.channel, args.snapshot)
+    out = client.rollback(args.channel, args.snapshot, set_reference=args.set_reference)
     print(f"rolled back to snapshot {args.snapshot}; the state before is kept as snapshot "
-          f"{out.get('snapshot_before')} (version now {out.get('version')})")
+          f"{out.get('snapshot_before')} (version now {out.get('version')}); reference {out.get('reference_curve')}")
     return 0
 
 
@@ -172,6 +175,7 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
     print(f"{args.channel}: fit {len(points)} point(s) from {path} by least squares; this replaces the "
           f"current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples learned)")
     print("  the current state is kept as a snapshot, so the calibration can be rolled back")
+    print(f"  {CAUTION}")
     _confirm(f"Calibrate {args.channel} now?", args.yes)
     body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
     if args.label is not None:

@@ -16,6 +16,10 @@ import httpx
 
 from ..client import Client, ClientError
 
+#: said where a technician acts on a curve (rollback, calibrate): the service is no calibration
+CAUTION = ("Caution: curvekeeper supports calibration work; it does not replace traceable, accredited "
+           "calibration nor the regulations where the sensor is used.")
+
 DEFAULT_URL = "http://127.0.0.1:8000"
 CHANNEL_ID = re.compile(r"^[a-z0-9._-]{1,128}$")
 PAGE = 1000  # the service's largest page

@@ -84,5 +84,5 @@ class RollbackAnswer(ChannelPublic):
 
     snapshot_before: int = Field(description="snapshot of the state the rollback replaced")
     restored_snapshot: int
-    reference: Literal["kept", "restored_snapshot"] = Field(
+    reference_curve: Literal["kept", "restored_snapshot"] = Field(
         description="the reference curve in force: the one before the rollback (kept) or the restored curve")
