@@ -197,12 +197,19 @@ def test_fleet_lists_channels_needing_attention_first_and_filters(tab: Tab, serv
     assert rows.count() == len(channels)
     ids = [rows.nth(i).get_attribute("data-channel") for i in range(rows.count())]
     attention = [c["id"] for c in channels
-                 if c["drift"]["state"] in ("alarm", "warning") or c["drift"]["tolerance_state"] == "out_of_tolerance"]
-    # the story leaves coldstore.dock.p1 out of tolerance (the rollback test, later in this
-    # module, brings it back)
-    assert attention and set(ids[:len(attention)]) == set(attention)
+                 if c["drift"]["state"] in ("alarm", "warning") or c["drift"]["tolerance_state"] == "out_of_tolerance"
+                 or c["service_state"] == "out_of_service"]
+    # the story leaves coldstore.dock.p1 in alarm and out of tolerance, and the faulty probe
+    # out of service after its rollback (the rollback test, later in this module, changes them)
+    assert "coldstore.produce.p2" in attention and "coldstore.dock.p1" in attention
+    assert set(ids[:len(attention)]) == set(attention)
     first = page.locator("#fleet-table tbody tr").first
     assert "degC" in first.text_content()  # rmse and curve change carry their unit
+    # a statistic is shown against its alarm level, and a probe out of service says so
+    assert " of 12" in first.text_content()
+    faulty = page.locator("#fleet-table tbody tr[data-channel='coldstore.produce.p2']")
+    assert "out of service" in faulty.text_content()
+    assert "updated" in page.text_content("#fleet-summary")
     shot(page, "fleet.png")
 
     page.fill("#prefix", "coldstore.chill.")
@@ -233,6 +240,13 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     assert page.locator("#residual-plot .scatterlayer .points path").count() > 50
     assert "degC" in page.text_content("#channel-facts") and "ohm" in page.text_content("#curve-caption")
     assert "does not replace" in page.text_content(".caution")
+    # the statistic against its alarm level; an event from a sample at its measurement time,
+    # the time the service received it beside it
+    assert " of 12 " in page.text_content("#channel-facts")
+    alarm = served.api.get(f"/v1/channels/{cid}/events?kind=drift_alarm").json()["items"][0]
+    measured = alarm["details"]["measured_at"]
+    assert measured[:10] < alarm["at"][:10]  # the story's samples are from weeks before they were sent
+    assert "received" in page.locator("#event-table tbody tr[data-kind='drift_alarm']").first.text_content()
 
     snaps = served.api.get(f"/v1/channels/{cid}/snapshots").json()["items"]
     day0 = next(s for s in snaps if s["reason"] == "calibration")

@@ -145,8 +145,9 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     for e in events:
         k = e.pop("index")
         kind = e.pop("kind")
+        # when it happened is the sample's measurement time (the event's own time is its receipt)
         event_rows.append({"channel_pk": st.channel_pk, "kind": kind, "version": v0 + k + 1, "key_id": key_id,
-                           "details": {"sample_seq": n0 + k + 1, **e}})
+                           "details": {"sample_seq": n0 + k + 1, "measured_at": times[k].isoformat(), **e}})
     repo.insert_events(event_rows)
     n_kept = len(keep)
     rejected = [{"index": i, "reason": status[k]} for k, i in enumerate(keep) if status[k] != "accepted"]

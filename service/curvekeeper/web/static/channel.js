@@ -51,7 +51,7 @@ function renderFacts() {
     (o.transform && o.transform !== "none" ? `, fitted as ${o.transform}(y + ${num(o.offset || 0, o.unit, 8)})` : ""));
   fact(dl, "basis", JSON.stringify(ch.basis));
   fact(dl, "learner", JSON.stringify(ch.learner));
-  fact(dl, "drift", CK.badge(d.state), ` ${d.detector} statistic ${num(d.statistic, "", 3)} ` +
+  fact(dl, "drift", CK.badge(d.state), ` ${d.detector} statistic ${num(d.statistic, "", 3)} of ${num(d.alarm, "", 3)} ` +
     `(warning at ${num(d.warning, "", 3)}, alarm at ${num(d.alarm, "", 3)}; standardised residuals, no unit)`);
   fact(dl, "tolerance", ...(d.tolerance_state
     ? [CK.badge(d.tolerance_state), ` curve moved ${num(d.max_curve_change, outUnit(), 3)} from the last calibration ` +
@@ -160,6 +160,7 @@ function eventSummary(ev) {
   for (const [k, v] of Object.entries(d)) {
     if (k === "points" && Array.isArray(v)) { parts.push(`${v.length} points`); continue; }
     if (k === "config") { parts.push("configuration"); continue; }
+    if (k === "measured_at") continue;  // shown as the event's time
     if (v === null || v === undefined) continue;
     const fitted = page.ch.output.transform && page.ch.output.transform !== "none";
     const unit = ["max_curve_change", "rmse_output", "tolerance"].includes(k) ? outUnit()
@@ -174,8 +175,13 @@ function eventSummary(ev) {
 
 function renderEvents(events) {
   const { el } = CK;
+  // when it happened: the sample's measurement time where the event came from a sample, with
+  // the time the service received it beside it
+  const when = (ev) => (ev.details && ev.details.measured_at)
+    ? [CK.when(ev.details.measured_at), " ", el("small", { class: "received", text: `received ${CK.when(ev.at)}` })]
+    : [CK.when(ev.at)];
   const rows = events.slice().reverse().slice(0, 300).map((ev) => el("tr", { "data-kind": ev.kind },
-    el("td", { text: CK.when(ev.at) }),
+    el("td", {}, ...when(ev)),
     el("td", { text: ev.kind.replace(/_/g, " ") }),
     el("td", { class: "num", text: ev.version === null ? "" : String(ev.version) }),
     el("td", { text: eventSummary(ev) })));
