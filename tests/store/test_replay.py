@@ -94,9 +94,9 @@ def lifecycle(client: TestClient, admin: dict[str, str]) -> str:
     # the effect of each rollback lasts to the end (no calibration comes after them): the first
     # calibration's curve becomes the reference, then a curve that learnt the offset comes back
     assert call("rollback", {"snapshot": first["snapshot_after"], "set_reference": True}
-                )["reference"] == "restored_snapshot"
+                )["reference_curve"] == "restored_snapshot"
     feed(client, admin, ch, 30, 400, seed=5)
-    assert call("rollback", {"snapshot": learned})["reference"] == "kept"
+    assert call("rollback", {"snapshot": learned})["reference_curve"] == "kept"
     # on the line: the alarm acknowledged above is not raised again (a replay without the
     # acknowledgement would end in alarm)
     assert feed(client, admin, ch, 30, 500, seed=6)["drift"]["state"] == "ok"
