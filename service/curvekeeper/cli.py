@@ -104,7 +104,10 @@ def _demo(args: argparse.Namespace) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="curvekeeper", description="Online calibration service for sensor fleets.")
+    p = argparse.ArgumentParser(prog="curvekeeper", description="Online calibration service for sensor fleets.",
+                                epilog="Caution: curvekeeper supports calibration work; it does not replace "
+                                       "traceable, accredited calibration, nor the regulations that apply where "
+                                       "the sensors are used.")
     sub = p.add_subparsers(dest="command", required=True)
 
     serve = sub.add_parser("serve", help="run the HTTP service")

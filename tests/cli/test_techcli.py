@@ -350,3 +350,25 @@ def test_two_input_channel(api: Client, tmp_path: Path, capsys: pytest.CaptureFi
     assert main(["curve", cid, "--points", "9"]) == 0
     out = capsys.readouterr().out
     assert out.splitlines()[0].split()[:4] == ["raw", "[mV]", "tc", "[degC]"]
+
+
+def test_help_carries_the_caution_and_every_argument_its_help(capsys: pytest.CaptureFixture[str]) -> None:
+    import argparse
+
+    from curvekeeper.cli import build_parser
+
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    assert "does not replace traceable, accredited calibration" in " ".join(capsys.readouterr().out.split())
+    missing = []
+
+    def walk(parser: argparse.ArgumentParser, where: str) -> None:
+        for action in parser._actions:
+            if isinstance(action, argparse._SubParsersAction):
+                for name, sub in action.choices.items():
+                    walk(sub, f"{where} {name}")
+            elif not isinstance(action, argparse._HelpAction) and not action.help:
+                missing.append(f"{where}: {'/'.join(action.option_strings) or action.dest}")
+
+    walk(build_parser(), "curvekeeper")
+    assert missing == []

@@ -36,6 +36,7 @@ def test_the_demo_flags_the_faulty_probe_only_and_its_rollback_restores_the_snap
     # the command line and the admin commands find the demo (another port than 8000 here)
     assert f"export CURVEKEEPER_URL={result.url}" in text and f"export CURVEKEEPER_KEY={result.key}" in text
     assert f"--db sqlite:///{tmp_path / 'demo.db'}" in text
+    assert "does not replace traceable, accredited calibration" in text  # the closing caution
 
 
 def test_the_demo_tells_its_progress_without_a_terminal() -> None:

@@ -274,6 +274,7 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     dialog.wait_for(state="visible")
     says = dialog.text_content()
     assert f"snapshot {day0['id']}" in says and f"version becomes {before['version'] + 1}" in says
+    assert "does not replace" in says  # the caution where the technician acts
     assert "degC" in says
     shot(page, "rollback-confirm.png")
     page.click("#rollback-cancel")  # cancel changes nothing
@@ -324,6 +325,7 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     report = page.text_content("#calibrate-report")
     assert f"{len(cal['details']['points'])}" in report and "degC" in report and "R²" in report
     assert served.api.get(f"/v1/channels/{cid}").json()["version"] == before["version"]
+    assert "does not replace" in page.text_content("#calibrate-caution")  # beside the button that acts
     page.click("#calibrate-apply")
     page.wait_for_selector("#calibrate-message.done")
     page.wait_for_selector(f"body[data-loaded='{before['version'] + 1}']")

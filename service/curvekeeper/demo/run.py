@@ -96,6 +96,8 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         auth = f"curl -s -H 'Authorization: Bearer {key}'"
         say(f"Try: {auth} '{url}/v1/channels/{scenario.FAULTY}/events?kind=drift_alarm'")
         say(f"     {auth} '{url}/v1/channels?state=out_of_tolerance'")
+        say("Caution: the story is invented. curvekeeper supports calibration work; it does not replace "
+            "traceable, accredited calibration, nor the regulations where the sensors are used.")
         if keep_running:
             say("Ctrl-C stops it.")
             if threading.current_thread() is threading.main_thread():
