@@ -489,14 +489,14 @@ class NewInput(InputSpec):
     """An input of a new channel: its unit is required."""
 
     NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ()
-    unit: StatedUnit  # type: ignore[assignment]
+    unit: StatedUnit
 
 
 class NewOutput(OutputSpec):
     """The output of a new channel: its unit is required."""
 
     NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("name",)
-    unit: StatedUnit  # type: ignore[assignment]
+    unit: StatedUnit
 
 
 class NewChannel(ChannelConfig):
@@ -506,7 +506,7 @@ class NewChannel(ChannelConfig):
 
     NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("description", "basis", "learner", "drift")
     inputs: Annotated[list[NewInput], Field(min_length=1, max_length=MAX_INPUTS)]  # type: ignore[assignment]
-    output: NewOutput  # type: ignore[assignment]
+    output: NewOutput
 
 
 #: the highest polynomial degree taken without a warning (common practice: beyond it a
