@@ -6,7 +6,8 @@ from __future__ import annotations
 from typing import Any
 
 import pytest
-from curvekeeper.channel_config import EXAMPLE, ChannelConfig, channel_config
+from curvekeeper.actions.channels import merge, validated
+from curvekeeper.channel_config import EXAMPLE, ChannelConfig, NewChannel, channel_config, warnings_for
 from curvekeeper.core.drift import DETECTOR_DEFAULTS
 from pydantic import ValidationError
 
@@ -258,3 +259,52 @@ def test_the_schema_describes_each_kind() -> None:
     sgd = schema["$defs"]["SgdLearner"]["properties"]["schedule"]
     assert set(sgd["discriminator"]["mapping"]) == {"constant", "inverse_time", "step", "normalized"}
     assert set(schema["required"]) == {"id", "inputs"}
+
+
+# units: a new channel states them; a channel stored without them keeps working -------------
+
+NEW: dict[str, Any] = {"id": "site-a.p1", "inputs": [{"name": "raw", "unit": "ohm", "min": 1000, "max": 40000}],
+                       "output": {"name": "temperature", "unit": "degC"}}
+
+
+@pytest.mark.parametrize(("body", "loc", "kind"), [
+    ({**NEW, "inputs": [{"name": "raw", "min": 1000, "max": 40000}]}, ("inputs", 0, "unit"), "missing"),
+    ({**NEW, "inputs": [{"name": "raw", "unit": "", "min": 1000, "max": 40000}]}, ("inputs", 0, "unit"),
+     "value_error"),
+    ({**NEW, "inputs": [NEW["inputs"][0], {"name": "tc", "unit": "  ", **ONE}]}, ("inputs", 1, "unit"),
+     "value_error"),
+    ({**NEW, "inputs": [{"name": "raw", "unit": None, "min": 1000, "max": 40000}]}, ("inputs", 0, "unit"),
+     "string_type"),
+    ({**NEW, "output": {"name": "temperature"}}, ("output", "unit"), "missing"),
+    ({**NEW, "output": {"name": "temperature", "unit": " "}}, ("output", "unit"), "value_error"),
+    ({k: v for k, v in NEW.items() if k != "output"}, ("output",), "missing"),
+])
+def test_a_new_channel_must_state_its_units(body: dict[str, Any], loc: tuple[Any, ...], kind: str) -> None:
+    with pytest.raises(ValidationError) as exc:
+        NewChannel.model_validate(body)
+    (first,) = exc.value.errors()
+    assert (first["loc"], first["type"]) == (loc, kind), first
+    assert NewChannel.model_validate(NEW).model_dump(mode="json") == channel_config(NEW)
+
+
+def test_a_channel_stored_without_units_still_validates_through_the_patch_path() -> None:
+    """Channels created before units were required have empty units: a PATCH merges its
+    changes into the stored config and re-validates that with ChannelConfig, not NewChannel."""
+    stored = channel_config({"id": "site-a.old", "inputs": [{"name": "raw", "min": 0, "max": 100}]})
+    assert stored["inputs"][0]["unit"] == "" and stored["output"]["unit"] == ""
+    config = validated(merge(stored, {"drift": {"tolerance": 0.5}}))
+    assert config == {**stored, "drift": {**stored["drift"], "tolerance": 0.5}}
+
+
+@pytest.mark.parametrize(("basis", "warned"), [
+    ({"kind": "poly", "degree": 8}, True), ({"kind": "poly", "degree": 15}, True),
+    ({"kind": "poly", "degree": 7}, False), ({"kind": "poly", "degree": 3}, False),
+    ({"kind": "hinge", "knots": [2000, 10000]}, False),
+])
+def test_a_polynomial_degree_above_7_is_taken_with_a_warning(basis: dict[str, Any], warned: bool) -> None:
+    """Common practice: a polynomial of high degree fitted to points swings between them
+    (Runge's phenomenon); degree 7 is where the warning starts."""
+    said = warnings_for(channel_config({**NEW, "basis": basis}))
+    assert said == ([f"basis.degree is {basis['degree']}: a polynomial of degree above 7 swings between the "
+                     f"points it is fitted to (Runge's phenomenon); prefer degree 7 or less, or a hinge or rbf "
+                     f"basis"] if warned else [])

@@ -74,6 +74,10 @@ def _plain(v: str) -> str:
 #: text without control characters
 Plain = Annotated[str, AfterValidator(_plain)]
 Text = Annotated[Plain, Field(max_length=MAX_TEXT)]
+MAX_REASON = 500
+#: why a person did something (a rollback, a calibration): 1 to 500 characters of plain text
+Reason = Annotated[Plain, Field(min_length=1, max_length=MAX_REASON,
+                                examples=["reference probe replaced after the bench check"])]
 #: lower-case letters, digits, '.', '_' and '-', not dots only: '.' and '..' are path
 #: segments a URL resolves away, so such a channel could not be reached
 CHANNEL_ID_PATTERN = r"^[a-z0-9._-]*[a-z0-9_-][a-z0-9._-]*$"
@@ -469,6 +473,55 @@ class ChannelConfig(ChannelSettings):
                               json_schema_extra={"examples": [cast(JsonValue, EXAMPLE)]})
 
     id: ChannelId
+
+
+def _stated(v: str) -> str:
+    if not v.strip():
+        raise ValueError("must name the unit (e.g. degC, ohm, mV); it is empty")
+    return v
+
+
+#: a unit as a new channel states it: some text besides spaces
+StatedUnit = Annotated[Text, AfterValidator(_stated), Field(examples=["degC"])]
+
+
+class NewInput(InputSpec):
+    """An input of a new channel: its unit is required."""
+
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ()
+    unit: StatedUnit
+
+
+class NewOutput(OutputSpec):
+    """The output of a new channel: its unit is required."""
+
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("name",)
+    unit: StatedUnit
+
+
+class NewChannel(ChannelConfig):
+    """The body of ``POST /v1/channels``: a channel states the unit of its output and of each
+    input. Channels stored before units were required keep their empty units: what PATCH
+    re-validates is ``ChannelConfig``, which does not ask for them."""
+
+    NULL_IS_DEFAULT: ClassVar[tuple[str, ...]] = ("description", "basis", "learner", "drift")
+    inputs: Annotated[list[NewInput], Field(min_length=1, max_length=MAX_INPUTS)]  # type: ignore[assignment]
+    output: NewOutput
+
+
+#: the highest polynomial degree taken without a warning (common practice: beyond it a
+#: polynomial fitted to points swings between them, Runge's phenomenon)
+QUIET_DEGREE = 7
+
+
+def warnings_for(config: dict[str, Any]) -> list[str]:
+    """What a validated configuration allows but a person should know, one sentence each."""
+    basis = config["basis"]
+    if basis["kind"] == "poly" and basis["degree"] > QUIET_DEGREE:
+        return [f"basis.degree is {basis['degree']}: a polynomial of degree above {QUIET_DEGREE} swings between "
+                f"the points it is fitted to (Runge's phenomenon); prefer degree {QUIET_DEGREE} or less, or a "
+                f"hinge or rbf basis"]
+    return []
 
 
 def channel_config(body: Any) -> dict[str, Any]:

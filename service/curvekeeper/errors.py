@@ -17,6 +17,7 @@ errors, ``curvekeeper.core.errors``, too).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
@@ -112,10 +113,88 @@ def field_path(loc: Sequence[Any]) -> str:
     return out
 
 
+#: pydantic's plain type names, which it puts in a location for a member of a union
+_TYPE_NAMES = frozenset({"int", "float", "str", "bool", "list", "dict", "none", "datetime"})
+_MEMBER = re.compile(r"[-\[\]]")
+
+
+def _is_member(part: Any) -> bool:
+    """A member of a union as pydantic names it in a location (``constrained-float``,
+    ``list[constrained-float]``, a model's class name), never a field: fields are snake_case."""
+    return isinstance(part, str) and (bool(_MEMBER.search(part)) or part[:1].isupper() or part in _TYPE_NAMES)
+
+
+#: what is wrong, in the field's own words, by pydantic's error type
+SENTENCES = {
+    "missing": "is required", "extra_forbidden": "is not a known field",
+    "float_type": "must be a finite number", "float_parsing": "must be a finite number",
+    "finite_number": "must be a finite number", "int_type": "must be a whole number",
+    "int_parsing": "must be a whole number", "int_from_float": "must be a whole number",
+    "bool_type": "must be true or false", "bool_parsing": "must be true or false", "string_type": "must be text",
+    "list_type": "must be a list", "dict_type": "must be an object", "model_type": "must be an object",
+    "model_attributes_type": "must be an object", "datetime_type": "must be an ISO-8601 date-time with a time zone",
+    "datetime_parsing": "must be an ISO-8601 date-time with a time zone",
+    "datetime_from_date_parsing": "must be an ISO-8601 date-time with a time zone",
+    "timezone_aware": "must have a time zone (e.g. Z or +02:00)", "union_tag_not_found": "is required",
+}
+BOUNDS = {"greater_than": ("gt", "must be greater than"), "greater_than_equal": ("ge", "must be at least"),
+          "less_than": ("lt", "must be less than"), "less_than_equal": ("le", "must be at most")}
+#: pydantic's phrasing of the errors not listed above, turned into ours
+_REWORDS = ((re.compile(r"^(Input|Value|List|String) should (be|have)"), r"must \2"),
+            (re.compile(r"^Field required$"), "is required"), (re.compile(r" after validation"), ""),
+            (re.compile(r"^(Value error|Assertion failed), "), ""))
+
+
+def _number(v: Any) -> str:
+    if isinstance(v, float) and v.is_integer() and abs(v) < 1e16:
+        return str(int(v))
+    return f"{v:g}".replace("e+", "e") if isinstance(v, float) else str(v)
+
+
+def sentence(error: Mapping[str, Any]) -> str:
+    """What is wrong with the field, as a sentence without its name ("must be a finite number")."""
+    kind, ctx, msg = str(error.get("type", "")), error.get("ctx") or {}, str(error.get("msg", ""))
+    if kind in SENTENCES:
+        return SENTENCES[kind]
+    if kind in BOUNDS and BOUNDS[kind][0] in ctx:
+        key, words = BOUNDS[kind]
+        return f"{words} {_number(ctx[key])}"
+    n = ctx.get("min_length", ctx.get("max_length"))
+    if kind in ("too_short", "too_long", "string_too_short", "string_too_long") and n is not None:
+        text = kind.startswith("string") or isinstance(error.get("input"), str)
+        if kind.endswith("short"):
+            return "must not be empty" if n == 1 else f"must {'be' if text else 'have'} at least {n} " \
+                f"{'characters' if text else 'items'}"
+        return f"must {'be' if text else 'have'} at most {n} {'characters' if text else 'items'}"
+    if kind == "literal_error" and "expected" in ctx:
+        return f"must be {ctx['expected']}"
+    if kind == "union_tag_invalid" and "expected_tags" in ctx:
+        return f"must be one of {ctx['expected_tags']}"
+    if kind == "string_pattern_mismatch" and "pattern" in ctx:
+        return f"must match the pattern {ctx['pattern']}"
+    for pattern, words in _REWORDS:
+        msg = pattern.sub(words, msg)
+    return msg
+
+
 def validation_details(errors: Iterable[Mapping[str, Any]], prefix: tuple[str, ...] = ()) -> list[dict[str, Any]]:
-    """Validation errors as the error body's details: each ``loc`` (strings), ``msg`` and ``type``."""
-    return [{"loc": [str(p) for p in (*prefix, *e.get("loc", ()))], "msg": str(e.get("msg", "")),
-             "type": str(e.get("type", ""))} for e in errors]
+    """Validation errors as the error body's details: each ``loc`` (the field's path, strings),
+    ``msg`` (a sentence) and ``type``. The members of a union pydantic tried are not named:
+    of one union's errors the one that reached deepest into the value stands for them all."""
+    out: list[dict[str, Any]] = []
+    union: dict[tuple[Any, ...], int] = {}  # the location of a union -> its error's index in out
+    for e in errors:
+        loc = (*prefix, *e.get("loc", ()))
+        cut = next((i for i, p in enumerate(loc) if _is_member(p)), None)
+        item = {"loc": [str(p) for p in loc if not _is_member(p)], "msg": sentence(e), "type": str(e.get("type", ""))}
+        if cut is None:
+            out.append(item)
+        elif loc[:cut] not in union:
+            union[loc[:cut]] = len(out)
+            out.append(item)
+        elif len(item["loc"]) > len(out[union[loc[:cut]]]["loc"]):
+            out[union[loc[:cut]]] = item
+    return out
 
 
 def validation_message(errors: Sequence[Mapping[str, Any]]) -> str:

@@ -16,6 +16,7 @@ from typing import Any
 import httpx
 import numpy as np
 import pytest
+from curvekeeper.actions.unit import summary_columns
 from curvekeeper.channel_config import EXAMPLE, channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.store.tables import Channel, ChannelState
@@ -23,7 +24,7 @@ from fastapi.testclient import TestClient
 from scipy import stats
 from sqlalchemy import select
 
-from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
+from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error, expect_error, ok
 from tests.conftest import LINEAR, store_fingerprint
 
 CHANNELS = "/v1/channels"
@@ -123,10 +124,16 @@ def test_create_without_key_and_broken_json_is_401(client: TestClient, keys: Key
 
 
 def _with(**changes: Any) -> dict[str, Any]:
+    """LINEAR with these changes; inputs and an output given without a unit get one, so
+    that the field a case is about is the only one at fault."""
     body: dict[str, Any] = {"id": "site-a.bad", **copy.deepcopy(LINEAR)}
     for k, v in changes.items():
         if v is _DROP:
             del body[k]
+        elif k == "inputs" and isinstance(v, list):
+            body[k] = [{"unit": "mV", **i} if isinstance(i, dict) else i for i in v]
+        elif k == "output" and isinstance(v, dict):
+            body[k] = {"unit": "V", **v}
         else:
             body[k] = v
     return body
@@ -227,17 +234,15 @@ def test_create_log_poly_over_a_range_through_zero_is_422(client: TestClient, ke
     assert store_fingerprint(client) == before
 
 
+#: a body with units, opened up to its first input's range ("min": ..., "max": ...)
+_BAD = '{"id": "site-a.bad", "output": {"unit": "V"}, "inputs": [{"name": "raw", "unit": "mV", '
 NON_FINITE_CONFIGS = [
-    ("min NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": NaN, "max": 1}]}', "inputs[0].min"),
-    ("max Infinity", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": Infinity}]}',
-     "inputs[0].max"),
-    ("min -1e400", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": -1e400, "max": 1}]}', "inputs[0].min"),
-    ("outlier_sd NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], "outlier_sd": NaN}',
-     "outlier_sd"),
-    ("tolerance NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], '
-     '"drift": {"tolerance": NaN}}', "drift.tolerance"),
-    ("coverage_factor NaN", '{"id": "site-a.bad", "inputs": [{"name": "raw", "min": 0, "max": 1}], '
-     '"coverage_factor": NaN}', "coverage_factor"),
+    ("min NaN", _BAD + '"min": NaN, "max": 1}]}', "inputs[0].min"),
+    ("max Infinity", _BAD + '"min": 0, "max": Infinity}]}', "inputs[0].max"),
+    ("min -1e400", _BAD + '"min": -1e400, "max": 1}]}', "inputs[0].min"),
+    ("outlier_sd NaN", _BAD + '"min": 0, "max": 1}], "outlier_sd": NaN}', "outlier_sd"),
+    ("tolerance NaN", _BAD + '"min": 0, "max": 1}], "drift": {"tolerance": NaN}}', "drift.tolerance"),
+    ("coverage_factor NaN", _BAD + '"min": 0, "max": 1}], "coverage_factor": NaN}', "coverage_factor"),
 ]
 
 
@@ -288,7 +293,7 @@ def test_create_booleans_and_text_are_not_numbers(client: TestClient, keys: Keys
 def test_create_with_an_existing_id_is_409(client: TestClient, keys: Keys, make_channel: Any) -> None:
     make_channel("site-a.p1")
     before = store_fingerprint(client)
-    other = {"id": "site-a.p1", "inputs": [{"name": "v", "min": -1, "max": 1}]}
+    other = {"id": "site-a.p1", "inputs": [{"name": "v", "unit": "V", "min": -1, "max": 1}], "output": {"unit": "V"}}
     r = client.post(CHANNELS, json=other, headers=keys["technician"])
     assert_error(r, 409, "channel_exists")
     assert store_fingerprint(client) == before
@@ -296,7 +301,8 @@ def test_create_with_an_existing_id_is_409(client: TestClient, keys: Keys, make_
 
 
 def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> None:
-    body = {"id": "site-a.p1", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}]}
+    body = {"id": "site-a.p1", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+            "output": {"unit": "kPa"}}
     r = client.post(CHANNELS, json=body, headers=keys["technician"])
     assert r.status_code == 201, r.text
     ch = r.json()
@@ -311,7 +317,7 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     assert ch["drift"]["tolerance"] is None  # no tolerance check
     assert ch["outlier_sd"] == 6.0
     assert ch["snapshot_every"] == 1000
-    assert ch["output"]["transform"] == "none"  # "default none"
+    assert ch["output"] == {"name": "value", "unit": "kPa", "transform": "none", "offset": 0.0}  # "default none"
     assert ch["coverage_factor"] is None  # k from Student's t at the effective degrees of freedom
     assert ch["coverage"] == 0.95 and ch["reference"] is None and ch["range_margin"] == 1.0
     # the summary of a new channel
@@ -325,6 +331,7 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     # what was answered is what is stored
     got = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"])
     assert got.status_code == 200
+    assert ch.pop("warnings") == []  # the create answer alone says what a person should know
     assert got.json() == ch
 
 
@@ -778,3 +785,50 @@ def test_patch_guard_settings(client: TestClient, keys: Keys, make_channel: Any)
     ch = client.get(f"{CHANNELS}/site-a.p1", headers=keys["technician"]).json()
     assert ch["outlier_sd"] is None and ch["snapshot_every"] == 50 and ch["description"] == "bench"
     assert ch["version"] == 1
+
+
+# units, warnings, and channels stored before units were required ---------------------------
+
+def test_create_without_a_unit_is_422_naming_it(client: TestClient, keys: Keys) -> None:
+    cases = Cases()
+    for name, body, message in [
+        ("input unit missing", {"id": "site-a.u", "inputs": [{"name": "raw", "min": 0, "max": 1}],
+                                "output": {"unit": "V"}}, "inputs[0].unit: is required"),
+        ("input unit blank", {"id": "site-a.u", "inputs": [{"name": "raw", "unit": "  ", "min": 0, "max": 1}],
+                              "output": {"unit": "V"}}, "inputs[0].unit: must name the unit (e.g. degC, ohm, mV); "
+                                                        "it is empty"),
+        ("output unit missing", {"id": "site-a.u", **LINEAR, "output": {"name": "pressure"}},
+         "output.unit: is required"),
+        ("output missing", {"id": "site-a.u", "inputs": LINEAR["inputs"]}, "output: is required"),
+    ]:
+        with cases.case(name):
+            err = expect_error(client, "POST", CHANNELS, 422, "validation_error", headers=keys["technician"],
+                               json=body)
+            assert err["message"] == message, err
+    cases.done()
+
+
+def test_create_answers_a_warning_for_a_polynomial_above_degree_7(client: TestClient, keys: Keys) -> None:
+    """Common practice: a high-degree polynomial swings between the points it is fitted to."""
+    high = ok(client.post(CHANNELS, json={"id": "site-a.d8", **LINEAR, "basis": {"kind": "poly", "degree": 8}},
+                          headers=keys["technician"]), 201)
+    (said,) = high["warnings"]
+    assert said.startswith("basis.degree is 8: a polynomial of degree above 7 swings between"), said
+    low = ok(client.post(CHANNELS, json={"id": "site-a.d3", **LINEAR, "basis": {"kind": "poly", "degree": 3}},
+                         headers=keys["technician"]), 201)
+    assert low["warnings"] == []
+    # the channel as read has no warnings field: only the create answer speaks
+    assert "warnings" not in ok(client.get(f"{CHANNELS}/site-a.d8", headers=keys["technician"]))
+
+
+def test_a_channel_stored_without_units_is_read_listed_and_patched(client: TestClient, keys: Keys) -> None:
+    """A store from before units were required: the channel row holds empty units."""
+    config = channel_config({"id": "site-a.old", "inputs": [{"name": "raw", "min": 0, "max": 100}]})
+    model = ChannelModel.from_config(config)
+    with client.app.state.ctx.work.unit(write=True) as unit:  # type: ignore[attr-defined]
+        unit.repo.create_channel("site-a.old", config, model.to_state(), summary_columns(model))
+    tech = keys["technician"]
+    assert ok(client.get(f"{CHANNELS}/site-a.old", headers=tech))["output"]["unit"] == ""
+    assert [c["id"] for c in ok(client.get(CHANNELS, headers=tech))["items"]] == ["site-a.old"]
+    patched = ok(client.patch(f"{CHANNELS}/site-a.old", json={"drift": {"tolerance": 0.5}}, headers=tech))
+    assert patched["drift"]["tolerance"] == 0.5 and patched["inputs"][0]["unit"] == ""

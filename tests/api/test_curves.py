@@ -917,3 +917,31 @@ def test_calibrate_dry_run_reports_the_fit_and_changes_nothing(client: TestClien
     assert applied["applied"] is True
     for key in ("weights", "poly_coefficients", "residual_sd", "r_squared", "max_curve_change"):
         assert applied[key] == preview.json()[key], key
+
+
+# the reason a person gives for a calibration -------------------------------------------------
+
+BENCH = [{"x": 0.0, "y": 0.0}, {"x": 50.0, "y": 100.0}, {"x": 100.0, "y": 200.0}]
+#: reasons the request schema refuses: empty, over 500 characters, a line break, a NUL
+BAD_REASONS = ["", "x" * 501, "bench check\nsecond line", "a\x00b"]
+
+
+def test_a_bad_calibration_reason_is_422_and_fits_nothing(client: TestClient, keys: Keys,
+                                                          channel: dict[str, Any]) -> None:
+    for reason in BAD_REASONS:
+        err = expect_error(client, "POST", CALIBRATE, 422, "validation_error", headers=keys["technician"],
+                           json={"points": BENCH, "reason": reason})
+        assert err["message"].startswith("reason: "), (reason, err)
+
+
+def test_a_calibration_reason_is_kept_in_the_event_and_the_audit_trail(client: TestClient, keys: Keys,
+                                                                       channel: dict[str, Any]) -> None:
+    why = "yearly check against the reference bath"
+    r = client.post(CALIBRATE, json={"points": BENCH, "label": "bench", "reason": why}, headers=keys["technician"])
+    assert r.status_code == 200, r.text
+    events = client.get(f"/v1/channels/{CH}/events", params={"kind": "calibration"}, headers=keys["technician"])
+    (event,) = events.json()["items"]
+    assert event["details"]["reason"] == why
+    audit = client.get("/v1/audit", params={"kind": "calibration"}, headers=keys["admin"]).json()["items"]
+    assert [e["summary"] for e in audit] == [f"calibrated on {CH} on 3 points (bench): {why}"]
+    assert audit[0]["details"]["reason"] == why

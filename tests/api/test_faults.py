@@ -60,7 +60,8 @@ def _driver_error(dialect: str) -> Exception:
 @pytest.fixture
 def seeded(client: TestClient, admin: dict[str, str]) -> dict[str, Any]:
     """A channel with samples, a calibration and a snapshot; ids to use in the routes."""
-    r = client.post("/v1/channels", headers=admin, json={"id": CH, "inputs": [{"name": "raw", "min": 0, "max": 100}]})
+    r = client.post("/v1/channels", headers=admin, json={
+        "id": CH, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}], "output": {"unit": "V"}})
     assert r.status_code == 201
     client.post(f"/v1/channels/{CH}/samples", headers=admin,
                 json={"source": "s", "samples": [{"x": float(i), "y": 2.0 * i + 1, "seq": i} for i in range(40)]})
@@ -73,7 +74,8 @@ def requests(ids: dict[str, Any]) -> list[tuple[str, str, Any]]:
     """One valid request per route that touches the store."""
     return [
         ("GET", "/readyz", None),
-        ("POST", "/v1/channels", {"id": "site-a.f2", "inputs": [{"name": "raw", "min": 0, "max": 1}]}),
+        ("POST", "/v1/channels", {"id": "site-a.f2", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 1}],
+                                  "output": {"unit": "V"}}),
         ("GET", "/v1/channels", None),
         ("GET", f"/v1/channels/{CH}", None),
         ("PATCH", f"/v1/channels/{CH}", {"drift": {"tolerance": 0.5}}),

@@ -266,3 +266,39 @@ def test_gateway_bad_sample_says_nothing_was_stored(client: TestClient, keys: Ke
     err = expect_error(client, "POST", GATEWAY, 422, "invalid_request", headers=keys["device"], json=body)
     assert "nothing in this batch was stored" in err["message"], err
     assert err["details"]["index"] == 1, err
+
+
+# validation messages in the field's own words ----------------------------------------------
+
+#: words of the validation library that must never reach a client's message, or a detail's msg or loc
+LIBRARY_WORDS = ("constrained-float", "float_type", "list[", "Input should", "Field required", "Value error",
+                 "Extra inputs", "after validation")
+
+
+def test_a_bad_sample_is_named_by_its_plain_path_in_plain_words(client: TestClient, keys: Keys,
+                                                                 channel: dict[str, Any]) -> None:
+    cases = Cases()
+    for name, sample, message, loc in [
+        ("x a string", {"x": "a", "y": 1.0}, "samples[0].x: must be a finite number", ["samples", "0", "x"]),
+        ("x in a list", {"x": [1.0, "a"], "y": 1.0}, "samples[0].x[1]: must be a finite number",
+         ["samples", "0", "x", "1"]),
+        ("x too large", {"x": 1e39, "y": 1.0}, "samples[0].x: must be at most 1e38", ["samples", "0", "x"]),
+        ("y missing", {"x": 1.0}, "samples[0].y: is required", ["samples", "0", "y"]),
+        ("unknown field", {"x": 1.0, "y": 1.0, "z": 1}, "samples[0].z: is not a known field",
+         ["samples", "0", "z"]),
+        ("seq a boolean", {"x": 1.0, "y": 1.0, "seq": True}, "samples[0].seq: must be a whole number",
+         ["samples", "0", "seq"]),
+    ]:
+        with cases.case(name):
+            err = expect_error(client, "POST", SAMPLES, 422, "validation_error", headers=keys["device"],
+                               json={"samples": [sample]})
+            assert err["message"] == message, err
+            assert [d["loc"] for d in err["details"]] == [["body", *loc]], err
+            # the details keep their stable ``type`` code; what a person reads is plain
+            said = [err["message"], *(d["msg"] for d in err["details"]), *(p for d in err["details"] for p in d["loc"])]
+            assert not any(w in text for w in LIBRARY_WORDS for text in said), err
+    with cases.case("source too long"):
+        err = expect_error(client, "POST", SAMPLES, 422, "validation_error", headers=keys["device"],
+                           json={"source": "g" * 129, "samples": [{"x": 1.0, "y": 1.0}]})
+        assert err["message"] == "source: must be at most 128 characters", err
+    cases.done()

@@ -315,7 +315,8 @@ def test_device_key_cannot_do_technician_or_admin_work(
         (
             "POST",
             "/v1/channels",
-            {"id": "site-a.new", "inputs": [{"name": "raw", "min": 0, "max": 1}]},
+            {"id": "site-a.new", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 1}],
+             "output": {"unit": "V"}},
         ),
         ("GET", f"{base}/snapshots", None),
         ("POST", f"{base}/snapshots", None),

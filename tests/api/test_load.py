@@ -117,7 +117,8 @@ def test_a_long_list_validated_in_slices_is_the_same_list(client: TestClient, ke
 
 
 # an rls channel of 120 basis terms (three inputs, degree 7): its state holds a 120x120 covariance
-BIG_RLS = {"inputs": [{"name": n, "min": 0.0, "max": 1.0} for n in ("a", "b", "c")],
+BIG_RLS = {"inputs": [{"name": n, "unit": "V", "min": 0.0, "max": 1.0} for n in ("a", "b", "c")],
+           "output": {"unit": "V"},
            "basis": {"kind": "poly", "degree": 7}, "learner": {"kind": "rls"}}
 
 

@@ -27,12 +27,14 @@ sample = st.fixed_dictionaries({"x": st.one_of(numbers, st.lists(numbers, max_si
 channel_body = st.fixed_dictionaries(
     {"id": st.one_of(st.from_regex(r"site-a\.[a-z0-9]{1,8}", fullmatch=True), st.text(max_size=10))},
     optional={"inputs": st.one_of(st.lists(st.fixed_dictionaries(
-                  {"min": numbers, "max": numbers}, optional={"name": st.text(max_size=5)}), max_size=3), json_values),
+                  {"min": numbers, "max": numbers, "unit": st.sampled_from(["mV", "", " "])},
+                  optional={"name": st.text(max_size=5)}), max_size=3), json_values),
               "basis": st.one_of(st.fixed_dictionaries({"kind": st.sampled_from(KINDS)},
                                                        optional={"degree": numbers, "powers": json_values,
                                                                  "knots": json_values, "centers": json_values,
                                                                  "width": numbers}), json_values),
-              "learner": json_values, "drift": json_values, "output": json_values,
+              "learner": json_values, "drift": json_values,
+              "output": st.one_of(st.fixed_dictionaries({"unit": st.sampled_from(["degC", ""])}), json_values),
               "outlier_sd": json_values, "snapshot_every": json_values})
 
 

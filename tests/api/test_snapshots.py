@@ -328,8 +328,8 @@ def test_curve_difference_of_a_two_input_channel_names_both_inputs(
 ) -> None:
     tech = keys["technician"]
     base = "/v1/channels/site-a.two"
-    make_channel("site-a.two", inputs=[{"name": "raw", "min": 0.0, "max": 10.0},
-                                       {"name": "tc", "min": 0.0, "max": 40.0}])
+    make_channel("site-a.two", inputs=[{"name": "raw", "unit": "mV", "min": 0.0, "max": 10.0},
+                                       {"name": "tc", "unit": "degC", "min": 0.0, "max": 40.0}])
     pts = [(a, b) for a in (0.0, 5.0, 10.0) for b in (0.0, 20.0, 40.0)]
 
     def fit(c: tuple[float, float, float]) -> dict[str, Any]:
@@ -645,3 +645,35 @@ def test_events_paged_and_filtered(
     assert [e["kind"] for e in other] == ["channel_created", "snapshot"]
     # any technician or admin key may read them
     assert ok(client.get(EVENTS, headers=keys["admin"]))["items"] == items
+
+
+# the reason a person gives for a rollback ----------------------------------------------------
+
+#: reasons the request schema refuses: empty, over 500 characters, a line break, a NUL
+BAD_REASONS = ["", "x" * 501, "bench check\nsecond line", "a\x00b"]
+
+
+def test_a_bad_rollback_reason_is_422_and_rolls_nothing_back(client: TestClient, keys: Keys,
+                                                              channel: dict[str, Any]) -> None:
+    sid = take(client, keys["technician"])["id"]
+    for reason in BAD_REASONS:
+        err = expect_error(client, "POST", ROLLBACK, 422, "validation_error", headers=keys["technician"],
+                           json={"snapshot": sid, "reason": reason})
+        assert err["message"].startswith("reason: "), (reason, err)
+
+
+def test_a_rollback_reason_is_kept_in_the_event_and_the_audit_trail(client: TestClient, keys: Keys,
+                                                                     channel: dict[str, Any]) -> None:
+    tech = keys["technician"]
+    sid = take(client, tech)["id"]
+    why = "last night's curve followed a faulty reference probe"
+    ok(client.post(ROLLBACK, json={"snapshot": sid, "reason": why}, headers=tech))
+    (event,) = ok(client.get(EVENTS, params={"kind": "rollback"}, headers=tech))["items"]
+    assert event["details"]["reason"] == why
+    (entry,) = ok(client.get("/v1/audit", params={"kind": "rollback"}, headers=keys["admin"]))["items"]
+    assert entry["summary"] == f"rolled on {CH} back to snapshot {sid}: {why}"
+    assert entry["details"]["reason"] == why
+    # without a reason the event carries none, and the summary is as before
+    ok(client.post(ROLLBACK, json={"snapshot": sid}, headers=tech))
+    last = ok(client.get("/v1/audit", params={"kind": "rollback"}, headers=keys["admin"]))["items"][-1]
+    assert "reason" not in last["details"] and last["summary"] == f"rolled on {CH} back to snapshot {sid}"

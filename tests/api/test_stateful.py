@@ -22,7 +22,7 @@ import httpx
 import pytest
 from curvekeeper.actions.replay import replay
 from curvekeeper.api import create_app
-from curvekeeper.api.schemas.channels import ChannelPublic
+from curvekeeper.api.schemas.channels import ChannelCreated, ChannelPublic
 from curvekeeper.api.schemas.curves import CalibrationAnswer, PredictAnswer
 from curvekeeper.api.schemas.samples import GatewayAnswer, IngestAnswer
 from curvekeeper.api.schemas.snapshots import RollbackAnswer, SnapshotPage, SnapshotPublic
@@ -124,8 +124,9 @@ class ApiMachine(RuleBasedStateMachine):
     def create_channel(self, degree: int, learner: dict[str, Any], every: int | None) -> str:
         ch = f"site-a.c{len(self.model)}"
         body = {"id": ch, "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],
-                "basis": {"kind": "poly", "degree": degree}, "learner": learner, "snapshot_every": every}
-        out = self.ok(self.call("POST", "/v1/channels", body), ChannelPublic, 201)
+                "output": {"name": "pressure", "unit": "kPa"}, "basis": {"kind": "poly", "degree": degree},
+                "learner": learner, "snapshot_every": every}
+        out = self.ok(self.call("POST", "/v1/channels", body), ChannelCreated, 201)
         self.model[ch] = Channel()
         self.seen_version(ch, out["version"], grew=False)
         return ch

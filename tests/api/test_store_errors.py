@@ -51,7 +51,8 @@ def test_store_errors_are_told_apart_in_the_answer_and_the_log(
         caplog.clear()
         with caplog.at_level(logging.WARNING, logger="curvekeeper"), Raise(client, error):
             r = client.post("/v1/channels", headers=admin,
-                            json={"id": "site-a.e1", "inputs": [{"name": "raw", "min": 0, "max": 1}]})
+                            json={"id": "site-a.e1", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 1}],
+                                  "output": {"unit": "V"}})
         assert r.status_code == 503 and r.headers.get("Retry-After"), r.text
         assert r.json()["error"]["details"]["reason"] == reason, (error, r.text)
         lines = [rec.getMessage() for rec in caplog.records]

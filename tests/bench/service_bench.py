@@ -40,7 +40,8 @@ from .report import Table, figure, percentile, save, section_main
 SECRET = "ck_bench-admin-secret-0123456789"
 AUTH = {"Authorization": f"Bearer {SECRET}", "Content-Type": "application/json"}
 JSON = {"Content-Type": "application/json"}
-CHANNEL: dict[str, Any] = {"inputs": [{"name": "raw", "min": 0, "max": 100}], "basis": {"kind": "poly", "degree": 3}}
+CHANNEL: dict[str, Any] = {"inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+                           "output": {"unit": "V"}, "basis": {"kind": "poly", "degree": 3}}
 SEED_KEY = "bench-seed"
 SEED_SAMPLES = 3  # samples learned by every seeded channel
 CACHE_SIZE = 4096  # decoded models the server keeps (curvekeeper.actions.unit.CACHE_SIZE)

@@ -79,7 +79,9 @@ def run(db: str, processes: int, channels: int, batch: int, requests: int, clien
     try:
         with httpx.Client(base_url=urls[0], headers=H, timeout=60) as c:
             for i in range(channels):
-                r = c.post("/v1/channels", json={"id": f"bench.c{i}", "inputs": [{"name": "raw", "min": 0, "max": 100}],
+                r = c.post("/v1/channels", json={"id": f"bench.c{i}",
+                                                 "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+                                                 "output": {"unit": "V"},
                                                  "basis": {"kind": "poly", "degree": 3}})
                 assert r.status_code in (201, 409), r.text
         q: mp.Queue = mp.Queue()  # type: ignore[type-arg]

@@ -118,7 +118,7 @@ def existing(client: TestClient, admin: dict[str, str], database_url: str) -> st
     """A store in use (SQLite and PostgreSQL) with one channel."""
     r = client.post("/v1/channels", headers=admin, json={
         "id": "site-a.p1", "inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],
-        "basis": {"kind": "poly", "degree": 1}})
+        "output": {"name": "pressure", "unit": "kPa"}, "basis": {"kind": "poly", "degree": 1}})
     assert r.status_code == 201, r.text
     return database_url
 

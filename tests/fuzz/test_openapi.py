@@ -68,7 +68,8 @@ def running_app() -> Iterator[None]:
     """Start the app (its store and keys) once, with a channel, samples, a snapshot, a
     calibration and a device key to find."""
     with TestClient(APP) as c:
-        body: dict[str, Any] = {"id": "site-a.p1", "inputs": [{"name": "raw", "min": 0, "max": 100}]}
+        body: dict[str, Any] = {"id": "site-a.p1", "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+                                "output": {"unit": "V"}}
         assert c.post("/v1/channels", json=body, headers=AUTH).status_code == 201
         c.post("/v1/channels/site-a.p1/samples", headers=AUTH,
                json={"samples": [{"x": float(i), "y": 2.0 * i + 1} for i in range(50)]})

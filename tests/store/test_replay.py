@@ -32,7 +32,8 @@ def feed(client: TestClient, h: dict[str, str], channel: str, n: int, seq0: int,
 def history(client: TestClient, admin: dict[str, str]) -> str:
     """A channel with samples, a calibration on history, a settings change, an alarm and a rollback."""
     ch = "site-a.replay1"
-    r = client.post("/v1/channels", json={"id": ch, "inputs": [{"name": "raw", "min": 0, "max": 100}],
+    r = client.post("/v1/channels", json={"id": ch, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+                                          "output": {"unit": "V"},
                                           "basis": {"kind": "poly", "degree": 2}, "snapshot_every": 70},
                     headers=admin)
     assert r.status_code == 201
@@ -66,7 +67,8 @@ def lifecycle(client: TestClient, admin: dict[str, str]) -> str:
     lasts to the end, as does each rollback's on the reference."""
     ch = "site-a.replay2"
     base = f"/v1/channels/{ch}"
-    r = client.post("/v1/channels", json={"id": ch, "inputs": [{"name": "raw", "min": 0, "max": 100}],
+    r = client.post("/v1/channels", json={"id": ch, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+                                          "output": {"unit": "V"},
                                           "drift": {"tolerance": 0.1}, "snapshot_every": 50}, headers=admin)
     assert r.status_code == 201
 

@@ -21,6 +21,11 @@ def _scrub(value: Any) -> Any:
     return value
 
 
+def _why(d: dict[str, Any]) -> str:
+    """The reason a person gave, when they gave one."""
+    return f": {d['reason']}" if d.get("reason") else ""
+
+
 def summary(e: Event, channel: str | None) -> str:
     """What happened, in a few words, for a person reading the trail."""
     d = e.details or {}
@@ -33,12 +38,12 @@ def summary(e: Event, channel: str | None) -> str:
             return f"changed settings{on}: {changed}"
         case "calibration":
             label = f" ({d['label']})" if d.get("label") else ""
-            return f"calibrated{on} on {d.get('n')} points{label}"
+            return f"calibrated{on} on {d.get('n')} points{label}{_why(d)}"
         case "snapshot":
             return f"took snapshot {d.get('snapshot')}{on} ({d.get('reason')})"
         case "rollback":
             reference = ", its curve now the reference" if d.get("set_reference") else ""
-            return f"rolled{on} back to snapshot {d.get('snapshot')}{reference}"
+            return f"rolled{on} back to snapshot {d.get('snapshot')}{reference}{_why(d)}"
         case "acknowledged":
             return f"acknowledged drift {d.get('drift_state')}{on}: {d.get('note')}"
         case "service_changed":

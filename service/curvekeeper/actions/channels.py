@@ -7,7 +7,7 @@ from typing import Any
 from pydantic import ValidationError
 from sqlalchemy.exc import IntegrityError
 
-from ..channel_config import ChannelConfig
+from ..channel_config import ChannelConfig, NewChannel, warnings_for
 from ..core import ChannelModel, ConfigError
 from ..core.config import MUTABLE
 from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest, StateDamaged
@@ -49,18 +49,22 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
     return out
 
 
-def validated(body: ChannelConfig | dict[str, Any]) -> dict[str, Any]:
-    """The channel configuration as the store keeps it; raises ``InvalidConfig`` naming the field."""
-    if isinstance(body, ChannelConfig):
+def validated(body: ChannelConfig | dict[str, Any], model: type[ChannelConfig] = ChannelConfig) -> dict[str, Any]:
+    """The channel configuration as the store keeps it; raises ``InvalidConfig`` naming the field.
+    ``NewChannel`` checks a new channel (units required); ``ChannelConfig`` a stored one
+    after a PATCH (a channel stored without units keeps working)."""
+    if isinstance(body, model):
         return body.model_dump(mode="json")
     try:
-        return ChannelConfig.model_validate(body).model_dump(mode="json")
+        return model.model_validate(body).model_dump(mode="json")
     except ValidationError as exc:
         raise InvalidConfig.from_errors(exc.errors()) from exc
 
 
-def create(repo: Repository, body: ChannelConfig | dict[str, Any], key_id: str) -> dict[str, Any]:
-    config = validated(body)
+def create(repo: Repository, body: NewChannel | dict[str, Any], key_id: str) -> dict[str, Any]:
+    """The new channel as ``GET`` answers it, with ``warnings``: what its settings allow but
+    a person should know (e.g. a polynomial degree above 7)."""
+    config = validated(body, NewChannel)
     model = ChannelModel.from_config(config)
     channel_id = config["id"]
     if repo.get_channel(channel_id) is not None:
@@ -71,7 +75,7 @@ def create(repo: Repository, body: ChannelConfig | dict[str, Any], key_id: str) 
         raise ChannelExists(f"channel {channel_id!r} exists already") from exc
     repo.insert_events([{"channel_pk": ch.pk, "kind": "channel_created", "version": 0, "key_id": key_id,
                          "details": {"config": config}}])
-    return view(ch, st, model)
+    return {**view(ch, st, model), "warnings": warnings_for(config)}
 
 
 def get(unit: Unit, channel_id: str) -> dict[str, Any]:

@@ -113,9 +113,11 @@ def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
 
 def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], float]],
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
-              label: str | None, key_id: str | None, dry_run: bool = False) -> dict[str, Any]:
+              label: str | None, key_id: str | None, dry_run: bool = False,
+              reason: str | None = None) -> dict[str, Any]:
     """Fit the points (and/or stored history) and make the fit the channel's curve; with
-    ``dry_run``, only report what the fit would be, changing nothing."""
+    ``dry_run``, only report what the fit would be, changing nothing. ``reason`` (why, in a
+    person's words) goes into the event for the audit trail; replay does not read it."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
     model = unit.write_model(st)
@@ -161,7 +163,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
                                  version=version, n_samples=st.n_samples)
     unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
-                         "details": {"label": label, "points": [[x, y] for x, y in points],
+                         "details": {"label": label, **({"reason": reason} if reason else {}),
+                                     "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],
                                      "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
                                      "max_curve_change": report["max_curve_change"],

@@ -93,10 +93,11 @@ def roll_back(current: ChannelModel, restored: ChannelModel, *, set_reference: b
 
 
 def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, *,
-             set_reference: bool = False) -> dict[str, Any]:
+             set_reference: bool = False, reason: str | None = None) -> dict[str, Any]:
     """Restore a snapshot's curve and learner state; the current state is snapshotted
     first. The reference curve, the drift watch (and any alarm) and the service state stay,
-    unless ``set_reference`` makes the restored curve the reference."""
+    unless ``set_reference`` makes the restored curve the reference. ``reason`` (why, in
+    a person's words) goes into the event for the audit trail; replay does not read it."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=True)
     snap = repo.get_snapshot(ch.pk, snapshot_id)
@@ -113,7 +114,7 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
     unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk,
-                                     "set_reference": set_reference}}])
+                                     "set_reference": set_reference, **({"reason": reason} if reason else {})}}])
     out = view(ch, st, model)
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id

@@ -9,7 +9,7 @@ from fastapi import APIRouter, Path, Query
 from ...actions import channels
 from ...channel_config import CHANNEL_ID_PATTERN, Plain
 from ..deps import Ctx, Who
-from ..schemas.channels import ChannelCreate, ChannelPage, ChannelPublic, ChannelUpdate
+from ..schemas.channels import ChannelCreate, ChannelCreated, ChannelPage, ChannelPublic, ChannelUpdate
 from ..schemas.common import COMMON_ERRORS, error_responses
 
 router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON_ERRORS, **error_responses(404, 409)})
@@ -19,7 +19,7 @@ Limit = Annotated[int, Query(ge=1, le=1000)]
 STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
 
 
-@router.post("", status_code=201, summary="Create a channel", response_model=ChannelPublic)
+@router.post("", status_code=201, summary="Create a channel", response_model=ChannelCreated)
 def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=True) as unit:

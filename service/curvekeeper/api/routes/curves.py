@@ -76,5 +76,6 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
     with ctx.work.unit(write=not body.dry_run) as unit:
         out = curves.calibrate(unit, channel_id, points=points,
                                include_history=body.include_history, since=body.since, until=body.until,
-                               last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run)
+                               last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run,
+                               reason=body.reason)
     return CalibrationAnswer.model_validate(out)

@@ -60,7 +60,8 @@ def get_snapshot(channel_id: ChannelPath, snapshot_id: SnapshotId, ctx: Ctx, who
 def rollback(channel_id: ChannelPath, body: RollbackIn, ctx: Ctx, who: Who) -> RollbackAnswer:
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=True) as unit:
-        out = snapshots.rollback(unit, channel_id, body.snapshot, who.key_id, set_reference=body.set_reference)
+        out = snapshots.rollback(unit, channel_id, body.snapshot, who.key_id, set_reference=body.set_reference,
+                                 reason=body.reason)
     return RollbackAnswer.model_validate(out)
 
 

@@ -1,5 +1,5 @@
 """Channel schemas. The configuration is declared once, in ``curvekeeper.channel_config``:
-``ChannelCreate`` is that declaration; ``ChannelUpdate`` the settings a PATCH may change
+``ChannelCreate`` is that declaration with the units required; ``ChannelUpdate`` the settings a PATCH may change
 (merged into the stored ones, then checked by the same declaration); ``ChannelPublic``
 the configuration with the channel's summary."""
 
@@ -21,6 +21,7 @@ from ...channel_config import (
     Cusum,
     Ewma,
     Integer,
+    NewChannel,
     PageHinkley,
     Positive,
     RangeMargin,
@@ -28,7 +29,7 @@ from ...channel_config import (
     Text,
 )
 
-ChannelCreate = ChannelConfig
+ChannelCreate = NewChannel
 
 Section = Annotated[dict[str, Any], Field(description="fields to change; see the channel body")]
 
@@ -106,6 +107,13 @@ class ChannelPublic(ChannelConfig):
                                          "one, predict answers 409 not_calibrated")
     last_sample_at: datetime | None
     created_at: datetime
+
+
+class ChannelCreated(ChannelPublic):
+    """The new channel, and what its settings allow but a person should know."""
+
+    warnings: list[str] = Field(description="one sentence each, e.g. a polynomial degree above 7 swings between "
+                                            "points; empty: nothing to say")
 
 
 class DamageError(BaseModel):

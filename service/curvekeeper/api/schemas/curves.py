@@ -6,7 +6,7 @@ from typing import Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from ...channel_config import Basis, InputSpec, OutputSpec
+from ...channel_config import Basis, InputSpec, OutputSpec, Reason
 from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 
 
@@ -31,7 +31,7 @@ class PointIn(BaseModel):
 class CalibrateIn(BaseModel):
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"points": [{"x": 1000, "y": 0.0}, {"x": 20000, "y": 50.0}, {"x": 40000, "y": 100.0}],
-         "include_history": False, "label": "bench check"}]})
+         "include_history": False, "label": "bench check", "reason": "yearly check against the reference bath"}]})
 
     points: list[PointIn] = Field(default_factory=list, max_length=100_000)
     include_history: bool = False
@@ -41,6 +41,7 @@ class CalibrateIn(BaseModel):
                              description="with include_history: only the newest N")
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
+    reason: Reason | None = Field(None, description="why, for the audit trail (1 to 500 characters of plain text)")
 
 
 # answers -----------------------------------------------------------------------------------------

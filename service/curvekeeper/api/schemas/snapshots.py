@@ -7,7 +7,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from ...channel_config import Basis, ChannelConfig
+from ...channel_config import Basis, ChannelConfig, Reason
 from .channels import ChannelPublic
 from .common import Answer, Label, Page, SnapshotId
 from .curves import DriftSummary, RawCoefficients
@@ -24,12 +24,14 @@ class SnapshotIn(BaseModel):
 
 class RollbackIn(BaseModel):
     model_config = ConfigDict(extra="forbid", json_schema_extra={
-        "examples": [{"snapshot": 12}, {"snapshot": 12, "set_reference": True}]})
+        "examples": [{"snapshot": 12}, {"snapshot": 12, "set_reference": True,
+                                         "reason": "last night's curve followed a faulty reference"}]})
 
     snapshot: SnapshotId
     set_reference: bool = Field(False, strict=True, description=(
         "make the restored curve the reference for the tolerance check and the drift watch; "
         "false: the reference in force (the last calibration's curve) stays"))
+    reason: Reason | None = Field(None, description="why, for the audit trail (1 to 500 characters of plain text)")
 
 
 class SnapshotPublic(Answer):
