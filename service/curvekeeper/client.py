@@ -180,12 +180,14 @@ class Client:
                                            idempotent=False)
         return out
 
-    def rollback(self, channel: str, snapshot: int, *, set_reference: bool = False) -> dict[str, Any]:
+    def rollback(self, channel: str, snapshot: int, *, set_reference: bool = False,
+                 reason: str | None = None) -> dict[str, Any]:
         """Restore snapshot ``snapshot``; the state before is kept as ``snapshot_before``; with
-        ``set_reference`` the restored curve becomes the reference."""
-        out: dict[str, Any] = self.request("POST", f"/v1/channels/{channel}/rollback",
-                                           json={"snapshot": snapshot, "set_reference": set_reference},
-                                           idempotent=False)
+        ``set_reference`` the restored curve becomes the reference; ``reason`` goes to the log."""
+        body: dict[str, Any] = {"snapshot": snapshot, "set_reference": set_reference}
+        if reason is not None:
+            body["reason"] = reason
+        out: dict[str, Any] = self.request("POST", f"/v1/channels/{channel}/rollback", json=body, idempotent=False)
         return out
 
 

@@ -168,9 +168,11 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     first = api.get_channel(cid)["version"]
 
     shifted = write_csv(tmp_path / "shifted.csv", ["x", "y"], [[x, 1.5 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
-    assert main(["calibrate", cid, str(shifted), "--yes"]) == 0
+    assert main(["calibrate", cid, str(shifted), "--yes", "--reason", "drifted 0.5 degC"]) == 0
     out = capsys.readouterr().out
     assert "largest curve change  0.5 degC" in out
+    cals = api.request("GET", f"/v1/channels/{cid}/events?kind=calibration")["items"]
+    assert cals[-1]["details"]["reason"] == "drifted 0.5 degC"
     undo = int(out.rsplit("rollback cal.c1 ", 1)[1].split()[0])
 
     assert main(["curve", cid, "--points", "3"]) == 0
@@ -211,11 +213,13 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     assert api.get_channel(cid)["version"] > first
     # --yes needs no terminal
     monkeypatch.setattr(sys, "stdin", io.StringIO(""))
-    assert main(["rollback", cid, str(taken), "--yes", "--set-reference"]) == 0
+    assert main(["rollback", cid, str(taken), "--yes", "--set-reference", "--reason", "bench check passed"]) == 0
     assert api.predict(cid, [50.0])["y"][0] == pytest.approx(26.5)
     out = capsys.readouterr().out
     assert "becomes the restored one" in out and "reference restored_snapshot" in out
     assert api.get_channel(cid)["drift"]["max_curve_change"] == 0.0  # measured against the restored curve
+    rollbacks = api.request("GET", f"/v1/channels/{cid}/events?kind=rollback")["items"]
+    assert rollbacks[-1]["details"]["reason"] == "bench check passed"
 
 
 def test_diff_and_rollback_show_the_services_figure(api: Client, tmp_path: Path,

@@ -88,6 +88,7 @@ def add_commands(sub: Any) -> None:
     rb.add_argument("--set-reference", action="store_true",
                     help="make the restored curve the reference for the drift watch and the tolerance check "
                          "(default: keep the last calibration's)")
+    rb.add_argument("--reason", help="why (kept in the audit trail and the rollback event)")
     rb.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
     rb.set_defaults(func=_runner(rollback))
 
@@ -96,6 +97,7 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("channel", help="the channel's id")
     cal.add_argument("file", metavar="FILE.csv", help="bench points: a header line, then x (or x1,...,xn) and y")
     cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
+    cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
     cal.set_defaults(func=_runner(calibrate))
 

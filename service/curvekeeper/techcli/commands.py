@@ -161,7 +161,7 @@ def rollback(client: Client, args: argparse.Namespace) -> int:
                                       else "stays the last calibration's (--set-reference to change it)"))
     print(f"  {CAUTION}")
     _confirm(f"Roll {args.channel} back to snapshot {args.snapshot}?", args.yes)
-    out = client.rollback(args.channel, args.snapshot, set_reference=args.set_reference)
+    out = client.rollback(args.channel, args.snapshot, set_reference=args.set_reference, reason=args.reason)
     print(f"rolled back to snapshot {args.snapshot}; the state before is kept as snapshot "
           f"{out.get('snapshot_before')} (version now {out.get('version')}); reference {out.get('reference_curve')}")
     return 0
@@ -180,6 +180,8 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
     body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
     if args.label is not None:
         body["label"] = args.label
+    if args.reason is not None:
+        body["reason"] = args.reason
     r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
     unit = _unit(cfg)
     print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
