@@ -6,28 +6,16 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from .basis import Basis
-from .config import Config
-from .scaling import InputScaler
-from .state import ModelState
-from .transform import OutputTransform
+from .facts import ModelParts
 
 Array = NDArray[np.float64]
 
 CURVE_GRID = 201  # points over the input range for curve comparisons
 
 
-class CurveComparison:
+class CurveComparison(ModelParts):
     """Curve values and differences over the standard grid (``CURVE_GRID`` points per input)."""
 
-    config: Config
-    s: ModelState
-    scaler: InputScaler
-    basis: Basis
-    transform: OutputTransform
-    ip: NDArray[np.int64]
-    dp: Array
-    lp: Array
     _grid_x: Array | None
     _grid_phi: Array | None
 

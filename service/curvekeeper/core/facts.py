@@ -22,8 +22,9 @@ WARMUP = 30  # degrees of freedom behind the residual s.d. before the outlier ga
 RESIDUAL_WINDOW = 500  # samples: memory of the residual s.d. estimates
 
 
-class ModelFacts:
-    """Read-only answers of ``ChannelModel`` about its learned state."""
+class ModelParts:
+    """What every part of ``ChannelModel`` may read: its settings, learned state and the
+    objects and parameter vectors built from the settings."""
 
     config: Config
     s: ModelState
@@ -33,6 +34,10 @@ class ModelFacts:
     ip: NDArray[np.int64]
     dp: Array
     lp: Array
+
+
+class ModelFacts(ModelParts):
+    """Read-only answers of ``ChannelModel`` about its learned state."""
 
     def residual_sd_dof(self) -> tuple[float | None, float]:
         """(s, dof): the residual s.d. in the fitted space, the last fit's residual variance

@@ -8,10 +8,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .basis import Basis, PolyBasis
-from .config import Config
+from .basis import PolyBasis
 from .drift import DS_N
 from .errors import ConfigError
+from .facts import ModelParts
 from .learners import (
     ST_ACC,
     ST_EMEAN,
@@ -32,9 +32,6 @@ from .learners import (
     ST_T,
 )
 from .lstsq import fit_least_squares
-from .scaling import InputScaler
-from .state import ModelState
-from .transform import OutputTransform
 
 Array = NDArray[np.float64]
 
@@ -42,17 +39,9 @@ if TYPE_CHECKING:
     from .model import ChannelModel
 
 
-class Lifecycle:
+class Lifecycle(ModelParts):
     """Calibrate, acknowledge, take in or out of service, roll back."""
 
-    config: Config
-    s: ModelState
-    scaler: InputScaler
-    basis: Basis
-    transform: OutputTransform
-    ip: NDArray[np.int64]
-    dp: Array
-    lp: Array
 
     if TYPE_CHECKING:  # given by the other parts of ChannelModel
         def max_curve_difference(self, weights: Array) -> float: ...

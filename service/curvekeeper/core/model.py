@@ -321,13 +321,3 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
 def _watch(drift: dict[str, Any]) -> dict[str, Any]:
     """The drift settings that shape the detector's statistic (not the tolerance)."""
     return {k: v for k, v in drift.items() if k != "tolerance"}
-
-
-def _float_or_none(v: float) -> float | None:
-    return float(v) if np.isfinite(v) else None
-
-
-def _nan_to_none(a: Array) -> list[float | None] | None:
-    if not np.isfinite(a).all():
-        return None
-    return [float(v) for v in a]
