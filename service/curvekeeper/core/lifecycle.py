@@ -160,9 +160,7 @@ class Lifecycle(ModelParts):
         state.ds, state.change_w = s.ds.copy(), np.stack([state.w, state.w])
         for k in (ST_EN, ST_EMEAN, ST_EVAR, ST_FVAR, ST_FDOF, ST_ACC, ST_REJ, ST_GUARD, ST_HELD):
             state.st[k] = s.st[k]
-        from .model import ChannelModel  # the class this is part of
-
-        restored = ChannelModel(other.config, state)
+        restored = type(other)(other.config, state)
         if set_reference:
             restored.set_reference()
         else:
