@@ -80,3 +80,16 @@ class Cases:
 
     def done(self) -> None:
         assert not self.failed, f"{len(self.failed)} case(s) failed:\n" + "\n".join(self.failed)
+
+
+def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
+    """The channel's model state as stored (read straight from the store)."""
+    from curvekeeper.store.tables import Channel, ChannelState
+    from sqlalchemy import select
+
+    store = client.app.state.ctx.store  # type: ignore[attr-defined]
+    with store.transaction(write=False) as repo:
+        state: dict[str, Any] = repo.session.scalars(
+            select(ChannelState.model_state).join(Channel, Channel.pk == ChannelState.channel_pk)
+            .where(Channel.id == channel_id)).one()
+    return state

@@ -19,12 +19,10 @@ import pytest
 from curvekeeper.actions.unit import summary_columns
 from curvekeeper.channel_config import EXAMPLE, channel_config
 from curvekeeper.core import ChannelModel
-from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
 from scipy import stats
-from sqlalchemy import select
 
-from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error, expect_error, ok
+from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error, expect_error, ok, stored_state
 from tests.conftest import LINEAR, store_fingerprint
 
 CHANNELS = "/v1/channels"
@@ -64,14 +62,6 @@ def drive_into_alarm(client: TestClient, channel_id: str, headers: Headers) -> N
     assert post_samples(client, channel_id, offset, headers)["drift"]["state"] == "alarm"
 
 
-def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
-    """The channel's model state as stored (read straight from the store)."""
-    store = client.app.state.ctx.store  # type: ignore[attr-defined]
-    with store.transaction(write=False) as repo:
-        state: dict[str, Any] = repo.session.scalars(
-            select(ChannelState.model_state).join(Channel, Channel.pk == ChannelState.channel_pk)
-            .where(Channel.id == channel_id)).one()
-    return state
 
 
 

@@ -14,10 +14,10 @@ from curvekeeper import errors
 from curvekeeper.api.errors import status_of
 from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
-from sqlalchemy import select, update
 from sqlalchemy import text as sql_text
+from sqlalchemy import update
 
-from tests.api.helpers import expect_error
+from tests.api.helpers import expect_error, stored_state
 
 EXPECTED = {
     errors.Unauthorized: 401, errors.Forbidden: 403, errors.NotFound: 404, errors.ChannelNotFound: 404,
@@ -52,13 +52,6 @@ def _damage(client: TestClient, channel_id: str, state: Any) -> None:
                              .values(model_state=state, version=ChannelState.version + 1))
 
 
-def _stored(client: TestClient, channel_id: str) -> dict[str, Any]:
-    store = client.app.state.ctx.store  # type: ignore[attr-defined]
-    with store.transaction(write=False) as repo:
-        state: dict[str, Any] = repo.session.scalars(
-            select(ChannelState.model_state).join(Channel, Channel.pk == ChannelState.channel_pk)
-            .where(Channel.id == channel_id)).one()
-    return state
 
 
 DAMAGES = {
@@ -78,7 +71,7 @@ def test_a_damaged_stored_state_is_that_channels_server_error(client: TestClient
     bench = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 26.0}, {"x": 100.0, "y": 51.2}]}
     assert client.post("/v1/channels/site-a.d2/calibrate", json=bench, headers=admin).status_code == 200
     healthy = {cid: client.get(f"/v1/channels/{cid}", headers=admin).json() for cid in ("site-a.d2", "site-a.d3")}
-    _damage(client, "site-a.d2", DAMAGES[damage](_stored(client, "site-a.d2")))
+    _damage(client, "site-a.d2", DAMAGES[damage](stored_state(client, "site-a.d2")))
     # the damaged channel's own routes: 500 state_damaged naming the way out, nothing stored
     for method, url, body in [
         ("GET", "/v1/channels/site-a.d2", None),
@@ -132,7 +125,7 @@ def test_a_stored_state_with_infinity_is_damaged(client: TestClient, admin: dict
         pytest.skip("PostgreSQL refuses Infinity in a json column")
     make_channel("site-a.d1")
     make_channel("site-a.d2")
-    text_state = json.dumps(_stored(client, "site-a.d1")).replace('"weights": [0.0,', '"weights": [Infinity,')
+    text_state = json.dumps(stored_state(client, "site-a.d1")).replace('"weights": [0.0,', '"weights": [Infinity,')
     assert "Infinity" in text_state
     store = client.app.state.ctx.store  # type: ignore[attr-defined]
     with store.transaction(write=True) as repo:

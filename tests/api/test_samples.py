@@ -26,11 +26,11 @@ from curvekeeper.api import create_app
 from curvekeeper.channel_config import channel_config
 from curvekeeper.config import Settings
 from curvekeeper.core import ChannelModel
-from curvekeeper.store.tables import Channel, ChannelState, Sample, Snapshot
+from curvekeeper.store.tables import Channel, Sample, Snapshot
 from fastapi.testclient import TestClient
 from sqlalchemy import select
 
-from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error
+from tests.api.helpers import CODES_422, Cases, Headers, Keys, assert_error, stored_state
 from tests.conftest import LINEAR, store_fingerprint
 
 
@@ -134,13 +134,6 @@ def _read(client: TestClient, stmt: Any) -> list[Any]:
         return list(repo.session.execute(stmt).all())
 
 
-def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
-    """The channel's model state as stored."""
-    rows = _read(client, select(ChannelState.model_state)
-                 .join(Channel, Channel.pk == ChannelState.channel_pk).where(Channel.id == channel_id))
-    assert len(rows) == 1
-    state: dict[str, Any] = rows[0][0]
-    return state
 
 
 def stored_snapshots(client: TestClient, channel_id: str) -> list[tuple[str, int, int, dict[str, Any]]]:
