@@ -457,3 +457,24 @@ def test_detectors_and_gate_wait_for_the_warmup() -> None:
     res = m.learn(x[29:], y[29:])
     assert m.summary()["warmed_up"]
     assert res.drift_statistic[0] == 0.0 and np.any(res.drift_statistic[2:] > 0.0)
+
+
+def test_the_state_before_an_alarm_raised_by_a_run_of_outliers_is_that_of_learning_up_to_it() -> None:
+    """A step of 40 noise s.d. with the outlier gate on: the samples are held back as outliers
+    and the watch takes them from the second of the run on. The running statistics kept for
+    the alarm are those before the alarming sample, the run of outliers counted up to it."""
+    x, y = quadratic_stream(26, 400)
+    y = y.copy()
+    y[300:] += 2.0
+    body = channel(outlier_sd=6.0, drift={"detector": "page_hinkley"})
+    m = model_of(body)
+    m.fit_closed_form(x[:40], y[:40])
+    res = m.learn(x, y)
+    assert res.alarm_index is not None and res.before_alarm is not None
+    k = res.alarm_index
+    assert res.status[300] == "outlier" and k > 300
+    direct = model_of(body)
+    direct.fit_closed_form(x[:40], y[:40])
+    direct.learn(x[:k], y[:k])
+    assert res.before_alarm["running"] == direct.to_state()["running"]
+    assert res.before_alarm["running"]["outlier_run"] == k - 300

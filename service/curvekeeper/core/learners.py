@@ -207,7 +207,6 @@ def learn_batch(
         # the drift watch; a lone outlier (a contact glitch) is left out of it, a run of them
         # (a step) goes in from its second sample on
         lone = gated and st[ST_ORUN] == 0.0
-        st[ST_ORUN] = st[ST_ORUN] + 1.0 if gated else 0.0
         score = math.nan
         if lone:
             pass
@@ -247,6 +246,7 @@ def learn_batch(
                 d = max(-4.0 * es, min(4.0 * es, d))
             st[ST_EMEAN] += a * d
             st[ST_EVAR] = (1.0 - a) * (st[ST_EVAR] + a * d * d)
+        st[ST_ORUN] = st[ST_ORUN] + 1.0 if gated else 0.0  # after the watch: a snapshot there is "before"
         if gated:
             out_status[i] = OUTLIER
             st[ST_REJ] += 1.0
