@@ -163,7 +163,8 @@ def keys(client: TestClient, admin: dict[str, str]) -> dict[str, dict[str, str]]
 
 
 def store_fingerprint(client: TestClient) -> dict[str, Any]:
-    """Row counts of every table and each channel's (version, n_samples, state): equal
+    """Row counts of every table, each channel's (version, n_samples, state), configuration
+    and archive time: equal
     before and after a failed request means nothing was stored or changed."""
     store = client.app.state.ctx.store  # type: ignore[attr-defined]
     with store.transaction(write=False) as repo:
@@ -174,7 +175,8 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state))}
         configs = {cid: cfg for cid, cfg in s.execute(select(Channel.id, Channel.config))}
-    return {"counts": counts, "states": states, "configs": configs}
+        archived = {cid: at for cid, at in s.execute(select(Channel.id, Channel.archived_at))}
+    return {"counts": counts, "states": states, "configs": configs, "archived": archived}
 
 
 LINEAR = {"inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],

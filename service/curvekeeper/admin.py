@@ -232,7 +232,8 @@ def cmd_replay(args: argparse.Namespace) -> int:
     finally:
         store.dispose()
     print(f"{report.channel}: replayed {report.replayed_samples} samples and {report.replayed_events} "
-          f"state changes from version {report.start_version} to {report.version}")
+          f"state changes from version {report.start_version} to {report.version}"
+          + ("; the log leaves it archived" if report.archived else ""))
     if args.check:
         if report.matches:
             print("check: the replayed state equals the stored state, bit for bit")

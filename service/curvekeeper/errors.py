@@ -6,7 +6,8 @@ errors, ``curvekeeper.core.errors``, too).
     ├── Unauthorized      missing, unknown or revoked key
     ├── Forbidden         role or channel prefix not allowed
     ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
-    ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged, NotCalibrated
+    ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged, NotCalibrated,
+    │                     ChannelArchived, AlreadyArchived, NotArchived
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
     │   └── InvalidConfig a merged channel configuration the declaration refuses
@@ -80,6 +81,21 @@ class NotCalibrated(Conflict):
     with until it is calibrated."""
 
     code = "not_calibrated"
+
+
+class ChannelArchived(Conflict):
+    """The channel is archived: its history can be read, but it takes no samples and no
+    changes until it is unarchived."""
+
+    code = "archived"
+
+
+class AlreadyArchived(Conflict):
+    code = "already_archived"
+
+
+class NotArchived(Conflict):
+    code = "not_archived"
 
 
 class PayloadTooLarge(ServiceError):

@@ -1,4 +1,4 @@
-"""Channels: create, read, list, change settings."""
+"""Channels: create, read, list, change settings; archive and unarchive."""
 
 from __future__ import annotations
 
@@ -10,7 +10,17 @@ from sqlalchemy.exc import IntegrityError
 from ..channel_config import ChannelConfig, NewChannel, warnings_for
 from ..core import ChannelModel, ConfigError
 from ..core.config import MUTABLE
-from ..errors import ChannelExists, ChannelNotFound, ImmutableField, InvalidConfig, InvalidRequest, StateDamaged
+from ..errors import (
+    AlreadyArchived,
+    ChannelArchived,
+    ChannelExists,
+    ChannelNotFound,
+    ImmutableField,
+    InvalidConfig,
+    InvalidRequest,
+    NotArchived,
+    StateDamaged,
+)
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
 from .paging import Page, decode_cursor, encode_cursor
@@ -20,12 +30,26 @@ from .unit import Unit, summary_columns
 #: ``damaged`` (a stored state that cannot be restored)
 STATES = {"ok", "warning", "alarm", "out_of_tolerance", "damaged"}
 DAMAGED = "damaged"
+#: the ``archived`` filter of the list: live channels only (the default), all, or archived only
+ARCHIVED = ("exclude", "include", "only")
 
 
-def load(repo: Repository, channel_id: str, *, lock: bool = False) -> tuple[Channel, ChannelState]:
+def refuse_archived(ch: Channel) -> None:
+    """Raise ``ChannelArchived`` for an archived channel: it takes no samples nor changes."""
+    if ch.archived_at is not None:
+        raise ChannelArchived(f"channel {ch.id!r} is archived: its history can be read, but it takes no samples "
+                              "nor changes; unarchive it first", details={"archived_at": ch.archived_at.isoformat()})
+
+
+def load(repo: Repository, channel_id: str, *, lock: bool = False, archived_ok: bool = False
+         ) -> tuple[Channel, ChannelState]:
+    """The channel and its state row. ``lock`` is for a change: it takes the row lock, and
+    refuses an archived channel (``ChannelArchived``) unless ``archived_ok``."""
     found = repo.channel_and_state(channel_id, lock=lock)
     if found is None:
         raise ChannelNotFound(f"no channel {channel_id!r}")
+    if lock and not archived_ok:
+        refuse_archived(found[0])
     return found
 
 
@@ -45,6 +69,8 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
         "calibrated": model.calibrated,
         "last_sample_at": st.last_sample_at,
         "created_at": ch.created_at,
+        "archived": ch.archived_at is not None,
+        "archived_at": ch.archived_at,
     })
     return out
 
@@ -89,23 +115,27 @@ def damaged_item(ch: Channel, st: ChannelState, error: StateDamaged) -> dict[str
     state rows say, and the error its own routes answer with."""
     return {"id": ch.id, "state": DAMAGED, "error": {"code": error.code, "message": error.message},
             "n_samples": st.n_samples, "n_rejected": st.n_rejected, "version": st.version,
-            "last_sample_at": st.last_sample_at, "created_at": ch.created_at}
+            "last_sample_at": st.last_sample_at, "created_at": ch.created_at,
+            "archived": ch.archived_at is not None, "archived_at": ch.archived_at}
 
 
 def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | None,
-          limit: int) -> Page:
-    """A page of channels by creation order. A channel whose stored state cannot be restored
+          limit: int, archived: str = "exclude") -> Page:
+    """A page of channels by creation order; archived ones only with ``archived`` "include"
+    or "only". A channel whose stored state cannot be restored
     is listed as ``damaged`` (only under the ``damaged`` filter, or none), so one damaged
     channel never breaks the fleet's list. The filters on the drift and tolerance states
     go to the store; ``damaged`` is known only by restoring each state (most are cached)."""
     repo = unit.repo
     if state is not None and state not in STATES:
         raise InvalidRequest(f"state must be one of {', '.join(sorted(STATES))}", details={"field": "state"})
+    if archived not in ARCHIVED:
+        raise InvalidRequest(f"archived must be one of {', '.join(ARCHIVED)}", details={"field": "archived"})
     after = decode_cursor(cursor)
     items: list[dict[str, Any]] = []
     while True:
         rows = repo.list_channels(prefix=prefix, state=None if state == DAMAGED else state, after_pk=after,
-                                  limit=limit + 1)
+                                  limit=limit + 1, archived=archived)
         for ch, st in rows:
             if len(items) == limit and state is None:  # every row is listed: this one opens the next page
                 return Page(items, None if after is None else encode_cursor(after))
@@ -155,3 +185,20 @@ def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> 
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes, "config": config}}])
     return view(ch, st, updated)
+
+
+def set_archived(repo: Repository, channel_id: str, archive: bool, note: str | None, key_id: str | None
+                 ) -> tuple[Channel, ChannelState]:
+    """Archive a live channel (its history stays, it takes no samples nor changes) or
+    unarchive an archived one, with an ``archived`` / ``unarchived`` event. The learned
+    state is not touched, so the version stays. Raises ``AlreadyArchived`` / ``NotArchived``."""
+    ch, st = load(repo, channel_id, lock=True, archived_ok=True)
+    if archive and ch.archived_at is not None:
+        raise AlreadyArchived(f"channel {channel_id!r} is archived already (since {ch.archived_at.isoformat()})",
+                              details={"archived_at": ch.archived_at.isoformat()})
+    if not archive and ch.archived_at is None:
+        raise NotArchived(f"channel {channel_id!r} is not archived", details={"archived_at": None})
+    repo.set_archived(ch, archive)
+    repo.insert_events([{"channel_pk": ch.pk, "kind": "archived" if archive else "unarchived", "version": st.version,
+                         "key_id": key_id, "details": {"note": note}}])
+    return ch, st

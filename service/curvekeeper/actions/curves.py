@@ -10,7 +10,7 @@ import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
-from .channels import load
+from .channels import load, refuse_archived
 from .unit import Unit, item_cost, restore
 
 HISTORY_LIMIT = 1_000_000
@@ -120,6 +120,7 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
     person's words) goes into the event for the audit trail; replay does not read it."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
+    refuse_archived(ch)  # a dry run too: it previews a change the channel cannot take
     model = unit.write_model(st)
     d = len(model.config["inputs"])
     xs: list[list[float]] = []

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import datetime
 from typing import Any
 
 from .. import auth
@@ -13,7 +14,7 @@ from .paging import Page, decode_text_cursor, encode_cursor
 
 def _item(k: ApiKey) -> dict[str, Any]:
     return {"id": k.id, "role": k.role, "prefixes": k.prefixes, "label": k.label,
-            "created_at": k.created_at, "revoked_at": k.revoked_at}
+            "created_at": k.created_at, "revoked_at": k.revoked_at, "last_used_at": k.last_used_at}
 
 
 def _store(repo: Repository, key: ApiKey, *, key_id: str | None, by: str | None, unless_taken: bool = False
@@ -83,3 +84,8 @@ def revoke(repo: Repository, kid: str, key_id: str | None) -> dict[str, Any]:
         repo.insert_events([{"channel_pk": None, "kind": "key_revoked", "key_id": key_id,
                              "details": {"id": kid}}])
     return _item(key)
+
+
+def record_use(repo: Repository, key_id: str, at: datetime) -> None:
+    """Note that the key was used at ``at`` (the caller throttles how often: ``KeyUse``)."""
+    repo.key_used(key_id, at)

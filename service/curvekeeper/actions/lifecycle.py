@@ -1,5 +1,6 @@
 """A channel's lifecycle: acknowledge a drift warning or alarm, take it out of service
-and back. Each is a new state version with an event, so a replay repeats it."""
+and back (each a new state version with an event, so a replay repeats it); archive and
+unarchive it (an event; the learned state and its version stay)."""
 
 from __future__ import annotations
 
@@ -7,7 +8,7 @@ import math
 from typing import Any
 
 from ..errors import NothingToAcknowledge, ServiceUnchanged
-from .channels import load, view
+from .channels import load, set_archived, view
 from .unit import Unit
 
 
@@ -46,3 +47,9 @@ def set_service(unit: Unit, channel_id: str, state: str, note: str, key_id: str 
     repo.insert_events([{"channel_pk": ch.pk, "kind": "service_changed", "version": version, "key_id": key_id,
                          "details": {"from": was, "to": state, "note": note}}])
     return view(ch, st, model)
+
+
+def archive(unit: Unit, channel_id: str, archived: bool, note: str | None, key_id: str | None) -> dict[str, Any]:
+    """Archive the channel (``archived``) or unarchive it; the channel as ``GET`` answers it."""
+    ch, st = set_archived(unit.repo, channel_id, archived, note, key_id)
+    return view(ch, st, unit.read_model(st))

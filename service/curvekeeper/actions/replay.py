@@ -4,7 +4,9 @@ The log is the append-only samples plus the events that change a state without a
 sample: ``calibration`` (its points, and the history window it used), ``settings_changed``
 (the resulting config), ``rollback`` (the restored snapshot, and whether its curve became
 the reference), ``acknowledged`` (a drift alarm cleared) and ``service_changed``. Each change has the
-channel version it produced, so the log is replayed in version order. Learning is
+channel version it produced, so the log is replayed in version order. ``archived`` and
+``unarchived`` change no learned state: the newest of them says whether the channel is
+archived, which a check compares with the channel row. Learning is
 deterministic and does not depend on how samples were split into requests, so a
 replay reproduces the stored state to the last bit.
 """
@@ -28,6 +30,8 @@ from .snapshots import roll_back
 from .unit import restore
 
 STATE_EVENTS = ("channel_created", "calibration", "settings_changed", "rollback", "acknowledged", "service_changed")
+#: events that archive and unarchive a channel: no learned state, the channel row's ``archived_at``
+ARCHIVE_EVENTS = ("archived", "unarchived")
 BATCH = 5000
 
 
@@ -42,6 +46,7 @@ class ReplayReport:
     matches: bool | None = None
     mismatches: list[str] = field(default_factory=list)
     state: dict[str, Any] = field(default_factory=dict)
+    archived: bool = False  # what the log says: its newest archived / unarchived event
 
 
 def _history(repo: Repository, channel_pk: int, hist: dict[str, Any]) -> tuple[list[list[float]], list[float]]:
@@ -111,12 +116,17 @@ def replay(repo: Repository, channel_id: str, *, from_snapshot: int | None = Non
         model = _apply(repo, ch.pk, model, next_event.kind, next_event.details)
         n_events += 1
         next_event = next(events, None)
-    report = ReplayReport(channel_id, start, st.version, st.n_samples, n_samples, n_events, state=model.to_state())
+    last = repo.last_event(ch.pk, ARCHIVE_EVENTS)
+    report = ReplayReport(channel_id, start, st.version, st.n_samples, n_samples, n_events, state=model.to_state(),
+                          archived=last is not None and last.kind == "archived")
     if check:
         stored = repo.model_state(ch.pk)
         report.mismatches = status_mismatches + _differences(stored, report.state)
         if model.config != ch.config:
             report.mismatches.append("config differs: the stored channel config is not the one the log gives")
+        if report.archived != (ch.archived_at is not None):
+            report.mismatches.append(f"archived differs: stored {ch.archived_at is not None}, the log says "
+                                     f"{report.archived}")
         report.matches = not report.mismatches
     return report
 

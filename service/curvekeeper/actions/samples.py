@@ -12,7 +12,7 @@ import numpy as np
 
 from ..channel_config import min_snapshot_every
 from ..core import InputError, LearnResult
-from ..errors import ChannelNotFound, InvalidRequest
+from ..errors import ChannelArchived, ChannelNotFound, InvalidRequest
 from ..store import Repository
 from ..store.repository import LearningState, SampleRows
 from ..store.tables import utcnow
@@ -168,10 +168,18 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     )
 
 
+def _refuse_archived(channel_id: str, st: LearningState, suffix: str = "", details: dict[str, Any] | None = None
+                     ) -> None:
+    if st.archived_at is not None:
+        raise ChannelArchived(f"channel {channel_id!r} is archived and takes no samples{suffix}; unarchive it "
+                              "first", details={**(details or {}), "archived_at": st.archived_at.isoformat()})
+
+
 def _learning(repo: Repository, channel_id: str) -> LearningState:
     st = repo.learning_state(channel_id)
     if st is None:
         raise ChannelNotFound(f"no channel {channel_id!r}")
+    _refuse_archived(channel_id, st, "; nothing was stored")
     return st
 
 
@@ -199,6 +207,11 @@ def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: 
         raise ChannelNotFound(f"unknown channel {cid!r} (sample {groups[cid][0]}): {NOTHING_STORED}",
                               details={"index": groups[cid][0], "channel": cid})
     states = {cid: st for cid, st in found.items() if st is not None}
+    archived = [cid for cid, st in states.items() if st.archived_at is not None]
+    if archived:
+        cid = min(archived, key=lambda c: groups[c][0])
+        _refuse_archived(cid, states[cid], f" (sample {groups[cid][0]}): {NOTHING_STORED}",
+                         {"index": groups[cid][0], "channel": cid})
     residuals: list[float | None] = [None] * len(items)
     rejected: list[dict[str, Any]] = []
     channels: dict[str, Any] = {}

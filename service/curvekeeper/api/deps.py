@@ -3,9 +3,10 @@ before the body)."""
 
 from __future__ import annotations
 
+import logging
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from threading import Lock
@@ -14,14 +15,18 @@ from typing import Annotated, Any
 from fastapi import Depends, Header, HTTPException, Request
 from starlette.concurrency import run_in_threadpool
 
+from ..actions import keys
 from ..actions.unit import Work
 from ..auth import Principal, authenticate, hash_secret
 from ..config import Settings
-from ..errors import InvalidRequest
+from ..errors import InvalidRequest, ServiceError
 from ..kernels import KernelBuild
 from ..metrics import Metrics
 from ..ratelimit import RateLimiter
 from ..store import Store
+from ..store.tables import utcnow
+
+log = logging.getLogger("curvekeeper.api")
 
 
 @dataclass
@@ -52,6 +57,29 @@ class KeyCache:
 
 
 @dataclass
+class KeyUse:
+    """When each key's use may next be written: at most once per ``interval`` seconds per
+    key, in this process, so a device posting every second writes its key's row once a
+    minute, not on every request. ``clock`` is ``time.monotonic`` (a test may pass its own)."""
+
+    interval: float = 60.0
+    clock: Callable[[], float] = time.monotonic
+    _next: dict[str, float] = field(default_factory=dict)
+    _lock: Lock = field(default_factory=Lock)
+
+    def due(self, key_id: str) -> bool:
+        """True (and the next write put ``interval`` ahead) when this use should be written."""
+        now = self.clock()
+        with self._lock:
+            if self._next.get(key_id, -math.inf) > now:
+                return False
+            if len(self._next) > 100_000:
+                self._next.clear()
+            self._next[key_id] = now + self.interval
+            return True
+
+
+@dataclass
 class AppContext:
     settings: Settings
     store: Store
@@ -61,6 +89,8 @@ class AppContext:
     kernels: KernelBuild
     #: units of work over the store, with the process's cache of decoded models
     work: Work
+    #: when each key's last use is written next
+    key_use: KeyUse = field(default_factory=KeyUse)
 
 
 async def context(request: Request) -> AppContext:
@@ -108,11 +138,27 @@ def check_rate(ctx: AppContext, who: Principal) -> None:
                             headers={"Retry-After": str(seconds)})
 
 
+def record_use(ctx: AppContext, key_id: str) -> None:
+    """Write the key's last use now; a busy store only delays it to the next due use."""
+    try:
+        with ctx.store.transaction(write=True, deadline=time.monotonic() + USE_WAIT_S) as repo:
+            keys.record_use(repo, key_id, utcnow())
+    except ServiceError as exc:
+        log.info("last use of key %s not recorded: %s", key_id, exc.message)
+
+
+#: how long recording a key's use may wait for the store's write lock (SQLite), seconds
+USE_WAIT_S = 0.5
+
+
 async def principal(ctx: Ctx, authorization: Annotated[str | None, Header()] = None) -> Principal:
-    # async, so a cached key costs no trip through the thread pool
+    # async, so a cached key costs no trip through the thread pool (but once a minute, to
+    # record the key's use)
     digest = _bearer_digest(authorization)
     hit = ctx.keys.get(digest) if digest is not None else None
     who = hit if hit is not None else await run_in_threadpool(lookup_key, ctx, authorization)
+    if ctx.key_use.due(who.key_id):
+        await run_in_threadpool(record_use, ctx, who.key_id)
     check_rate(ctx, who)
     return who
 

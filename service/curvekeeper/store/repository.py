@@ -12,7 +12,7 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, bindparam, func, insert, select
+from sqlalchemy import Table, bindparam, func, insert, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
@@ -36,6 +36,7 @@ class LearningState:
     n_samples: int
     n_rejected: int
     last_sample_at: datetime | None
+    archived_at: datetime | None = None  # the channel's: an archived channel learns nothing
 
 
 @dataclass(frozen=True)
@@ -81,7 +82,7 @@ _STATE_UPDATES: dict[tuple[tuple[str, ...], bool], str] = {}
 CHANNEL_T = cast(Table, Channel.__table__)
 # what learning needs of the state row, as a plain row: cheaper than two ORM objects
 _LEARNING = (select(STATE_T.c.channel_pk, STATE_T.c.version, STATE_T.c.n_samples, STATE_T.c.n_rejected,
-                    STATE_T.c.last_sample_at)
+                    STATE_T.c.last_sample_at, CHANNEL_T.c.archived_at)
              .join_from(STATE_T, CHANNEL_T, CHANNEL_T.c.pk == STATE_T.c.channel_pk)
              .where(CHANNEL_T.c.id == bindparam("cid")))
 _LEARNING_FOR_UPDATE = _LEARNING.with_for_update(of=STATE_T)
@@ -146,7 +147,8 @@ class Repository:
         return ch, st
 
     def list_channels(self, *, prefix: str | None, state: str | None, after_pk: int | None,
-                      limit: int) -> list[tuple[Channel, ChannelState]]:
+                      limit: int, archived: str = "exclude") -> list[tuple[Channel, ChannelState]]:
+        """Channels by creation order; ``archived``: "exclude" (live only), "include", "only"."""
         stmt = (select(Channel, ChannelState)
                 .join(ChannelState, ChannelState.channel_pk == Channel.pk)
                 .options(defer(ChannelState.model_state, raiseload=True))
@@ -157,9 +159,18 @@ class Repository:
             stmt = stmt.where(ChannelState.tolerance_state == "out_of_tolerance")
         elif state:
             stmt = stmt.where(ChannelState.drift_state == state)
+        if archived == "exclude":
+            stmt = stmt.where(Channel.archived_at.is_(None))
+        elif archived == "only":
+            stmt = stmt.where(Channel.archived_at.is_not(None))
         if after_pk is not None:
             stmt = stmt.where(Channel.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
+
+    def set_archived(self, ch: Channel, archived: bool) -> None:
+        """Archive the channel now, or unarchive it."""
+        ch.archived_at = utcnow() if archived else None
+        self.session.flush()
 
     def save_state(self, st: ChannelState | LearningState, **values: Any) -> None:
         """One UPDATE of the state row, on the driver (it runs for every request that
@@ -281,6 +292,11 @@ class Repository:
         return self.session.scalars(select(Event).where(Event.channel_pk == channel_pk, Event.kind == kind)
                                     .order_by(Event.pk).limit(1)).one_or_none()
 
+    def last_event(self, channel_pk: int, kinds: Sequence[str]) -> Event | None:
+        """The channel's newest event of these kinds."""
+        return self.session.scalars(select(Event).where(Event.channel_pk == channel_pk, Event.kind.in_(kinds))
+                                    .order_by(Event.pk.desc()).limit(1)).one_or_none()
+
     def state_events(self, channel_pk: int, *, after_version: int, kinds: Sequence[str]) -> list[Event]:
         """Events of the given kinds after a version, in version order (for replay)."""
         stmt = (select(Event).where(Event.channel_pk == channel_pk, Event.kind.in_(kinds),
@@ -341,6 +357,12 @@ class Repository:
         if after_id is not None:
             stmt = stmt.where(ApiKey.id > after_id)
         return self.session.scalars(stmt).all()
+
+    def key_used(self, key_id: str, at: datetime) -> None:
+        """Record a key's use at ``at`` (one UPDATE; never moves the time back)."""
+        self.session.execute(update(ApiKey).where(ApiKey.id == key_id)
+                             .where((ApiKey.last_used_at.is_(None)) | (ApiKey.last_used_at < at))
+                             .values(last_used_at=at))
 
     def revoke_key(self, key: ApiKey) -> None:
         key.revoked_at = utcnow()

@@ -73,6 +73,8 @@ class Channel(Base):
     id: Mapped[str] = mapped_column(String(128), unique=True)
     config: Mapped[dict[str, Any]] = mapped_column(JSON)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    #: when the channel was archived (its history kept, no new samples or changes); null: live
+    archived_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
 
 
 class ChannelState(Base):
@@ -163,3 +165,5 @@ class ApiKey(Base):
     label: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    #: the last authenticated use, to the minute at best (written at most once a minute per key)
+    last_used_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)

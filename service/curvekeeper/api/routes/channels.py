@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Path, Query
 
@@ -17,6 +17,7 @@ router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON
 ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
 STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
+ARCHIVED_FILTER = "exclude: live channels only (default); include: archived ones too; only: archived ones only"
 
 
 @router.post("", status_code=201, summary="Create a channel", response_model=ChannelCreated)
@@ -29,10 +30,12 @@ def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
 @router.get("", summary="List channels", response_model=ChannelPage)
 def list_channels(ctx: Ctx, who: Who, prefix: Annotated[Plain | None, Query(max_length=128)] = None,
                   state: Annotated[str | None, Query(description=STATE_FILTER)] = None,
+                  archived: Annotated[Literal["exclude", "include", "only"], Query(description=ARCHIVED_FILTER)]
+                  = "exclude",
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=False) as unit:
-        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit)
+        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit, archived=archived)
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 

@@ -107,6 +107,9 @@ class ChannelPublic(ChannelConfig):
                                          "one, predict answers 409 not_calibrated")
     last_sample_at: datetime | None
     created_at: datetime
+    archived: bool = Field(description="archived: its history can be read, it takes no samples nor changes (409 "
+                                       "archived) and the list leaves it out unless asked")
+    archived_at: datetime | None = Field(description="when it was archived; null: live")
 
 
 class ChannelCreated(ChannelPublic):
@@ -135,6 +138,8 @@ class DamagedChannel(BaseModel):
     version: int
     last_sample_at: datetime | None
     created_at: datetime
+    archived: bool
+    archived_at: datetime | None
 
 
 def _item_kind(v: Any) -> str:
@@ -148,6 +153,6 @@ ChannelItem = Annotated[Annotated[ChannelPublic, Tag("channel")] | Annotated[Dam
 
 class ChannelPage(BaseModel):
     items: list[ChannelItem] = Field(
-        description="channels by creation order; one whose stored state cannot be restored is listed with state "
-                    "damaged")
+        description="channels by creation order (archived ones only when asked); one whose stored state cannot be "
+                    "restored is listed with state damaged")
     next_cursor: str | None = Field(description="pass as ?cursor= for the next page; null: the last page")

@@ -28,6 +28,8 @@ class KeyPublic(Answer):
     label: str | None
     created_at: datetime
     revoked_at: datetime | None = Field(description="null while the key is valid")
+    last_used_at: datetime | None = Field(description="its last authenticated use, recorded at most once a minute "
+                                                      "(so up to a minute early); null: not used yet")
 
 
 class KeyCreated(KeyPublic):

@@ -1,5 +1,5 @@
-"""Lifecycle requests: acknowledge a drift alarm, take a channel out of service and back.
-Both answer the channel (``ChannelPublic``)."""
+"""Lifecycle requests: acknowledge a drift alarm, take a channel out of service and back,
+archive it and unarchive it. Each answers the channel (``ChannelPublic``)."""
 
 from __future__ import annotations
 
@@ -28,3 +28,12 @@ class ServiceIn(BaseModel):
 
     state: ServiceState
     note: Note
+
+
+class ArchiveIn(BaseModel):
+    """Why the channel is archived or unarchived (optional; kept in its event)."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={
+        "examples": [{"note": "probe removed with the old freezer"}, {}]})
+
+    note: Note | None = None
