@@ -202,6 +202,7 @@ async function loadAll() {
   }
   if (page.overlay) await overlaySnapshot(page.overlay.snapshot, true);
   renderFacts();
+  ARCHIVE.render(page.ch, loadAll);
   await renderCurve();
   await renderResiduals();
   renderSnapshots();

@@ -76,16 +76,38 @@ const CK = (() => {
     return unit ? `${s} ${unit}` : s;
   }
 
+  // the display rule shared with the command line (curvekeeper/display.py, which says it
+  // in full): times in UTC as YYYY-MM-DD HH:MM:SS, the fraction cut off; a time without a
+  // zone is UTC (a browser would take it as local time)
   function when(iso) {
     if (!iso) return "–";
-    const d = new Date(iso);
-    if (Number.isNaN(d.getTime())) return iso;
+    const text = String(iso);
+    const d = new Date(/T\d\d:\d\d(:\d\d(\.\d+)?)?$/.test(text) ? text + "Z" : text);
+    if (Number.isNaN(d.getTime())) return text;
     return d.toISOString().replace("T", " ").replace(/\.\d+Z$/, "").replace(/Z$/, "");
+  }
+
+  // channel order, shared with the command line (curvekeeper/display.py): attention first
+  // (a damaged state, an alarm, out of service, out of tolerance, a warning), then the
+  // rest, then archived channels; within a rank by id, in plain character order
+  const ATTENTION = 5;
+  function rank(ch) {
+    const d = ch.drift || {};
+    if (ch.archived) return 6;
+    if (ch.state === "damaged") return 0;
+    if (d.state === "alarm") return 1;
+    if (ch.service_state === "out_of_service") return 2;
+    if (d.tolerance_state === "out_of_tolerance") return 3;
+    if (d.state === "warning") return 4;
+    return ATTENTION;
+  }
+  function byRank(a, b) {
+    return rank(a) - rank(b) || (a.id < b.id ? -1 : a.id > b.id ? 1 : 0);
   }
 
   const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
                         out_of_tolerance: "out of tolerance", out_of_service: "out of service",
-                        damaged: "state damaged" };
+                        damaged: "state damaged", archived: "archived" };
   function badge(state) {
     if (!state) return el("span", { class: "state state-none", text: "not checked" });
     return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });
@@ -101,5 +123,5 @@ const CK = (() => {
     if (out) out.addEventListener("click", signOut);
   });
 
-  return { key, setKey, signOut, api, all, el, num, when, badge, say, plotText, ApiError };
+  return { key, setKey, signOut, api, all, el, num, when, rank, byRank, ATTENTION, badge, say, plotText, ApiError };
 })();

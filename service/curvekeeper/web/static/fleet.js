@@ -1,25 +1,19 @@
 "use strict";
-// attention first: a damaged state, an alarm, out of service, out of tolerance, a warning; then the rest
+// attention first, then the rest, then archived channels (only with "show archived"): the
+// order CK.rank gives, the same as the command line's
 const REFRESH_MS = 30000;
-function rank(ch) {
-  const d = ch.drift || {};
-  if (ch.state === "damaged") return 0;
-  if (d.state === "alarm") return 1;
-  if (ch.service_state === "out_of_service") return 2;
-  if (d.tolerance_state === "out_of_tolerance") return 3;
-  if (d.state === "warning") return 4;
-  return 5;
-}
-const ATTENTION = 5;
+const { rank, ATTENTION } = CK;
 
 async function loadFleet() {
   const prefix = document.getElementById("prefix").value.trim();
   const state = document.getElementById("state").value;
+  const archived = document.getElementById("show-archived").checked;
   const summary = document.getElementById("fleet-summary");
   const tbody = document.querySelector("#fleet-table tbody");
   const q = new URLSearchParams();
   if (prefix) q.set("prefix", prefix);
   if (state) q.set("state", state);
+  if (archived) q.set("archived", "include");
   summary.textContent = "Loading …";
   if (!tbody.children.length) {
     tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "7", text: "Loading the channels …" })));
@@ -31,7 +25,7 @@ async function loadFleet() {
     summary.textContent = `Could not load the channels: ${e.message}`;
     return;
   }
-  items.sort((a, b) => rank(a) - rank(b) || a.id.localeCompare(b.id));
+  items.sort(CK.byRank);
   const { el, num } = CK;
   tbody.replaceChildren(...items.map((ch) => {
     const d = ch.drift || {};
@@ -42,7 +36,9 @@ async function loadFleet() {
     const drift = ch.state === "damaged" ? [CK.badge("damaged")]
       : [CK.badge(d.state), " ", el("small", { text: `statistic ${num(d.statistic, "", 3)} of ${num(d.alarm, "", 3)}` })];
     if (ch.service_state === "out_of_service") drift.push(" ", CK.badge("out_of_service"));
-    return el("tr", { class: rank(ch) < ATTENTION ? "attention" : "", "data-channel": ch.id },
+    if (ch.archived) drift.unshift(CK.badge("archived"), " ");
+    const cls = ch.archived ? "archived" : rank(ch) < ATTENTION ? "attention" : "";
+    return el("tr", { class: cls, "data-channel": ch.id },
       el("td", {}, el("a", { href: "/ui/channels/" + encodeURIComponent(ch.id), text: ch.id })),
       el("td", {}, ...drift),
       el("td", {}, tol),
@@ -52,7 +48,9 @@ async function loadFleet() {
       el("td", { text: ch.description || "" }));
   }));
   const attention = items.filter((c) => rank(c) < ATTENTION).length;
+  const retired = items.filter((c) => c.archived).length;
   summary.textContent = `${items.length} channel${items.length === 1 ? "" : "s"}` +
+    (archived ? ` (${retired} archived, listed last)` : "") +
     (attention ? `, ${attention} needing attention (listed first)` : ", none needing attention") +
     ` · updated ${new Date().toLocaleTimeString()}, every ${REFRESH_MS / 1000} s`;
 }
@@ -61,6 +59,7 @@ document.addEventListener("DOMContentLoaded", () => {
   if (!CK.key()) { location.assign("/ui/"); return; }
   document.getElementById("filters").addEventListener("submit", (ev) => { ev.preventDefault(); loadFleet(); });
   document.getElementById("state").addEventListener("change", loadFleet);
+  document.getElementById("show-archived").addEventListener("change", loadFleet);
   loadFleet();
   // keep the list current while the page is in view
   setInterval(() => { if (document.visibilityState === "visible") loadFleet(); }, REFRESH_MS);
