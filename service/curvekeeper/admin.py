@@ -1,4 +1,4 @@
-"""The admin commands: ``keys create``, ``db upgrade``, ``db backup``, ``replay``.
+"""The admin commands: ``keys create``, ``keys list|revoke --db``, ``db upgrade``, ``db backup``, ``replay``.
 
 They work directly on an existing store and never create one: a store that is not
 there (an SQLite file that does not exist, a PostgreSQL database that cannot be
@@ -160,6 +160,61 @@ def cmd_keys_create(args: argparse.Namespace) -> int:
     print(json.dumps({k: key[k] for k in ("id", "role", "prefixes", "secret")}))
     print("keep the secret now: it is not stored and cannot be shown again", file=sys.stderr)
     return 0
+
+
+def cmd_keys_list(args: argparse.Namespace) -> int:
+    """``keys list --db``: the keys as ``GET /v1/keys`` lists them (the same action), printed
+    as ``keys list`` prints the service's."""
+    from .actions import keys
+    from .techcli.manage import print_keys
+
+    store = open_store(args, "keys list")
+    if isinstance(store, int):
+        return store
+    items: list[dict[str, object]] = []
+    cursor: str | None = None
+    try:
+        with store.transaction(write=False) as repo:
+            while True:
+                page = keys.list_(repo, cursor=cursor, limit=1000)
+                items += page.items
+                if not (cursor := page.next_cursor):
+                    break
+    finally:
+        store.dispose()
+    print_keys(json.loads(json.dumps(items, default=_iso)), args.json)
+    return 0
+
+
+def cmd_keys_revoke(args: argparse.Namespace) -> int:
+    """``keys revoke KEY_ID --db``: as ``DELETE /v1/keys/{id}`` does it (the same action, an
+    event without an acting key, ``by`` the command line). A server caches keys for a few
+    seconds: one running on this store refuses the key within that time."""
+    from .actions import keys
+    from .errors import ServiceError
+    from .techcli.manage import check_key_id, print_revoked
+
+    check_key_id(args.key_id)
+    store = open_store(args, "keys revoke")
+    if isinstance(store, int):
+        return store
+    try:
+        with store.transaction(write=True) as repo:
+            key = keys.revoke(repo, args.key_id, None)
+    except ServiceError as exc:
+        print(f"keys revoke: {exc.message}", file=sys.stderr)
+        return 1
+    finally:
+        store.dispose()
+    print_revoked(json.loads(json.dumps(key, default=_iso)))
+    return 0
+
+
+def _iso(value: object) -> str:
+    """A datetime as the service's JSON writes it (ISO-8601)."""
+    if hasattr(value, "isoformat"):
+        return str(value.isoformat())
+    raise TypeError(f"{type(value).__name__} is not JSON")
 
 
 def cmd_db_upgrade(args: argparse.Namespace) -> int:

@@ -133,7 +133,8 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--seed", type=int, default=7, help="seed of the invented scenario (default 7: the demo's)")
     sim.set_defaults(func=_simulate)
 
-    keys = sub.add_parser("keys", help="manage API keys directly in an existing store (never creates one)")
+    keys = sub.add_parser("keys", help="manage API keys: create one in an existing store (never creates a store); "
+                                       "list or revoke them through the service, or in the store with --db")
     keys_sub = keys.add_subparsers(dest="keys_command", required=True)
     create = keys_sub.add_parser("create", help="mint a key and print its secret once")
     create.add_argument("--role", required=True, choices=["admin", "technician", "device"], help="what the key may do")
@@ -141,6 +142,9 @@ def build_parser() -> argparse.ArgumentParser:
     create.add_argument("--label", help="what the key is for")
     create.add_argument("--db", help=EXISTING_DB)
     create.set_defaults(func=_admin("cmd_keys_create"))
+    from . import techcli
+
+    techcli.add_key_commands(keys_sub, EXISTING_DB)
 
     db = sub.add_parser("db", help="maintenance of an existing store (never creates one)")
     db_sub = db.add_subparsers(dest="db_command", required=True)

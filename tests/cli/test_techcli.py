@@ -124,7 +124,7 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     monkeypatch.setattr(techcli.common, "PAGE", 2)
     assert main(["channels", "list", "--prefix", "list."]) == 0
     out = capsys.readouterr().out.splitlines()
-    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample"]
+    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "(UTC)"]
     assert [line.split()[0] for line in out[1:]] == [f"list.c{i}" for i in range(5)]
     row = next(line for line in out if line.startswith("list.c3"))
     assert row.split()[1:4] == ["ok", "-", "1"] and "degC" in row and "2026-12-01" in row

@@ -1,7 +1,8 @@
 """The technician's commands: a client of a running service.
 
-``curvekeeper channels list``, ``channels show``, ``curve``, ``snapshots list|take|diff``,
-``rollback``, ``calibrate``, ``samples export|load``. The service's address comes from
+``curvekeeper channels list|show|create|patch|archive|unarchive``, ``curve``,
+``snapshots list|take|diff``, ``rollback``, ``calibrate``, ``samples export|load``, and
+``keys list|revoke`` (an admin key; with ``--db``, on the store directly). The service's address comes from
 ``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
 environment variable ``CURVEKEEPER_KEY``, never from a flag, so it stays out of shell history
 and process lists.
@@ -13,6 +14,7 @@ Exit codes: 0 done, 1 the service refused (its message is shown), 2 a usage or l
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from typing import Any
 
 from .commands import (
@@ -27,9 +29,10 @@ from .commands import (
     snapshots_list,
     snapshots_take,
 )
-from .common import DEFAULT_URL, _runner
+from .common import DEFAULT_URL, Handler, LocalError, _err, _runner
+from .manage import channels_archive, channels_create, channels_patch, keys_list, keys_revoke
 
-__all__ = ["add_commands"]
+__all__ = ["add_commands", "add_key_commands"]
 
 
 def _common() -> argparse.ArgumentParser:
@@ -46,18 +49,39 @@ def add_commands(sub: Any) -> None:
     """Register the technician's commands on the ``curvekeeper`` sub-parsers."""
     common = [_common()]
 
-    ch = sub.add_parser("channels", help="list channels or show one (service client)")
+    ch = sub.add_parser("channels", help="list, show, create, change, archive or unarchive channels (service client)")
     ch_sub = ch.add_subparsers(dest="channels_command", required=True)
     ls = ch_sub.add_parser("list", parents=common, help="all channels (every page)")
     ls.add_argument("--prefix", help="only ids starting with this")
-    ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance"],
+    ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance", "damaged"],
                     help="only channels in this state")
+    ls.add_argument("--archived", choices=["include", "only"],
+                    help="archived channels too (listed last), or only them (default: live channels only)")
     ls.add_argument("--json", action="store_true", help="the service's items as JSON")
     ls.set_defaults(func=_runner(channels_list))
     show = ch_sub.add_parser("show", parents=common, help="one channel's configuration and summary")
     show.add_argument("channel", help="the channel's id")
     show.add_argument("--json", action="store_true", help="print the service's JSON answer instead of a table")
     show.set_defaults(func=_runner(channels_show))
+    mk = ch_sub.add_parser("create", parents=common, help="create a channel from a JSON or TOML file")
+    mk.add_argument("--file", required=True, metavar="FILE",
+                    help="the channel's definition (.json or .toml): id, inputs, output, basis and any settings, "
+                         "as in the API's create body")
+    mk.add_argument("--json", action="store_true", help="print the service's JSON answer instead of a summary")
+    mk.set_defaults(func=_runner(channels_create))
+    pa = ch_sub.add_parser("patch", parents=common, help="change a channel's settings from a JSON or TOML file")
+    pa.add_argument("channel", help="the channel's id")
+    pa.add_argument("--file", required=True, metavar="FILE",
+                    help="the settings to change (.json or .toml), as in the API's PATCH body; a null needs JSON")
+    pa.add_argument("--json", action="store_true", help="print the service's JSON answer instead of a summary")
+    pa.set_defaults(func=_runner(channels_patch))
+    for verb, text in (("archive", "retire a channel: its history is kept, it takes no samples nor changes and "
+                                   "the lists leave it out"),
+                       ("unarchive", "bring an archived channel back")):
+        ar = ch_sub.add_parser(verb, parents=common, help=text)
+        ar.add_argument("channel", help="the channel's id")
+        ar.add_argument("--note", help="why (kept in the channel's events and the audit trail)")
+        ar.set_defaults(func=_runner(channels_archive))
 
     cv = sub.add_parser("curve", parents=common, help="a channel's curve over its input range, with coefficients")
     cv.add_argument("channel", help="the channel's id")
@@ -116,3 +140,35 @@ def add_commands(sub: Any) -> None:
                                      "(default csv:<file name>)")
     ld.add_argument("--batch", type=int, default=1000, help="rows per request (default 1000)")
     ld.set_defaults(func=_runner(samples_load))
+
+
+def _keys(handler: Handler, local: str) -> Callable[[argparse.Namespace], int]:
+    """Through the service, or with ``--db`` on the store directly (``curvekeeper.admin``)."""
+    remote = _runner(handler)
+
+    def run(args: argparse.Namespace) -> int:
+        if args.db is None:
+            return remote(args)
+        from .. import admin
+
+        try:
+            return int(getattr(admin, local)(args))
+        except LocalError as exc:
+            _err(str(exc))
+            return 2
+    return run
+
+
+def add_key_commands(keys_sub: Any, existing_db: str) -> None:
+    """``keys list`` and ``keys revoke`` on the ``curvekeeper keys`` sub-parsers."""
+    common = [_common()]
+    kl = keys_sub.add_parser("list", parents=common, help="every key with its role, label and last use (never a "
+                                                          "secret); through the service with an admin key, or --db")
+    kl.add_argument("--json", action="store_true", help="the keys as JSON (the service's items)")
+    kl.add_argument("--db", help=f"work on this store directly instead of the service: {existing_db}")
+    kl.set_defaults(func=_keys(keys_list, "cmd_keys_list"))
+    kr = keys_sub.add_parser("revoke", parents=common, help="revoke a key at once (it cannot be undone); through "
+                                                            "the service with an admin key, or --db")
+    kr.add_argument("key_id", metavar="KEY_ID", help="the key's id (see: keys list), never its secret")
+    kr.add_argument("--db", help=f"work on this store directly instead of the service: {existing_db}")
+    kr.set_defaults(func=_keys(keys_revoke, "cmd_keys_revoke"))

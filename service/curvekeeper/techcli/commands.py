@@ -9,6 +9,7 @@ from pathlib import Path
 from typing import Any, TextIO
 from urllib.parse import urlencode
 
+from .. import display
 from ..client import Client, ClientError
 from ..csvcells import TextSafeWriter
 from .common import CAUTION, EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
@@ -16,7 +17,10 @@ from .csvfiles import read_points
 
 
 def channels_list(client: Client, args: argparse.Namespace) -> int:
-    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state))
+    """In the fleet page's order (``display.fleet_order``: attention first, archived last),
+    times as the pages write them."""
+    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state, archived=args.archived))
+    items = [dict(c) for c in display.fleet_order(items)]
     if args.json:
         _json(items)
         return 0
@@ -24,12 +28,18 @@ def channels_list(client: Client, args: argparse.Namespace) -> int:
     for ch in items:
         drift = ch.get("drift") or {}
         rmse = ch.get("rmse")
-        rows.append([ch["id"], str(drift.get("state") or "-"), str(drift.get("tolerance_state") or "-"),
+        state = str(ch.get("state") or drift.get("state") or "-")
+        if ch.get("service_state") == "out_of_service":
+            state += ",out_of_service"
+        if ch.get("archived"):
+            state = f"archived({state})"
+        rows.append([ch["id"], state, str(drift.get("tolerance_state") or "-"),
                      str(ch.get("n_samples", 0)),
                      "-" if rmse is None else f"{_num(rmse, 4)} {_unit(ch)}".rstrip(),
-                     str(ch.get("last_sample_at") or "-")])
-    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample"], rows)
-    print(f"{len(rows)} channel(s)", file=sys.stderr)
+                     display.when(ch.get("last_sample_at"))])
+    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample (UTC)"], rows)
+    attention = sum(1 for ch in items if display.rank(ch) < display.ATTENTION)
+    print(f"{len(rows)} channel(s), {attention} needing attention (listed first)", file=sys.stderr)
     return 0
 
 
@@ -57,9 +67,12 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
          f"{drift.get('tolerance_state') or '-'} (tolerance {_num(drift['tolerance'])} {_unit(ch)}, "
          f"largest change {_num(drift.get('max_curve_change'), 4)})"),
         ("version", str(ch.get("version"))),
-        ("last sample", str(ch.get("last_sample_at") or "-")),
-        ("created", str(ch.get("created_at") or "-")),
+        ("last sample", f"{display.when(ch.get('last_sample_at'))} UTC"),
+        ("created", f"{display.when(ch.get('created_at'))} UTC"),
     ]
+    if ch.get("archived"):
+        lines.append(("archived", f"{display.when(ch.get('archived_at'))} UTC: history kept, no samples nor changes "
+                                  "until unarchived"))
     width = max(len(k) for k, _ in lines)
     for k, v in lines:
         print(f"{k.ljust(width)}  {v}")
@@ -133,7 +146,7 @@ def snapshots_list(client: Client, args: argparse.Namespace) -> int:
         return 0
     _table(["id", "reason", "version", "samples", "created", "label"],
            [[str(s["id"]), str(s.get("reason") or "-"), str(s.get("version")), str(s.get("n_samples")),
-             str(s.get("created_at") or "-"), str(s.get("label") or "")] for s in items])
+             display.when(s.get("created_at")), str(s.get("label") or "")] for s in items])
     return 0
 
 

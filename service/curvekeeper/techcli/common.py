@@ -15,6 +15,7 @@ from urllib.parse import urlencode
 import httpx
 
 from ..client import Client, ClientError
+from ..errors import field_path
 
 #: said where a technician acts on a curve (rollback, calibrate): the service is no calibration
 CAUTION = ("Caution: curvekeeper supports calibration work; it does not replace traceable, accredited "
@@ -53,9 +54,24 @@ def _refused(exc: ClientError, url: str) -> int:
         field = exc.details.get("field") if isinstance(exc.details, dict) else None
         where = f" [{field}]" if field else ""
         _err(f"the service refused the request ({exc.status} {exc.code}){where}: {exc.message}")
+        problems = _field_problems(exc.details)
+        if len(problems) > 1:  # the message names the first; list them all
+            print("\n".join(f"  {p}" for p in problems), file=sys.stderr)
     else:
         _err(f"the service answered {exc.status} {exc.code}: {exc.message}")
     return 1
+
+
+def _field_problems(details: Any) -> list[str]:
+    """A validation error's details (``[{"loc", "msg"}, ...]``) as "field: what is wrong" lines."""
+    if not isinstance(details, list):
+        return []
+    out = []
+    for d in details:
+        if isinstance(d, dict) and "msg" in d:
+            loc = [int(p) if isinstance(p, str) and p.isdigit() else p for p in d.get("loc") or []]
+            out.append(f"{field_path(loc) or 'request'}: {d['msg']}")
+    return out
 
 
 def _runner(handler: Handler) -> Callable[[argparse.Namespace], int]:
