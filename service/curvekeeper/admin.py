@@ -192,9 +192,14 @@ def cmd_keys_revoke(args: argparse.Namespace) -> int:
     seconds: one running on this store refuses the key within that time."""
     from .actions import keys
     from .errors import ServiceError
+    from .techcli.common import LocalError
     from .techcli.manage import check_key_id, print_revoked
 
-    check_key_id(args.key_id)
+    try:
+        check_key_id(args.key_id)
+    except LocalError as exc:
+        print(f"curvekeeper: {exc}", file=sys.stderr)
+        return 2
     store = open_store(args, "keys revoke")
     if isinstance(store, int):
         return store

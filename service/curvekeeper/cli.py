@@ -144,7 +144,7 @@ def build_parser() -> argparse.ArgumentParser:
     create.set_defaults(func=_admin("cmd_keys_create"))
     from . import techcli
 
-    techcli.add_key_commands(keys_sub, EXISTING_DB)
+    techcli.add_key_commands(keys_sub, EXISTING_DB, _admin)
 
     db = sub.add_parser("db", help="maintenance of an existing store (never creates one)")
     db_sub = db.add_subparsers(dest="db_command", required=True)

@@ -23,7 +23,8 @@ EXPECTED = {
     errors.Unauthorized: 401, errors.Forbidden: 403, errors.NotFound: 404, errors.ChannelNotFound: 404,
     errors.SnapshotNotFound: 404, errors.KeyNotFound: 404, errors.Conflict: 409, errors.ChannelExists: 409,
     errors.ImmutableField: 409, errors.NotCalibrated: 409, errors.NothingToAcknowledge: 409,
-    errors.ServiceUnchanged: 409, errors.PayloadTooLarge: 413, errors.InvalidRequest: 422,
+    errors.ServiceUnchanged: 409, errors.ChannelArchived: 409, errors.AlreadyArchived: 409, errors.NotArchived: 409,
+    errors.PayloadTooLarge: 413, errors.InvalidRequest: 422,
     errors.InvalidConfig: 422,
     errors.StoreBusy: 503, errors.NotReady: 503, errors.StateDamaged: 500, errors.ServiceError: 500,
 }

@@ -41,6 +41,7 @@ class Row(NamedTuple):
     technician: int
     admin: int
     alarm: bool = False  # each cell first puts the channel in service with a drift alarm (see raise_alarm)
+    archived: bool | None = None  # each cell first archives the channel (True) or makes it live (False)
 
 
 NEW_CHANNEL = {"id": "{new}", **LINEAR}
@@ -79,6 +80,10 @@ MATRIX = [
     Row("GET",    "/v1/keys",                     None,                       401, 401, 401, 403, 403, 403, 200),
     Row("DELETE", "/v1/keys/{kid}",               None,                       401, 401, 401, 403, 403, 403, 200),
     Row("GET",    "/v1/audit",                    None,                       401, 401, 401, 403, 403, 403, 200),
+    Row("POST",   f"{C}/archive",                 {"note": "matrix"},         401, 401, 401, 403, 403, 200, 200,
+        archived=False),
+    Row("POST",   f"{C}/unarchive",               {},                         401, 401, 401, 403, 403, 200, 200,
+        archived=True),
 ]  # fmt: skip
 
 CODES = {401: "unauthorized", 403: "forbidden"}
@@ -112,6 +117,12 @@ def raise_alarm(client: TestClient, keys: Keys) -> None:
     assert r.status_code == 200 and r.json()["drift"]["state"] == "alarm", r.text
 
 
+def set_archived(client: TestClient, keys: Keys, archived: bool) -> None:
+    """Archive the channel, or make it live, unless it is so already."""
+    r = client.post(f"/v1/channels/{CH}/{'archive' if archived else 'unarchive'}", json={}, headers=keys["admin"])
+    assert r.status_code == 200 or r.json()["error"]["code"] == ("already_archived" if archived else "not_archived")
+
+
 def test_the_table_lists_every_route_of_the_app(client: TestClient) -> None:
     routes = app_routes(client)
     table = {(row.method, row.path) for row in MATRIX}
@@ -138,6 +149,8 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
                 names["kid"] = made.json()["id"]
             if row.alarm:
                 raise_alarm(client, keys)
+            if row.archived is not None:
+                set_archived(client, keys, row.archived)
             before = store_fingerprint(client) if want >= 400 else None
             r = client.request(row.method, row.path.format(**names), json=fill(row.body, names),
                                headers=headers[caller])

@@ -29,7 +29,7 @@ from .commands import (
     snapshots_list,
     snapshots_take,
 )
-from .common import DEFAULT_URL, Handler, LocalError, _err, _runner
+from .common import DEFAULT_URL, Handler, _runner
 from .manage import channels_archive, channels_create, channels_patch, keys_list, keys_revoke
 
 __all__ = ["add_commands", "add_key_commands"]
@@ -142,33 +142,26 @@ def add_commands(sub: Any) -> None:
     ld.set_defaults(func=_runner(samples_load))
 
 
-def _keys(handler: Handler, local: str) -> Callable[[argparse.Namespace], int]:
-    """Through the service, or with ``--db`` on the store directly (``curvekeeper.admin``)."""
-    remote = _runner(handler)
 
-    def run(args: argparse.Namespace) -> int:
-        if args.db is None:
-            return remote(args)
-        from .. import admin
-
-        try:
-            return int(getattr(admin, local)(args))
-        except LocalError as exc:
-            _err(str(exc))
-            return 2
-    return run
-
-
-def add_key_commands(keys_sub: Any, existing_db: str) -> None:
-    """``keys list`` and ``keys revoke`` on the ``curvekeeper keys`` sub-parsers."""
+def add_key_commands(keys_sub: Any, existing_db: str, local: Callable[[str], Callable[[argparse.Namespace], int]]
+                     ) -> None:
+    """``keys list`` and ``keys revoke`` on the ``curvekeeper keys`` sub-parsers: through the
+    service, or with ``--db`` on the store directly (``local(name)`` runs that admin command;
+    the client never imports the store itself)."""
     common = [_common()]
     kl = keys_sub.add_parser("list", parents=common, help="every key with its role, label and last use (never a "
                                                           "secret); through the service with an admin key, or --db")
     kl.add_argument("--json", action="store_true", help="the keys as JSON (the service's items)")
     kl.add_argument("--db", help=f"work on this store directly instead of the service: {existing_db}")
-    kl.set_defaults(func=_keys(keys_list, "cmd_keys_list"))
+    kl.set_defaults(func=_either(keys_list, local("cmd_keys_list")))
     kr = keys_sub.add_parser("revoke", parents=common, help="revoke a key at once (it cannot be undone); through "
                                                             "the service with an admin key, or --db")
     kr.add_argument("key_id", metavar="KEY_ID", help="the key's id (see: keys list), never its secret")
     kr.add_argument("--db", help=f"work on this store directly instead of the service: {existing_db}")
-    kr.set_defaults(func=_keys(keys_revoke, "cmd_keys_revoke"))
+    kr.set_defaults(func=_either(keys_revoke, local("cmd_keys_revoke")))
+
+
+def _either(handler: Handler, local: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
+    """Through the service, or with ``--db`` the local command."""
+    remote = _runner(handler)
+    return lambda args: local(args) if args.db is not None else remote(args)
