@@ -24,6 +24,7 @@ from ..errors import (
 )
 from ..store import Repository
 from ..store.tables import ReferenceInstrument, utcnow
+from .channels import validated
 from .paging import Page, decode_cursor, encode_cursor
 
 DUE_STATES = ("ok", "due_soon", "overdue")
@@ -245,6 +246,17 @@ def reference_for_use(repo: Repository, reference_id: str, on: date, allow_overd
     return ReferenceUse(ref.id, ref.unit, ref.expanded_uncertainty, ref.coverage_factor, ref.distribution,
                         from_expanded(ref.expanded_uncertainty, ref.coverage_factor), ref.certificate,
                         ref.calibrated_on, ref.due_on, on, overdue, allow_overdue)
+
+
+def use_on_channel(config: dict[str, Any], use: ReferenceUse) -> dict[str, Any]:
+    """The channel's configuration with its ``reference`` setting taken from the instrument
+    (so predictions count its u); refuses an instrument whose unit is not the channel's
+    output unit (when both are stated)."""
+    unit = config["output"].get("unit") or ""
+    if unit.strip() and use.unit.strip() and unit != use.unit:
+        raise InvalidRequest(f"reference: {use.id!r} states its uncertainty in {use.unit!r}, the channel's output "
+                             f"is in {unit!r}", details={"field": "reference", "reference": use.id})
+    return validated({**config, "reference": use.channel_setting()})
 
 
 def check_named(repo: Repository, ids: Collection[str]) -> None:
