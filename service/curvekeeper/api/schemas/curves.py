@@ -45,7 +45,7 @@ class CalibrateIn(BaseModel):
     reference: ReferenceId | None = Field(None, description=(
         "the reference instrument the points were measured with (GET /v1/references/{id}); the channel's reference "
         "setting then takes its U and k. Unknown: 404; retired: 409; due before today: 409 reference_overdue"))
-    allow_overdue_reference: bool = Field(False, description=(
+    allow_overdue_reference: bool = Field(False, strict=True, description=(
         "calibrate against a reference whose due date has passed; the choice is recorded"))
 
 
