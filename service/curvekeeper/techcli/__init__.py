@@ -1,7 +1,8 @@
 """The technician's commands: a client of a running service.
 
 ``curvekeeper channels list``, ``channels show``, ``curve``, ``snapshots list|take|diff``,
-``rollback``, ``calibrate``, ``samples export|load``. The service's address comes from
+``rollback``, ``calibrate``, ``samples export|load``, ``references list|show|create|patch|retire``.
+The service's address comes from
 ``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
 environment variable ``CURVEKEEPER_KEY``, never from a flag, so it stays out of shell history
 and process lists.
@@ -15,6 +16,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from . import references
 from .commands import (
     calibrate,
     channels_list,
@@ -99,6 +101,9 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
     cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
+    cal.add_argument("--reference", help="the reference instrument the points were measured with")
+    cal.add_argument("--allow-overdue-reference", action="store_true",
+                     help="calibrate although the reference is overdue (recorded)")
     cal.set_defaults(func=_runner(calibrate))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")
@@ -116,3 +121,5 @@ def add_commands(sub: Any) -> None:
                                      "(default csv:<file name>)")
     ld.add_argument("--batch", type=int, default=1000, help="rows per request (default 1000)")
     ld.set_defaults(func=_runner(samples_load))
+
+    references.add(sub, common)

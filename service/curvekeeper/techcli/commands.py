@@ -182,9 +182,15 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
         body["label"] = args.label
     if args.reason is not None:
         body["reason"] = args.reason
+    if args.reference is not None:
+        body.update(reference=args.reference, allow_overdue_reference=args.allow_overdue_reference)
     r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
     unit = _unit(cfg)
     print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
+    if r.get("reference"):
+        ref = r["reference"]
+        print(f"against reference {ref['id']} ({ref['certificate']}, due {ref['due_on']}"
+              f"{', OVERDUE: allowed' if ref['overdue'] else ''})")
     coef = _coefficients(r, cfg)
     if coef:
         print(f"coefficients of {_space(cfg)} (raw input units):")
