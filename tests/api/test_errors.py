@@ -24,7 +24,8 @@ EXPECTED = {
     errors.SnapshotNotFound: 404, errors.KeyNotFound: 404, errors.Conflict: 409, errors.ChannelExists: 409,
     errors.ImmutableField: 409, errors.NotCalibrated: 409, errors.NothingToAcknowledge: 409,
     errors.ServiceUnchanged: 409, errors.PayloadTooLarge: 413, errors.InvalidRequest: 422,
-    errors.InvalidConfig: 422,
+    errors.InvalidConfig: 422, errors.ReferenceNotFound: 404, errors.ReferenceExists: 409,
+    errors.ReferenceRetired: 409, errors.ReferenceOverdue: 409, errors.ReferenceRequired: 422,
     errors.StoreBusy: 503, errors.NotReady: 503, errors.StateDamaged: 500, errors.ServiceError: 500,
 }
 
