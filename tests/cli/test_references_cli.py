@@ -3,6 +3,7 @@ loopback (the fixtures of ``test_techcli``)."""
 
 from __future__ import annotations
 
+import csv
 import io
 import json
 import math
@@ -106,6 +107,15 @@ def test_patch_retire_and_calibrate_against_a_reference(api: Client, tmp_path: P
     monkeypatch.setattr(sys, "stdin", io.StringIO(""))
     assert main(["calibrate", "cli.cal1", str(points), "--reference", "cli.late", "--yes"]) == 1
     assert "reference_retired" in capsys.readouterr().err
+    # samples that named a reference keep its id in the export
+    api.request("POST", "/v1/references", idempotent=False, json={
+        "id": "cli.field", "unit": "degC", "standard_uncertainty": 0.05, "certificate": "C-F",
+        "calibrated_on": DAY.isoformat(), "due_on": (DAY + timedelta(days=90)).isoformat()})
+    api.request("POST", "/v1/channels/cli.cal1/samples", idempotent=False,
+                json={"samples": [{"x": 10.0, "y": 10.1, "reference": "cli.field"}, {"x": 20.0, "y": 20.0}]})
+    assert main(["samples", "export", "cli.cal1"]) == 0
+    table = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
+    assert [r["reference"] for r in table] == ["cli.field", ""]
     assert main(["references", "list", "--retired"]) == 0
     assert [r.split()[0] for r in capsys.readouterr().out.splitlines()[1:]] == ["cli.late"]
     assert main(["references", "show", "cli.late"]) == 0

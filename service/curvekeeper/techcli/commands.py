@@ -223,7 +223,7 @@ def samples_export(client: Client, args: argparse.Namespace) -> int:
             w.writerow([s["seq"], s.get("t") or "", s.get("received_at") or "", s.get("source") or "",
                         "" if s.get("source_seq") is None else s["source_seq"], *map(repr, map(float, xs)),
                         repr(float(s["y"])), "" if s.get("residual") is None else repr(float(s["residual"])),
-                        "true" if s.get("accepted") else "false", s.get("reason") or ""])
+                        "true" if s.get("accepted") else "false", s.get("reason") or "", s.get("reference") or ""])
             n += 1
         return n
 
