@@ -17,11 +17,19 @@ from typing import Any
 from ..client import Client
 from .common import CAUTION, CHANNEL_ID, LocalError, _confirm, _json, _num, _pages, _runner, _table
 
-#: the fields a flag may set, with the flag's type (dates stay text: the service checks them)
-FIELDS: dict[str, type] = {
-    "description": str, "unit": str, "expanded_uncertainty": float, "coverage_factor": float,
-    "standard_uncertainty": float, "half_width": float, "distribution": str, "certificate": str,
-    "calibrated_on": str, "due_on": str, "note": str,
+#: the fields a flag may set: the flag's type (dates stay text: the service checks them) and help
+FIELDS: dict[str, tuple[type, str]] = {
+    "description": (str, "what the instrument is"),
+    "unit": (str, "the unit its uncertainty is stated in (the channels' output unit)"),
+    "expanded_uncertainty": (float, "U from the certificate (with --coverage-factor; normal)"),
+    "coverage_factor": (float, "k stated with U (default 2)"),
+    "standard_uncertainty": (float, "u itself (normal), instead of U and k"),
+    "half_width": (float, "a, the half-width of a rectangular or triangular distribution"),
+    "distribution": (str, "normal (default), or rectangular / triangular with --half-width"),
+    "certificate": (str, "the calibration certificate's id"),
+    "calibrated_on": (str, "the day it was calibrated, YYYY-MM-DD"),
+    "due_on": (str, "the day its calibration is due again, YYYY-MM-DD"),
+    "note": (str, "traceability: to which standard, by whom"),
 }
 DUE_WORDS = {"ok": "ok", "due_soon": "due soon", "overdue": "OVERDUE"}
 
@@ -128,10 +136,9 @@ def references_retire(client: Client, args: argparse.Namespace) -> int:
 
 def _field_flags(p: argparse.ArgumentParser) -> None:
     p.add_argument("--file", help="the fields from a JSON or TOML file (flags win)")
-    for name, kind in FIELDS.items():
-        p.add_argument("--" + name.replace("_", "-"), dest=name, type=kind,
-                       choices=["normal", "rectangular", "triangular"] if name == "distribution" else None,
-                       help="YYYY-MM-DD" if name.endswith("_on") else None)
+    for name, (kind, text) in FIELDS.items():
+        p.add_argument("--" + name.replace("_", "-"), dest=name, type=kind, help=text,
+                       choices=["normal", "rectangular", "triangular"] if name == "distribution" else None)
 
 
 def add(sub: Any, common: list[argparse.ArgumentParser]) -> None:
