@@ -27,7 +27,7 @@ from curvekeeper.config import Settings
 from curvekeeper.kernels import PROCESS
 from curvekeeper.store import migrate
 from curvekeeper.store.engine import make_engine
-from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
+from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, ReferenceInstrument, Sample, Snapshot
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, make_url, select, text
 
@@ -170,13 +170,17 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
     with store.transaction(write=False) as repo:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
-                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey)}
+                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument)}
         states = {pk: (v, n, ms) for pk, v, n, ms in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state))}
         configs = {cid: cfg for cid, cfg in s.execute(select(Channel.id, Channel.config))}
         archived = {cid: at for cid, at in s.execute(select(Channel.id, Channel.archived_at))}
-    return {"counts": counts, "states": states, "configs": configs, "archived": archived}
+        references = {r.id: (r.expanded_uncertainty, r.coverage_factor, r.distribution, r.certificate,
+                             r.calibrated_on, r.due_on, r.note, r.retired, r.updated_at)
+                      for r in s.scalars(select(ReferenceInstrument))}
+    return {"counts": counts, "states": states, "configs": configs, "references": references,
+            "archived": archived}
 
 
 LINEAR = {"inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],

@@ -83,7 +83,8 @@ def test_the_documented_example_is_valid() -> None:
     assert cfg["drift"]["tolerance"] == 0.3
     assert cfg["learner"]["schedule"] == {"kind": "normalized", "mu": 0.2, "eps": 1e-6}
     assert cfg["inputs"][0]["resolution"] == 0.1
-    assert cfg["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0}
+    assert cfg["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0, "distribution": "normal",
+                                "instrument": None}
 
 
 BAD = [
@@ -221,12 +222,14 @@ def test_the_uncertainty_settings_take_their_values() -> None:
         learner={"kind": "rls", "initial_covariance": 1e3, "covariance_bound": 1}))
     assert cfg["inputs"][0]["resolution"] == 0.01
     assert cfg["coverage"] == 0.9999 and cfg["coverage_factor"] == 10.0
-    assert cfg["reference"] == {"expanded_uncertainty": 0.05, "coverage_factor": 2.0}
+    assert cfg["reference"] == {"expanded_uncertainty": 0.05, "coverage_factor": 2.0, "distribution": "normal",
+                                "instrument": None}
     assert cfg["range_margin"] == 0.0
     assert cfg["learner"] == {"kind": "rls", "forgetting": 0.999, "initial_covariance": 1e3,
                               "covariance_bound": 1.0}
     low = channel_config(with_(coverage=0.5, reference={"expanded_uncertainty": 0, "coverage_factor": 3}))
-    assert low["coverage"] == 0.5 and low["reference"] == {"expanded_uncertainty": 0.0, "coverage_factor": 3.0}
+    assert low["coverage"] == 0.5 and low["reference"] == {"expanded_uncertainty": 0.0, "coverage_factor": 3.0,
+                                                           "distribution": "normal", "instrument": None}
     nulls = channel_config(with_(coverage_factor=None, reference=None,
                                  inputs=[{"name": "raw", "min": 0, "max": 5, "resolution": None}],
                                  learner={"kind": "rls", "initial_covariance": None}))

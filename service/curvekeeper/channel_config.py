@@ -28,6 +28,7 @@ from pydantic import (
 from pydantic_core import InitErrorDetails, PydanticCustomError
 
 from .core.drift import DETECTOR_DEFAULTS
+from .core.uncertainty import HALF_WIDTH_DIVISORS
 
 MAX_INPUTS = 8
 MAX_DEGREE = 15
@@ -318,12 +319,34 @@ Drift = Annotated[PageHinkley | Cusum | Ewma, Field(discriminator="detector"),
 
 
 # the channel ---------------------------------------------------------------------------
+#: a reference instrument's id: the same form as a channel's
+ReferenceId = Annotated[str, Field(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN,
+                                   examples=["bath-ref.pt100-3"])]
+#: the distribution behind a stated uncertainty: normal (U with k), or the half-width a of a
+#: rectangular or triangular distribution
+Distribution = Literal["normal", "rectangular", "triangular"]
+
+
 class Reference(Strict):
-    """The reference instrument's expanded uncertainty as its certificate states it."""
+    """The reference instrument's expanded uncertainty as its certificate states it: u = U / k."""
 
     expanded_uncertainty: Annotated[Finite, Field(ge=0.0)] = Field(description="U, output units")
     coverage_factor: Annotated[Positive, Field(le=10.0)] = Field(default=2.0, description="k the certificate "
                                                                                           "states with U")
+    distribution: Distribution = Field(default="normal", description=(
+        "normal: U with k; rectangular or triangular: U is the half-width a and k must be sqrt 3 or sqrt 6 "
+        "(GUM 4.3.7, 4.3.9)"))
+    instrument: ReferenceId | None = Field(default=None, description=(
+        "the reference instrument (GET /v1/references/{id}) these figures were taken from by the last "
+        "calibration that named one; null: typed in"))
+
+    @model_validator(mode="after")
+    def _divisor(self) -> Reference:
+        divisor = HALF_WIDTH_DIVISORS.get(self.distribution)
+        if divisor is not None and not math.isclose(self.coverage_factor, divisor, rel_tol=1e-12):
+            raise rule(("coverage_factor",), f"must be {divisor!r} (sqrt {round(divisor * divisor)}) for a "
+                       f"{self.distribution} distribution, whose U is the half-width a", self.coverage_factor)
+        return self
 
 
 #: the settings of the expanded uncertainty and of the out-of-range hold (PATCH takes them too)
@@ -334,6 +357,9 @@ COVERAGE = "coverage probability of the expanded uncertainty"
 COVERAGE_FACTOR = ("fixed k of the expanded uncertainty k u; null: k from Student's t at the effective degrees "
                    "of freedom and coverage")
 REFERENCE = "the reference instrument's stated uncertainty; null: not counted"
+RequireReference = Annotated[bool, Field(strict=True)]
+REQUIRE_REFERENCE = ("samples must name their reference instrument (per sample or per request); one without "
+                     "is refused with 422 reference_required")
 RANGE_MARGIN = "a sample whose input lies more than this many spans outside [min, max] is held as out of range"
 
 
@@ -377,6 +403,7 @@ class ChannelSettings(Strict):
     coverage_factor: CoverageFactor | None = Field(default=None, description=COVERAGE_FACTOR)
     reference: Reference | None = Field(default=None, description=REFERENCE)
     range_margin: RangeMargin = Field(default=1.0, description=RANGE_MARGIN)
+    require_reference: RequireReference = Field(default=False, description=REQUIRE_REFERENCE)
 
     @model_validator(mode="wrap")
     @classmethod

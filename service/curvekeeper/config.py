@@ -53,6 +53,8 @@ class Settings:
     rate_limit_burst: int = 100
     #: how far ahead of the server's clock a sample's time ``t`` may be, seconds (more: 422)
     max_clock_skew_s: float = 300.0
+    #: a reference instrument due within this many days (its due date included) is due_soon
+    reference_due_soon_days: int = 30
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

@@ -5,12 +5,14 @@ errors, ``curvekeeper.core.errors``, too).
     ServiceError
     ├── Unauthorized      missing, unknown or revoked key
     ├── Forbidden         role or channel prefix not allowed
-    ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound
+    ├── NotFound          ChannelNotFound, SnapshotNotFound, KeyNotFound, ReferenceNotFound
     ├── Conflict          ChannelExists, ImmutableField, NothingToAcknowledge, ServiceUnchanged, NotCalibrated,
-    │                     ChannelArchived, AlreadyArchived, NotArchived
+    │                     ChannelArchived, AlreadyArchived, NotArchived, ReferenceExists, ReferenceRetired,
+    │                     ReferenceOverdue
     ├── PayloadTooLarge   too many samples, points or bytes
     ├── InvalidRequest    a value the schema cannot catch
-    │   └── InvalidConfig a merged channel configuration the declaration refuses
+    │   ├── InvalidConfig a merged channel configuration the declaration refuses
+    │   └── ReferenceRequired  a sample without a reference on a channel that requires one
     ├── StoreBusy         the store is locked or unreachable (retry after ``retry_after`` s)
     ├── NotReady          still starting: the compiled kernels are not built (retry after ``retry_after`` s)
     └── StateDamaged      a stored model state cannot be restored: the server's fault
@@ -56,8 +58,29 @@ class KeyNotFound(NotFound):
     code = "key_not_found"
 
 
+class ReferenceNotFound(NotFound):
+    code = "reference_not_found"
+
+
 class Conflict(ServiceError):
     code = "conflict"
+
+
+class ReferenceExists(Conflict):
+    code = "reference_exists"
+
+
+class ReferenceRetired(Conflict):
+    """The reference instrument is retired: no new sample or calibration may name it."""
+
+    code = "reference_retired"
+
+
+class ReferenceOverdue(Conflict):
+    """The reference instrument's due date lies before the calibration's date; a calibration
+    may still use it with ``allow_overdue_reference``, which is recorded."""
+
+    code = "reference_overdue"
 
 
 class ChannelExists(Conflict):
@@ -104,6 +127,12 @@ class PayloadTooLarge(ServiceError):
 
 class InvalidRequest(ServiceError):
     code = "invalid_request"
+
+
+class ReferenceRequired(InvalidRequest):
+    """The channel requires each sample to name its reference instrument; one does not."""
+
+    code = "reference_required"
 
 
 class InvalidConfig(InvalidRequest):

@@ -332,7 +332,8 @@ def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
     assert ch["id"] == "coldroom2.probe07"
     assert ch["description"] == "thermistor probe, rack 2"
     assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0, "resolution": 0.1}]
-    assert ch["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0}
+    assert ch["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0, "distribution": "normal",
+                               "instrument": None}
     assert ch["output"] == {"name": "temperature", "unit": "degC", "transform": "reciprocal",
                             "offset": 273.15}
     assert ch["basis"] == {"kind": "log_poly", "powers": [0, 1, 3]}
@@ -741,7 +742,8 @@ def test_patch_changes_the_uncertainty_settings_and_null_restores_students_t(cli
     assert predicted()["k"] == [pytest.approx(float(stats.t.ppf(0.995, dof)), rel=1e-12)]
     # a reference instrument of U = 0.2, k = 2: u^2 gains (0.2 / 2)^2 (GUM 4.3.3 and eq. 10)
     ch = patch({"reference": {"expanded_uncertainty": 0.2}})
-    assert ch["reference"] == {"expanded_uncertainty": 0.2, "coverage_factor": 2.0}
+    assert ch["reference"] == {"expanded_uncertainty": 0.2, "coverage_factor": 2.0, "distribution": "normal",
+                               "instrument": None}
     with_ref = predicted()
     assert with_ref["u"][0] == pytest.approx(float(np.hypot(t["u"][0], 0.1)), rel=1e-12)
     assert patch({"reference": None})["reference"] is None

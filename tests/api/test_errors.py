@@ -25,7 +25,8 @@ EXPECTED = {
     errors.ImmutableField: 409, errors.NotCalibrated: 409, errors.NothingToAcknowledge: 409,
     errors.ServiceUnchanged: 409, errors.ChannelArchived: 409, errors.AlreadyArchived: 409, errors.NotArchived: 409,
     errors.PayloadTooLarge: 413, errors.InvalidRequest: 422,
-    errors.InvalidConfig: 422,
+    errors.InvalidConfig: 422, errors.ReferenceNotFound: 404, errors.ReferenceExists: 409,
+    errors.ReferenceRetired: 409, errors.ReferenceOverdue: 409, errors.ReferenceRequired: 422,
     errors.StoreBusy: 503, errors.NotReady: 503, errors.StateDamaged: 500, errors.ServiceError: 500,
 }
 

@@ -48,6 +48,9 @@ NEW_CHANNEL = {"id": "{new}", **LINEAR}
 SAMPLES = {"samples": [{"x": 50.0, "y": 3.0}]}
 GATEWAY = {"samples": [{"channel": CH, "x": 50.0, "y": 3.0}]}
 POINTS = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 2.0}, {"x": 100.0, "y": 3.0}]}
+REF = "matrix.ref"
+NEW_REFERENCE = {"id": "{new}", "unit": "kPa", "expanded_uncertainty": 0.02, "certificate": "CERT-M",
+                 "calibrated_on": "2026-01-05", "due_on": "2036-01-05"}
 
 C = "/v1/channels/{channel_id}"
 MATRIX = [
@@ -84,6 +87,10 @@ MATRIX = [
         archived=False),
     Row("POST",   f"{C}/unarchive",               {},                         401, 401, 401, 403, 403, 200, 200,
         archived=True),
+    Row("POST",   "/v1/references",               NEW_REFERENCE,              401, 401, 401, 403, 403, 201, 201),
+    Row("GET",    "/v1/references",               None,                       401, 401, 401, 200, 200, 200, 200),
+    Row("GET",    "/v1/references/{reference_id}", None,                      401, 401, 401, 200, 200, 200, 200),
+    Row("PATCH",  "/v1/references/{reference_id}", {"note": "matrix"},        401, 401, 401, 403, 403, 200, 200),
 ]  # fmt: skip
 
 CODES = {401: "unauthorized", 403: "forbidden"}
@@ -135,6 +142,8 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
     r = client.post(f"/v1/channels/{CH}/snapshots", headers=keys["technician"])
     assert r.status_code == 201, r.text
     snapshot_id = r.json()["id"]
+    r = client.post("/v1/references", json={**NEW_REFERENCE, "id": REF}, headers=keys["technician"])
+    assert r.status_code == 201, r.text
     headers: dict[str, Headers] = {"none": {}, "bad_key": auth(BAD_SECRET)}
     headers.update({name: keys[name] for name in CALLERS[2:]})
     fresh = itertools.count(1)
@@ -142,7 +151,8 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
     for row in MATRIX:
         for caller in CALLERS:
             want: int = getattr(row, caller)
-            names: dict[str, Any] = {"channel_id": CH, "snapshot_id": snapshot_id, "new": f"site-a.new{next(fresh)}"}
+            names: dict[str, Any] = {"channel_id": CH, "snapshot_id": snapshot_id, "new": f"site-a.new{next(fresh)}",
+                                     "reference_id": REF}
             if "{kid}" in row.path:
                 made = client.post("/v1/keys", json={"role": "device"}, headers=keys["admin"])
                 assert made.status_code == 201, made.text

@@ -11,10 +11,12 @@ import math
 import numpy as np
 import pytest
 from curvekeeper.core.uncertainty import (
+    HALF_WIDTH_DIVISORS,
     Component,
     budget,
     coverage_factor,
     from_expanded,
+    from_half_width,
     rectangular,
     welch_satterthwaite,
 )
@@ -161,7 +163,7 @@ def test_budget_refuses_what_it_cannot_mean() -> None:
     with pytest.raises(ValueError, match="type"):
         Component("x", "C", "normal", 1.0)  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="distribution"):
-        Component("x", "A", "triangular", 1.0)  # type: ignore[arg-type]
+        Component("x", "A", "trapezoidal", 1.0)  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="at least one"):
         budget([])
     with pytest.raises(ValueError, match="negative"):
@@ -184,3 +186,18 @@ def test_from_expanded_divides_by_k() -> None:
     assert from_expanded(0.075, 3.0) == pytest.approx(0.025, rel=1e-12)  # GUM H.1's certificate
     with pytest.raises(ValueError, match="positive"):
         from_expanded(1.0, 0.0)
+
+
+def test_from_half_width_by_the_gum_and_scipy() -> None:
+    """GUM 4.3.7: limits +-a with a rectangular distribution give u = a / sqrt 3; GUM 4.3.9: a
+    triangular (symmetric) one u = a / sqrt 6. Worked by hand for a = 0.3: sqrt 3 / 10 =
+    0.17320508...; for a = 0.6: sqrt 6 / 10 = 0.24494897... Checked too against scipy's
+    standard deviations of the same distributions on [-a, a]."""
+    assert from_half_width(0.3, "rectangular") == pytest.approx(0.17320508075688772, rel=1e-14)
+    assert from_half_width(0.6, "triangular") == pytest.approx(0.24494897427831781, rel=1e-14)
+    for a in (0.01, 0.3, 2.5):
+        assert from_half_width(a, "rectangular") == pytest.approx(stats.uniform(-a, 2 * a).std(), rel=1e-12)
+        assert from_half_width(a, "triangular") == pytest.approx(stats.triang(0.5, -a, 2 * a).std(), rel=1e-12)
+    assert HALF_WIDTH_DIVISORS["rectangular"] ** 2 == pytest.approx(3.0, rel=1e-15)
+    with pytest.raises(ValueError, match="distribution"):
+        from_half_width(0.1, "normal")

@@ -159,14 +159,15 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
 
 
 def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
-    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin")}
+    # require_reference came later still (0007)
+    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin", "require_reference")}
     out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
     out["coverage_factor"] = 2.0
     return out
 
 
 def _filled(config: dict[str, Any]) -> dict[str, Any]:
-    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, **config,
+    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, "require_reference": False, **config,
             "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
 
 

@@ -53,6 +53,13 @@ def summary(e: Event, channel: str | None) -> str:
             return f"created {d.get('role')} key {d.get('id')}{prefixes}"
         case "key_revoked":
             return f"revoked key {d.get('id')}"
+        case "reference_created":
+            return f"created reference instrument {d.get('reference')}"
+        case "reference_changed":
+            changed = ", ".join(sorted(d.get("changes") or {})) or "nothing"
+            return f"changed reference instrument {d.get('reference')}: {changed}"
+        case "reference_retired":
+            return f"retired reference instrument {d.get('reference')}"
         case "guard":
             return f"guard{on} at sample {d.get('sample_seq')}: {d.get('message')}"
         case kind if kind.startswith("drift_"):

@@ -11,6 +11,7 @@ import numpy as np
 from ..core import ChannelModel, FitError, InputError
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
 from .channels import load, refuse_archived
+from .references import reference_for_use, today, use_on_channel
 from .unit import Unit, item_cost, restore
 
 HISTORY_LIMIT = 1_000_000
@@ -114,13 +115,18 @@ def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
 def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], float]],
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None, dry_run: bool = False,
-              reason: str | None = None) -> dict[str, Any]:
+              reason: str | None = None, reference: str | None = None,
+              allow_overdue_reference: bool = False) -> dict[str, Any]:
     """Fit the points (and/or stored history) and make the fit the channel's curve; with
     ``dry_run``, only report what the fit would be, changing nothing. ``reason`` (why, in a
-    person's words) goes into the event for the audit trail; replay does not read it."""
+    person's words) goes into the event for the audit trail; replay does not read it.
+    ``reference`` names the reference instrument (checked as ``reference_for_use`` does);
+    the channel's ``reference`` setting then takes its U and k."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
     refuse_archived(ch)  # a dry run too: it previews a change the channel cannot take
+    use = None if reference is None else reference_for_use(repo, reference, today(), allow_overdue_reference)
+    config = ch.config if use is None else use_on_channel(ch.config, use)
     model = unit.write_model(st)
     d = len(model.config["inputs"])
     xs: list[list[float]] = []
@@ -152,6 +158,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
         report = model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
     except (FitError, InputError) as exc:
         raise InvalidRequest(exc.message, details=exc.details) from exc
+    facts = None if use is None else use.facts()
+    report["reference"] = facts
     if dry_run:
         report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False})
         return report
@@ -159,12 +167,16 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
     before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, config=ch.config,
                                   model_state=before_state,
                                   version=st.version, n_samples=st.n_samples)
+    if config is not ch.config:
+        model = model.with_settings(config)
+        repo.save_config(ch, config)
     state = model.to_state()
-    after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=ch.config, model_state=state,
+    after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=config, model_state=state,
                                  version=version, n_samples=st.n_samples)
     unit.save_model(st, model, version)
+    used = {} if use is None else {"reference": facts, "reference_setting": config["reference"]}
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
-                         "details": {"label": label, **({"reason": reason} if reason else {}),
+                         "details": {"label": label, **({"reason": reason} if reason else {}), **used,
                                      "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],
                                      "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],

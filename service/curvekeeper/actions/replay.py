@@ -153,6 +153,8 @@ def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, de
             ys += hy
         d = len(model.config["inputs"])
         model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
+        if details.get("reference_setting"):  # the reference instrument named gave the channel its U and k
+            return model.with_settings({**model.config, "reference": details["reference_setting"]})
         return model
     if kind == "settings_changed":
         cfg = details["config"]

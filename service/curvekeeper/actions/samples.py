@@ -12,12 +12,13 @@ import numpy as np
 
 from ..channel_config import min_snapshot_every
 from ..core import InputError, LearnResult
-from ..errors import ChannelArchived, ChannelNotFound, InvalidRequest
+from ..errors import ChannelArchived, ChannelNotFound, InvalidRequest, ReferenceRequired
 from ..store import Repository
 from ..store.repository import LearningState, SampleRows
 from ..store.tables import utcnow
 from .channels import load
 from .paging import Page, decode_cursor, encode_cursor
+from .references import check_named
 from .unit import Unit, item_cost
 
 
@@ -33,16 +34,20 @@ class SampleLike(Protocol):
     def t(self) -> datetime | None: ...
     @property
     def seq(self) -> int | None: ...
+    @property
+    def reference(self) -> str | None: ...
 
 
 @dataclass(frozen=True)
 class SampleIn:
-    """x: raw inputs in input order; y: reference; t: measurement time; seq: the source's number."""
+    """x: raw inputs in input order; y: reference; t: measurement time; seq: the source's
+    number; reference: the reference instrument's id."""
 
     x: float | list[float]
     y: float
     t: datetime | None = None
     seq: int | None = None
+    reference: str | None = None
 
 
 @dataclass
@@ -62,9 +67,29 @@ def _wrong_inputs(i: int, d: int) -> InvalidRequest:
                           details={"index": i, "field": "x"})
 
 
+def _references(unit: Unit, samples: Sequence[SampleLike], keep: list[int], reference: str | None,
+                required: bool) -> list[str | None] | None:
+    """Per kept sample, the reference instrument it names (its own, else the request's);
+    None when none does. Raises when a named one is unknown or retired, or when the channel
+    requires one and a sample names none."""
+    refs = [samples[i].reference or reference for i in keep]
+    if required:
+        missing = next((keep[k] for k, r in enumerate(refs) if r is None), None)
+        if missing is not None:
+            raise ReferenceRequired(f"sample {missing}: this channel requires each sample to name its reference "
+                                    "instrument (per sample, or reference for the whole request)",
+                                    details={"index": missing, "field": "reference"})
+    named = {r for r in refs if r is not None}
+    if not named:
+        return None
+    check_named(unit.repo, named)
+    return refs
+
+
 def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
-                   source: str | None, key_id: str | None) -> ChannelOutcome:
-    """Learn ``samples`` (in order) on a locked channel and write everything for it."""
+                   source: str | None, key_id: str | None, reference: str | None = None) -> ChannelOutcome:
+    """Learn ``samples`` (in order) on a locked channel and write everything for it;
+    ``reference`` is the reference instrument of the samples that name none."""
     repo = unit.repo
     now = utcnow()
     model = unit.write_model(st)
@@ -97,6 +122,7 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
         xs.append(x)
         ys.append(s.y)
         keep.append(i)
+    refs = _references(unit, samples, keep, reference, bool(model.config.get("require_reference")))
     X = np.array(xs, dtype=np.float64).reshape(len(keep), d)
     y = np.array(ys, dtype=np.float64)
     n0, v0 = st.n_samples, st.version
@@ -134,7 +160,7 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     repo.insert_samples(SampleRows(
         channel_pk=st.channel_pk, first_seq=n0 + 1, first_version=v0 + 1, source=source,
         source_seqs=[s.seq for s in kept] if source is not None else None, times=times, received_at=now,
-        x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats, status=status))
+        x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats, status=status, references=refs))
     event_rows = []
     for k, kind, state in snaps:
         snap = repo.insert_snapshot(st.channel_pk, reason=kind, label=None, config=model.config, model_state=state,
@@ -184,15 +210,15 @@ def _learning(repo: Repository, channel_id: str) -> LearningState:
 
 
 def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike], source: str | None,
-           key_id: str | None) -> ChannelOutcome:
-    return ingest_channel(unit, _learning(unit.repo, channel_id), samples, source, key_id)
+           key_id: str | None, reference: str | None = None) -> ChannelOutcome:
+    return ingest_channel(unit, _learning(unit.repo, channel_id), samples, source, key_id, reference)
 
 
 NOTHING_STORED = "nothing in this batch was stored"
 
 
 def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: str | None,
-                   key_id: str | None) -> dict[str, Any]:
+                   key_id: str | None, reference: str | None = None) -> dict[str, Any]:
     """A gateway batch across channels: each channel's samples in request order, channels
     locked in id order, all in one transaction. All or nothing: an unknown channel or a bad
     sample refuses the whole batch (the error names the first such sample's index)."""
@@ -219,12 +245,13 @@ def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: 
     for cid, st in states.items():
         idx = groups[cid]
         try:
-            out = ingest_channel(unit, st, [items[i][1] for i in idx], source, key_id)
+            out = ingest_channel(unit, st, [items[i][1] for i in idx], source, key_id, reference)
         except InvalidRequest as exc:
             local = exc.details.get("index") if isinstance(exc.details, dict) else None
             where = idx[local] if local is not None else None
-            raise InvalidRequest(f"channel {cid}: {exc.message}; {NOTHING_STORED}",
-                                 details={"index": where, "channel": cid}) from exc
+            # the same class: its code (e.g. reference_required) says what was wrong
+            raise type(exc)(f"channel {cid}: {exc.message}; {NOTHING_STORED}",
+                            details={"index": where, "channel": cid}) from exc
         accepted += out.accepted
         duplicates += out.duplicates
         alarms += out.alarms
@@ -243,5 +270,6 @@ def export(repo: Repository, channel_id: str, *, cursor: str | None, limit: int)
     rows = repo.list_samples(ch.pk, after_seq=after, limit=limit + 1)
     items = [{"seq": r.seq, "t": r.t, "received_at": r.received_at, "source": r.source,
               "source_seq": r.source_seq, "x": r.x, "y": r.y, "residual": r.residual,
-              "drift_statistic": r.drift_statistic, "accepted": r.accepted, "reason": r.reason} for r in rows[:limit]]
+              "drift_statistic": r.drift_statistic, "accepted": r.accepted, "reason": r.reason,
+              "reference": r.reference} for r in rows[:limit]]
     return Page(items, encode_cursor(rows[limit - 1].seq) if len(rows) > limit else None)

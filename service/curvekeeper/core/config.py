@@ -6,7 +6,9 @@ result, every default filled in: ``inputs`` (each ``name``, ``unit``, ``min`` < 
 ``learner`` (``sgd`` with a ``schedule``, or ``rls``), ``drift`` (``detector`` and its
 thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage``,
 ``coverage_factor`` (null: k from Student's t), ``reference`` (the reference instrument's
-``expanded_uncertainty`` and ``coverage_factor``, or null), ``range_margin``.
+``expanded_uncertainty``, ``coverage_factor`` and ``distribution``, the ``instrument`` they
+were taken from, or null), ``range_margin``, ``require_reference`` (the service's rule that
+samples name their reference instrument; the core does not read it).
 The core reads it and never changes it.
 """
 
@@ -20,4 +22,4 @@ Config = dict[str, Any]
 #: settings a channel may change after creation; the rest (inputs with their resolution,
 #: output, basis) fix the curve's form
 MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage",
-                     "coverage_factor", "reference", "range_margin"})
+                     "coverage_factor", "reference", "range_margin", "require_reference"})

@@ -7,7 +7,8 @@ Components, per predicted value (``uncertainty.py`` combines them):
   parameter covariance P (none for an SGD learner taught from scratch, whose prior
   residuals already hold it); in the fitted space with sensitivity |dy/dz|, and the
   pooled degrees of freedom;
-- ``reference`` (Type B, normal): the reference instrument's U / k from its certificate;
+- ``reference`` (Type B): the reference instrument's U / k from its certificate (normal;
+  for a rectangular or triangular distribution U is the half-width and k its divisor);
 - ``resolution`` (Type B, rectangular), per input with a declared resolution:
   res / sqrt(12) in input units with sensitivity dy/dx (a central difference).
 """
@@ -72,8 +73,8 @@ def predict(model: ChannelModel, X: Array) -> Prediction:
         comps.append(Component("curve and scatter", "A", "t", sd * np.sqrt(1.0 + quad), slope, dof))
     ref = cfg.get("reference")
     if ref is not None:
-        comps.append(Component("reference", "B", "normal", from_expanded(ref["expanded_uncertainty"],
-                                                                         ref["coverage_factor"])))
+        comps.append(Component("reference", "B", ref.get("distribution", "normal"),
+                               from_expanded(ref["expanded_uncertainty"], ref["coverage_factor"])))
     for j, spec in enumerate(cfg["inputs"]):
         if spec.get("resolution"):
             comps.append(Component(f"resolution of {spec['name']}", "B", "rectangular",

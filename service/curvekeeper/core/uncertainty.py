@@ -28,7 +28,10 @@ from scipy.special import ndtri, stdtrit
 Array = NDArray[np.float64]
 
 TYPES = ("A", "B")
-DISTRIBUTIONS = ("normal", "rectangular", "t")
+DISTRIBUTIONS = ("normal", "rectangular", "triangular", "t")
+#: the divisor that turns the half-width a of a symmetric distribution into its standard
+#: uncertainty u = a / divisor: rectangular sqrt 3 (GUM 4.3.7), triangular sqrt 6 (GUM 4.3.9)
+HALF_WIDTH_DIVISORS = {"rectangular": math.sqrt(3.0), "triangular": math.sqrt(6.0)}
 
 
 def standard_uncertainty(Phi: Array, s2: float, P: Array | None) -> Array:
@@ -61,6 +64,15 @@ def from_expanded(U: ArrayLike, k: float) -> Any:
     if not k > 0:
         raise ValueError(f"coverage factor must be positive, got {k!r}")
     return _plain(np.asarray(U, dtype=float) / k)
+
+
+def from_half_width(a: ArrayLike, distribution: str) -> Any:
+    """Standard uncertainty of a quantity known to lie within +-``a`` (the half-width, same
+    units) with a ``rectangular`` (u = a / sqrt 3, GUM 4.3.7) or ``triangular``
+    (u = a / sqrt 6, GUM 4.3.9) distribution."""
+    if distribution not in HALF_WIDTH_DIVISORS:
+        raise ValueError(f"distribution must be one of {', '.join(HALF_WIDTH_DIVISORS)}, got {distribution!r}")
+    return _plain(np.asarray(a, dtype=float) / HALF_WIDTH_DIVISORS[distribution])
 
 
 # degrees of freedom and k ---------------------------------------------------------------
@@ -125,7 +137,7 @@ class Component:
 
     source: str
     type: Literal["A", "B"]
-    distribution: Literal["normal", "rectangular", "t"]
+    distribution: Literal["normal", "rectangular", "triangular", "t"]
     u: ArrayLike
     sensitivity: ArrayLike = 1.0
     dof: ArrayLike = math.inf

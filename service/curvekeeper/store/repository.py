@@ -4,9 +4,9 @@ session scope commits or rolls back the whole request at once."""
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable, Sequence
+from collections.abc import Collection, Iterable, Sequence
 from dataclasses import dataclass
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 from itertools import repeat
 from typing import Any, cast
 
@@ -17,10 +17,10 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
-from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
+from .tables import ApiKey, Channel, ChannelState, Event, ReferenceInstrument, Sample, Snapshot, utcnow
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
-                  "residual", "drift_statistic", "accepted", "reason")
+                  "residual", "drift_statistic", "accepted", "reason", "reference")
 _SAMPLE_INSERT_SQLITE = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
                          f"VALUES ({', '.join('?' for _ in SAMPLE_COLUMNS)})")
 _SAMPLE_INSERT_PG = (f"INSERT INTO sample ({', '.join(SAMPLE_COLUMNS)}) "
@@ -58,6 +58,8 @@ class SampleRows:
     residual: list[float | None]
     drift_statistic: list[float]
     status: list[str]
+    #: per sample, the reference instrument's id it names (None: none); None: none names one
+    references: list[str | None] | None = None
 
 
 def _json_floats(x: list[float]) -> str:
@@ -224,6 +226,7 @@ class Repository:
         accepted = [s == "accepted" for s in rows.status]
         reasons = [None if s == "accepted" else s for s in rows.status]
         seqs = rows.source_seqs if rows.source_seqs is not None else repeat(None, n)
+        refs = rows.references if rows.references is not None else repeat(None, n)
         times: Iterable[Any]
         received: Any
         if self.postgres:
@@ -237,7 +240,7 @@ class Repository:
         params = list(zip(repeat(rows.channel_pk, n), range(rows.first_seq, rows.first_seq + n),
                           range(rows.first_version, rows.first_version + n), repeat(rows.source, n), seqs, times,
                           repeat(received, n), xs, rows.y, rows.residual, rows.drift_statistic, accepted, reasons,
-                          strict=False))
+                          refs, strict=False))
         self.session.connection().exec_driver_sql(sql, params)
 
     def list_samples(self, channel_pk: int, *, after_seq: int | None, limit: int) -> Sequence[Sample]:
@@ -330,6 +333,48 @@ class Repository:
         if after_pk is not None:
             stmt = stmt.where(Event.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
+
+    # reference instruments ------------------------------------------------------------
+    def get_reference(self, reference_id: str) -> ReferenceInstrument | None:
+        return self.session.scalars(select(ReferenceInstrument)
+                                    .where(ReferenceInstrument.id == reference_id)).one_or_none()
+
+    def references_named(self, ids: Collection[str]) -> dict[str, ReferenceInstrument]:
+        """The stored references among ``ids``, by id (the unknown ones are missing)."""
+        if not ids:
+            return {}
+        rows = self.session.scalars(select(ReferenceInstrument).where(ReferenceInstrument.id.in_(sorted(ids))))
+        return {r.id: r for r in rows}
+
+    def insert_reference_unless_taken(self, ref: ReferenceInstrument) -> bool:
+        """Insert a reference in a savepoint; False (and nothing changed) when its id is taken,
+        e.g. by another request at the same moment."""
+        try:
+            with self.session.begin_nested():
+                self.session.add(ref)
+        except IntegrityError:
+            return False
+        return True
+
+    def list_references(self, *, retired: bool | None, due_from: date | None, due_until: date | None,
+                        after_pk: int | None, limit: int) -> Sequence[ReferenceInstrument]:
+        """References by creation order; ``due_from`` / ``due_until`` bound ``due_on`` (inclusive)."""
+        stmt = select(ReferenceInstrument).order_by(ReferenceInstrument.pk).limit(limit)
+        if retired is not None:
+            stmt = stmt.where(ReferenceInstrument.retired.is_(retired))
+        if due_from is not None:
+            stmt = stmt.where(ReferenceInstrument.due_on >= due_from)
+        if due_until is not None:
+            stmt = stmt.where(ReferenceInstrument.due_on <= due_until)
+        if after_pk is not None:
+            stmt = stmt.where(ReferenceInstrument.pk > after_pk)
+        return self.session.scalars(stmt).all()
+
+    def save_reference(self, ref: ReferenceInstrument, values: dict[str, Any]) -> None:
+        for name, value in values.items():
+            setattr(ref, name, value)
+        ref.updated_at = utcnow()
+        self.session.flush()
 
     # keys -------------------------------------------------------------------------------
     def insert_key(self, key: ApiKey) -> None:

@@ -6,13 +6,14 @@ model state lives in one row of ``channel_state`` that every write locks.
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 from typing import Any
 
 from sqlalchemy import (
     JSON,
     BigInteger,
     Boolean,
+    Date,
     DateTime,
     Float,
     ForeignKey,
@@ -119,6 +120,8 @@ class Sample(Base):
     drift_statistic: Mapped[float | None] = mapped_column(Float, nullable=True)
     accepted: Mapped[bool] = mapped_column(Boolean)
     reason: Mapped[str | None] = mapped_column(String(16), nullable=True)
+    #: the id of the reference instrument that gave y, when the sample named one
+    reference: Mapped[str | None] = mapped_column(String(128), nullable=True)
 
 
 class Snapshot(Base):
@@ -151,6 +154,30 @@ class Event(Base):
     key_id: Mapped[str | None] = mapped_column(String(40), nullable=True)
     at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     details: Mapped[dict[str, Any]] = mapped_column(JSON)
+
+
+class ReferenceInstrument(Base):
+    """A reference instrument (standard) that samples and calibrations name: its stated
+    uncertainty as U with k (u = U / k; for a rectangular or triangular distribution U is
+    the half-width a and k its divisor, sqrt 3 or sqrt 6), its certificate and validity.
+    Never deleted once made: ``retired`` instead."""
+
+    __tablename__ = "reference_instrument"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    id: Mapped[str] = mapped_column(String(128), unique=True)
+    description: Mapped[str] = mapped_column(Text, default="")
+    unit: Mapped[str] = mapped_column(String(256))
+    expanded_uncertainty: Mapped[float] = mapped_column(Float)
+    coverage_factor: Mapped[float] = mapped_column(Float)
+    distribution: Mapped[str] = mapped_column(String(16))
+    certificate: Mapped[str] = mapped_column(String(256))
+    calibrated_on: Mapped[date] = mapped_column(Date)
+    due_on: Mapped[date] = mapped_column(Date, index=True)
+    note: Mapped[str] = mapped_column(Text, default="")
+    retired: Mapped[bool] = mapped_column(Boolean, default=False)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    updated_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
 
 
 class ApiKey(Base):

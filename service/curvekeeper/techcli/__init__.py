@@ -1,7 +1,8 @@
 """The technician's commands: a client of a running service.
 
 ``curvekeeper channels list|show|create|patch|archive|unarchive``, ``curve``,
-``snapshots list|take|diff``, ``rollback``, ``calibrate``, ``samples export|load``, and
+``snapshots list|take|diff``, ``rollback``, ``calibrate``, ``samples export|load``,
+``references list|show|create|patch|retire``, and
 ``keys list|revoke`` (an admin key; with ``--db``, on the store directly). The service's address comes from
 ``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
 environment variable ``CURVEKEEPER_KEY``, never from a flag, so it stays out of shell history
@@ -17,6 +18,7 @@ import argparse
 from collections.abc import Callable
 from typing import Any
 
+from . import references
 from .commands import (
     calibrate,
     channels_list,
@@ -123,6 +125,9 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
     cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
+    cal.add_argument("--reference", help="the reference instrument the points were measured with")
+    cal.add_argument("--allow-overdue-reference", action="store_true",
+                     help="calibrate although the reference is overdue (recorded)")
     cal.set_defaults(func=_runner(calibrate))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")
@@ -141,6 +146,7 @@ def add_commands(sub: Any) -> None:
     ld.add_argument("--batch", type=int, default=1000, help="rows per request (default 1000)")
     ld.set_defaults(func=_runner(samples_load))
 
+    references.add(sub, common)
 
 
 def add_key_commands(keys_sub: Any, existing_db: str, local: Callable[[str], Callable[[argparse.Namespace], int]]

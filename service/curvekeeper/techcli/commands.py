@@ -195,9 +195,15 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
         body["label"] = args.label
     if args.reason is not None:
         body["reason"] = args.reason
+    if args.reference is not None:
+        body.update(reference=args.reference, allow_overdue_reference=args.allow_overdue_reference)
     r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
     unit = _unit(cfg)
     print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
+    if r.get("reference"):
+        ref = r["reference"]
+        print(f"against reference {ref['id']} ({ref['certificate']}, due {ref['due_on']}"
+              f"{', OVERDUE: allowed' if ref['overdue'] else ''})")
     coef = _coefficients(r, cfg)
     if coef:
         print(f"coefficients of {_space(cfg)} (raw input units):")
@@ -230,7 +236,7 @@ def samples_export(client: Client, args: argparse.Namespace) -> int:
             w.writerow([s["seq"], s.get("t") or "", s.get("received_at") or "", s.get("source") or "",
                         "" if s.get("source_seq") is None else s["source_seq"], *map(repr, map(float, xs)),
                         repr(float(s["y"])), "" if s.get("residual") is None else repr(float(s["residual"])),
-                        "true" if s.get("accepted") else "false", s.get("reason") or ""])
+                        "true" if s.get("accepted") else "false", s.get("reason") or "", s.get("reference") or ""])
             n += 1
         return n
 

@@ -24,7 +24,8 @@ CAUTION = ("Caution: curvekeeper supports calibration work; it does not replace 
 DEFAULT_URL = "http://127.0.0.1:8000"
 CHANNEL_ID = re.compile(r"^[a-z0-9._-]{1,128}$")
 PAGE = 1000  # the service's largest page
-EXPORT_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "y", "residual", "accepted", "reason"]
+EXPORT_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "y", "residual", "accepted", "reason",
+                 "reference"]
 
 
 class LocalError(Exception):

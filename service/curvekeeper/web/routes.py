@@ -66,6 +66,11 @@ def fleet() -> HTMLResponse:
     return _page("fleet.html")
 
 
+@router.get("/references")
+def references() -> HTMLResponse:
+    return _page("references.html")
+
+
 @router.get("/channels/{channel_id}")
 def channel(channel_id: Annotated[str, PathParam(pattern=r"^[a-z0-9._-]{1,128}$")]) -> HTMLResponse:
     return _page("channel.html")

@@ -39,8 +39,8 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
     who.require_channel(channel_id, "device")
     check_times(body.samples, ctx.settings)
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
-                                                                 who.key_id), write=True, items=len(body.samples),
-                          started=started)
+                                                                 who.key_id, body.reference),
+                          write=True, items=len(body.samples), started=started)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
     # validated here, once (FastAPI takes the instance as it is): an answer holds one residual
     # per sample, and at these sizes validating costs about what model_construct does
@@ -61,14 +61,15 @@ async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
     for cid in {s.channel for s in body.samples}:
         who.require_channel(cid, "device")
     items = [(s.channel, s) for s in body.samples]
-    out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id),
+    out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id,
+                                                                         body.reference),
                           write=True, items=len(items), started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
     return GatewayAnswer.model_validate(out)
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
-              "accepted", "reason"]
+              "accepted", "reason", "reference"]
 
 
 @router.get("/v1/channels/{channel_id}/samples", summary="Stored samples, paged (JSON or CSV)",
@@ -90,6 +91,6 @@ def get_samples(channel_id: ChannelPath, ctx: Ctx, who: Who, limit: Limit = 100,
                          x[0] if len(x) == 1 else ";".join(repr(v) for v in x), repr(it["y"]),
                          "" if it["residual"] is None else repr(it["residual"]),
                          "" if it["drift_statistic"] is None else repr(it["drift_statistic"]),
-                         "true" if it["accepted"] else "false", it["reason"] or ""])
+                         "true" if it["accepted"] else "false", it["reason"] or "", it["reference"] or ""])
     headers = {"X-Next-Cursor": page.next_cursor} if page.next_cursor else {}
     return Response(buf.getvalue(), media_type="text/csv; charset=utf-8", headers=headers)

@@ -15,6 +15,7 @@ from ...channel_config import (
     COVERAGE_FACTOR,
     RANGE_MARGIN,
     REFERENCE,
+    REQUIRE_REFERENCE,
     ChannelConfig,
     Coverage,
     CoverageFactor,
@@ -26,6 +27,7 @@ from ...channel_config import (
     Positive,
     RangeMargin,
     Reference,
+    RequireReference,
     Text,
 )
 
@@ -55,6 +57,7 @@ class ChannelUpdate(BaseModel):
     coverage_factor: CoverageFactor | None | MISSING = Field(MISSING, description=COVERAGE_FACTOR)
     reference: Reference | None | MISSING = Field(MISSING, description=REFERENCE)
     range_margin: RangeMargin | MISSING = Field(MISSING, description=RANGE_MARGIN)
+    require_reference: RequireReference | MISSING = Field(MISSING, description=REQUIRE_REFERENCE)
     inputs: Any | MISSING = Field(MISSING, description="cannot change: 409")
     output: Any | MISSING = Field(MISSING, description="cannot change: 409")
     basis: Any | MISSING = Field(MISSING, description="cannot change: 409")

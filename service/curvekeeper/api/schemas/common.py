@@ -87,8 +87,9 @@ class ErrorBody(BaseModel):
 def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
     """OpenAPI documentation of the error answers a route gives."""
     text = {400: "malformed JSON", 401: "missing, unknown or revoked key", 403: "role or channel prefix not allowed",
-            404: "unknown channel, snapshot or key",
-            409: "conflict (exists already, a field that cannot change, or not calibrated yet)",
+            404: "unknown channel, snapshot, key or reference instrument",
+            409: "conflict (exists already, a field that cannot change, not calibrated yet, or a retired or "
+                 "overdue reference instrument)",
             413: "too large (body, samples, values or points)", 422: "invalid request",
             429: "rate limited (see Retry-After)", 503: "store busy or unavailable (see Retry-After)"}
     return {s: {"model": ErrorBody, "description": text[s]} for s in statuses}

@@ -6,7 +6,7 @@ from typing import Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from ...channel_config import Basis, InputSpec, OutputSpec, Reason
+from ...channel_config import Basis, Distribution, InputSpec, OutputSpec, Reason, ReferenceId
 from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 
 
@@ -42,6 +42,11 @@ class CalibrateIn(BaseModel):
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
     reason: Reason | None = Field(None, description="why, for the audit trail (1 to 500 characters of plain text)")
+    reference: ReferenceId | None = Field(None, description=(
+        "the reference instrument the points were measured with (GET /v1/references/{id}); the channel's reference "
+        "setting then takes its U and k. Unknown: 404; retired: 409; due before today: 409 reference_overdue"))
+    allow_overdue_reference: bool = Field(False, strict=True, description=(
+        "calibrate against a reference whose due date has passed; the choice is recorded"))
 
 
 # answers -----------------------------------------------------------------------------------------
@@ -153,8 +158,28 @@ class FitReport(Answer):
     max_curve_change: float | None = Field(description="largest change of the curve over the range, output units")
 
 
+class ReferenceUsed(Answer):
+    """The reference instrument a calibration used, as it stood that day."""
+
+    id: str
+    unit: str
+    expanded_uncertainty: float = Field(description="U (for a rectangular or triangular distribution: the "
+                                                    "half-width a), the reference's unit")
+    coverage_factor: float
+    distribution: Distribution
+    standard_uncertainty: float = Field(description="u = U / k, what enters the channel's uncertainty")
+    certificate: str
+    calibrated_on: str
+    due_on: str
+    on: str = Field(description="the calibration's day (UTC) the due date was checked against")
+    overdue: bool = Field(description="its due date lay before the calibration's day")
+    allow_overdue_reference: bool = Field(description="what the request said about an overdue reference")
+
+
 class CalibrationAnswer(RawCoefficients, FitReport):
     """The fit report; with dry_run, what the fit would be (``applied`` false)."""
+
+    reference: ReferenceUsed | None = Field(description="the reference instrument named; null: none")
 
     snapshot_before: int | None = Field(description="snapshot of the state before the fit; null on a dry run")
     snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")

@@ -7,7 +7,12 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from ...channel_config import ReferenceId
 from .common import Answer, ChannelId, DriftState, Number, Page, Reading, Seq, Source, ToleranceState, When
+
+REFERENCE = ("the reference instrument (GET /v1/references/{id}) that gave y; unknown: 404, retired: 409; "
+             "a channel with require_reference refuses a sample without one (422 reference_required)")
+REQUEST_REFERENCE = "the reference instrument of every sample that names none itself"
 
 
 class SampleItem(BaseModel):
@@ -17,6 +22,7 @@ class SampleItem(BaseModel):
     y: Number = Field(description="reference value in output units")
     t: When | None = Field(None, description="measurement time, ISO-8601 with a time zone")
     seq: Seq | None = Field(None, description="the source's sequence number: (source, seq) makes retries idempotent")
+    reference: ReferenceId | None = Field(None, description=REFERENCE)
 
     def inputs(self) -> list[float]:
         return list(self.x) if isinstance(self.x, list) else [self.x]
@@ -30,6 +36,7 @@ class SamplesIn(BaseModel):
         {"source": "gw-3", "samples": [{"x": 10234.5, "y": 24.87, "t": "2026-12-01T10:00:00Z", "seq": 17}]}]})
 
     source: Source | None = None
+    reference: ReferenceId | None = Field(None, description=REQUEST_REFERENCE)
     samples: list[SampleItem] = Field(min_length=1)
 
 
@@ -44,6 +51,7 @@ class GatewayIn(BaseModel):
             {"channel": "coldroom2.probe08", "x": 9988.0, "y": 25.02, "seq": 19}]}]})
 
     source: Source | None = None
+    reference: ReferenceId | None = Field(None, description=REQUEST_REFERENCE)
     samples: list[GatewaySampleItem] = Field(min_length=1)
 
 
@@ -116,6 +124,7 @@ class SampleRecord(Answer):
     drift_statistic: float | None
     accepted: bool = Field(description="learned; false: stored only, see reason")
     reason: Reason | None = Field(description=REASON)
+    reference: str | None = Field(description="the reference instrument the sample named; null: none")
 
 
 class SamplePage(Page[SampleRecord]):
