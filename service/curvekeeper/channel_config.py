@@ -27,6 +27,7 @@ from pydantic import (
 )
 from pydantic_core import InitErrorDetails, PydanticCustomError
 
+from .core.conformity import DEFAULT_DUE_SOON_DAYS, DEFAULT_INTERVAL_DAYS, MAX_DAYS
 from .core.drift import DETECTOR_DEFAULTS
 
 MAX_INPUTS = 8
@@ -335,6 +336,17 @@ COVERAGE_FACTOR = ("fixed k of the expanded uncertainty k u; null: k from Studen
                    "of freedom and coverage")
 REFERENCE = "the reference instrument's stated uncertainty; null: not counted"
 RANGE_MARGIN = "a sample whose input lies more than this many spans outside [min, max] is held as out of range"
+#: the calibration settings (PATCH takes them too)
+DecisionRule = Literal["simple", "guarded"]
+IntervalDays = Annotated[Integer, Field(ge=1, le=3650)]
+DueSoonDays = Annotated[Integer, Field(ge=0, le=MAX_DAYS)]
+DECISION_RULE = ("how a calibration states conformity with drift.tolerance (ILAC-G8:2019): simple (pass when "
+                 "|error| <= tolerance) or guarded (guard band w = U: pass when |error| <= tolerance - U, fail when "
+                 "|error| > tolerance + U, otherwise conditional)")
+INTERVAL = (f"days from a calibration to the next one due (default {DEFAULT_INTERVAL_DAYS}: yearly, common "
+            "practice); each calibration record suggests a new one, applied only by a PATCH")
+DUE_SOON = (f"days before the due date from which the channel is due_soon (default {DEFAULT_DUE_SOON_DAYS}, "
+            "common practice)")
 
 
 EXAMPLE: dict[str, Any] = {
@@ -377,6 +389,9 @@ class ChannelSettings(Strict):
     coverage_factor: CoverageFactor | None = Field(default=None, description=COVERAGE_FACTOR)
     reference: Reference | None = Field(default=None, description=REFERENCE)
     range_margin: RangeMargin = Field(default=1.0, description=RANGE_MARGIN)
+    decision_rule: DecisionRule = Field(default="simple", description=DECISION_RULE)
+    recalibration_interval_days: IntervalDays = Field(default=DEFAULT_INTERVAL_DAYS, description=INTERVAL)
+    due_soon_days: DueSoonDays = Field(default=DEFAULT_DUE_SOON_DAYS, description=DUE_SOON)
 
     @model_validator(mode="wrap")
     @classmethod

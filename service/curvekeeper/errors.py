@@ -55,6 +55,10 @@ class KeyNotFound(NotFound):
     code = "key_not_found"
 
 
+class CalibrationNotFound(NotFound):
+    code = "calibration_not_found"
+
+
 class Conflict(ServiceError):
     code = "conflict"
 
@@ -73,6 +77,12 @@ class NothingToAcknowledge(Conflict):
 
 class ServiceUnchanged(Conflict):
     code = "service_unchanged"
+
+
+class AlreadySuperseded(Conflict):
+    """A calibration record is superseded once: a further correction supersedes the correction."""
+
+    code = "already_superseded"
 
 
 class NotCalibrated(Conflict):

@@ -6,7 +6,8 @@ result, every default filled in: ``inputs`` (each ``name``, ``unit``, ``min`` < 
 ``learner`` (``sgd`` with a ``schedule``, or ``rls``), ``drift`` (``detector`` and its
 thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage``,
 ``coverage_factor`` (null: k from Student's t), ``reference`` (the reference instrument's
-``expanded_uncertainty`` and ``coverage_factor``, or null), ``range_margin``.
+``expanded_uncertainty`` and ``coverage_factor``, or null), ``range_margin``,
+``decision_rule`` (``simple`` | ``guarded``), ``recalibration_interval_days``, ``due_soon_days``.
 The core reads it and never changes it.
 """
 
@@ -20,4 +21,5 @@ Config = dict[str, Any]
 #: settings a channel may change after creation; the rest (inputs with their resolution,
 #: output, basis) fix the curve's form
 MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage",
-                     "coverage_factor", "reference", "range_margin"})
+                     "coverage_factor", "reference", "range_margin", "decision_rule",
+                     "recalibration_interval_days", "due_soon_days"})

@@ -17,6 +17,7 @@ router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON
 ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
 STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
+DUE_FILTER = "due_soon (due within the channel's due_soon_days, today included) or overdue (past its due_on)"
 
 
 @router.post("", status_code=201, summary="Create a channel", response_model=ChannelCreated)
@@ -29,10 +30,11 @@ def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
 @router.get("", summary="List channels", response_model=ChannelPage)
 def list_channels(ctx: Ctx, who: Who, prefix: Annotated[Plain | None, Query(max_length=128)] = None,
                   state: Annotated[str | None, Query(description=STATE_FILTER)] = None,
+                  due_state: Annotated[str | None, Query(description=DUE_FILTER)] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=False) as unit:
-        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit)
+        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit, due_state=due_state)
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 
@@ -43,7 +45,7 @@ def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
         return channels.get(unit, channel_id)
 
 
-@router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings",
+@router.patch("/{channel_id}", summary="Change learner, drift, tolerance, snapshot or calibration settings",
               response_model=ChannelPublic)
 def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")

@@ -63,7 +63,8 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
     return CurveAnswer.model_validate(out)
 
 
-@router.post("/calibrate", summary="Closed-form least-squares calibration")
+@router.post("/calibrate", summary="Closed-form least-squares calibration, with its calibration record",
+             responses=error_responses(409))
 @counted("points", lambda s: MAX_POINTS, "max_points", "points")
 def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
     # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
@@ -77,5 +78,7 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
         out = curves.calibrate(unit, channel_id, points=points,
                                include_history=body.include_history, since=body.since, until=body.until,
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run,
-                               reason=body.reason)
+                               reason=body.reason, at=body.at, supersedes=body.supersedes,
+                               conditions=body.conditions.model_dump() if body.conditions else None,
+                               references=[body.reference] if body.reference else [])
     return CalibrationAnswer.model_validate(out)

@@ -5,7 +5,7 @@ the configuration with the channel's summary."""
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Discriminator, Field, Tag
@@ -13,14 +13,20 @@ from pydantic import MISSING, BaseModel, ConfigDict, Discriminator, Field, Tag
 from ...channel_config import (
     COVERAGE,
     COVERAGE_FACTOR,
+    DECISION_RULE,
+    DUE_SOON,
+    INTERVAL,
     RANGE_MARGIN,
     REFERENCE,
     ChannelConfig,
     Coverage,
     CoverageFactor,
     Cusum,
+    DecisionRule,
+    DueSoonDays,
     Ewma,
     Integer,
+    IntervalDays,
     NewChannel,
     PageHinkley,
     Positive,
@@ -55,6 +61,9 @@ class ChannelUpdate(BaseModel):
     coverage_factor: CoverageFactor | None | MISSING = Field(MISSING, description=COVERAGE_FACTOR)
     reference: Reference | None | MISSING = Field(MISSING, description=REFERENCE)
     range_margin: RangeMargin | MISSING = Field(MISSING, description=RANGE_MARGIN)
+    decision_rule: DecisionRule | MISSING = Field(MISSING, description=DECISION_RULE)
+    recalibration_interval_days: IntervalDays | MISSING = Field(MISSING, description=INTERVAL)
+    due_soon_days: DueSoonDays | MISSING = Field(MISSING, description=DUE_SOON)
     inputs: Any | MISSING = Field(MISSING, description="cannot change: 409")
     output: Any | MISSING = Field(MISSING, description="cannot change: 409")
     basis: Any | MISSING = Field(MISSING, description="cannot change: 409")
@@ -107,6 +116,12 @@ class ChannelPublic(ChannelConfig):
                                          "one, predict answers 409 not_calibrated")
     last_sample_at: datetime | None
     created_at: datetime
+    last_calibrated_at: datetime | None = Field(description="the latest calibration's time (its record's at)")
+    due_on: date | None = Field(description="last_calibrated_at's date + recalibration_interval_days (UTC); null: "
+                                            "never calibrated")
+    due_state: Literal["ok", "due_soon", "overdue"] | None = Field(
+        description="today (UTC) against due_on: overdue after it, due_soon from due_soon_days before it; null: "
+                    "never calibrated")
 
 
 class ChannelCreated(ChannelPublic):

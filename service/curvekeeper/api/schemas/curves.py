@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Annotated, Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from ...channel_config import Basis, InputSpec, OutputSpec, Reason
+from ...channel_config import Basis, InputSpec, OutputSpec, Plain, Reason
+from .calibrations import ConditionsIn, RecordBody
 from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 
 
@@ -42,6 +43,13 @@ class CalibrateIn(BaseModel):
     label: Label | None = None
     dry_run: bool = Field(False, description="fit and report only: the channel is not changed (a preview)")
     reason: Reason | None = Field(None, description="why, for the audit trail (1 to 500 characters of plain text)")
+    at: When | None = Field(None, description="when the calibration was done (not in the future; default now): the "
+                                              "record's time, which due dates count from")
+    supersedes: SnapshotId | None = Field(None, description="the id of this channel's calibration record this "
+                                                            "calibration corrects (a record is superseded once)")
+    conditions: ConditionsIn | None = Field(None, description="the calibration's conditions, kept in its record")
+    reference: Annotated[Plain, Field(min_length=1, max_length=128)] | None = Field(
+        None, description="the reference instrument's id, listed in the record's references")
 
 
 # answers -----------------------------------------------------------------------------------------
@@ -160,3 +168,5 @@ class CalibrationAnswer(RawCoefficients, FitReport):
     snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")
     version: int
     applied: bool
+    calibration: int | None = Field(description="the stored calibration record's id; null on a dry run")
+    record: RecordBody = Field(description="the calibration record (on a dry run: what it would record)")
