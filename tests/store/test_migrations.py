@@ -158,15 +158,19 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
+#: the calibration settings 0008 fills in, as it fills them
+NEW_IN_0008 = {"decision_rule": "simple", "recalibration_interval_days": 365, "due_soon_days": 30}
+
+
 def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
-    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin")}
+    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin", *NEW_IN_0008)}
     out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
     out["coverage_factor"] = 2.0
     return out
 
 
 def _filled(config: dict[str, Any]) -> dict[str, Any]:
-    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, **config,
+    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, **NEW_IN_0008, **config,
             "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
 
 
