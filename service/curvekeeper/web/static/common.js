@@ -85,7 +85,7 @@ const CK = (() => {
 
   const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
                         out_of_tolerance: "out of tolerance", out_of_service: "out of service",
-                        damaged: "state damaged" };
+                        damaged: "state damaged", due_soon: "due soon", overdue: "overdue" };
   function badge(state) {
     if (!state) return el("span", { class: "state state-none", text: "not checked" });
     return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });

@@ -1,5 +1,6 @@
 "use strict";
-// attention first: a damaged state, an alarm, out of service, out of tolerance, a warning; then the rest
+// attention first: a damaged state, an alarm, out of service, out of tolerance, a warning, a calibration
+// overdue; then the rest
 const REFRESH_MS = 30000;
 function rank(ch) {
   const d = ch.drift || {};
@@ -8,21 +9,24 @@ function rank(ch) {
   if (ch.service_state === "out_of_service") return 2;
   if (d.tolerance_state === "out_of_tolerance") return 3;
   if (d.state === "warning") return 4;
-  return 5;
+  if (ch.due_state === "overdue") return 5;
+  return 6;
 }
-const ATTENTION = 5;
+const ATTENTION = 6;
 
 async function loadFleet() {
   const prefix = document.getElementById("prefix").value.trim();
   const state = document.getElementById("state").value;
+  const dueState = document.getElementById("due-state").value;
   const summary = document.getElementById("fleet-summary");
   const tbody = document.querySelector("#fleet-table tbody");
   const q = new URLSearchParams();
   if (prefix) q.set("prefix", prefix);
   if (state) q.set("state", state);
+  if (dueState) q.set("due_state", dueState);
   summary.textContent = "Loading …";
   if (!tbody.children.length) {
-    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "7", text: "Loading the channels …" })));
+    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "8", text: "Loading the channels …" })));
   }
   let items;
   try {
@@ -46,6 +50,8 @@ async function loadFleet() {
       el("td", {}, el("a", { href: "/ui/channels/" + encodeURIComponent(ch.id), text: ch.id })),
       el("td", {}, ...drift),
       el("td", {}, tol),
+      el("td", {}, ...(ch.due_on ? [CK.badge(ch.due_state), " ", el("small", { text: ch.due_on })]
+                               : [el("span", { class: "state state-none", text: "never calibrated" })])),
       el("td", { text: CK.when(ch.last_sample_at) }),
       el("td", { class: "num", text: `${ch.n_samples}` + (ch.n_rejected ? ` (+${ch.n_rejected} held back)` : "") }),
       el("td", { class: "num", text: num(ch.rmse, unit, 3) }),
@@ -61,6 +67,7 @@ document.addEventListener("DOMContentLoaded", () => {
   if (!CK.key()) { location.assign("/ui/"); return; }
   document.getElementById("filters").addEventListener("submit", (ev) => { ev.preventDefault(); loadFleet(); });
   document.getElementById("state").addEventListener("change", loadFleet);
+  document.getElementById("due-state").addEventListener("change", loadFleet);
   loadFleet();
   // keep the list current while the page is in view
   setInterval(() => { if (document.visibilityState === "visible") loadFleet(); }, REFRESH_MS);
