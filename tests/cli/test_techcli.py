@@ -8,6 +8,7 @@ import json
 import socket
 import sys
 from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -124,7 +125,7 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     monkeypatch.setattr(techcli.common, "PAGE", 2)
     assert main(["channels", "list", "--prefix", "list."]) == 0
     out = capsys.readouterr().out.splitlines()
-    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample"]
+    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "calibration", "due"]
     assert [line.split()[0] for line in out[1:]] == [f"list.c{i}" for i in range(5)]
     row = next(line for line in out if line.startswith("list.c3"))
     assert row.split()[1:4] == ["ok", "-", "1"] and "degC" in row and "2026-12-01" in row
@@ -134,6 +135,17 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     assert [c["id"] for c in items] == [f"list.c{i}" for i in range(5)]
     assert main(["channels", "list", "--prefix", "list.", "--state", "alarm"]) == 0
     assert capsys.readouterr().out.splitlines()[1:] == []
+    # calibrated 400 days ago with the default 365-day interval: overdue; never calibrated: no due date
+    at = (datetime.now(UTC) - timedelta(days=400)).isoformat()
+    api.request("POST", "/v1/channels/list.c1/calibrate", json={"points": [{"x": 0, "y": 0}, {"x": 50, "y": 5},
+                                                                          {"x": 100, "y": 10}], "at": at})
+    assert main(["channels", "list", "--prefix", "list.", "--due", "overdue"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert [line.split()[0] for line in out[1:]] == ["list.c1"] and out[1].endswith("overdue")
+    assert main(["channels", "list", "--prefix", "list.", "--due", "due_soon"]) == 0
+    assert capsys.readouterr().out.splitlines()[1:] == []
+    assert main(["channels", "list", "--prefix", "list.c2"]) == 0
+    assert capsys.readouterr().out.splitlines()[1].endswith(" -")
 
     assert main(["channels", "show", "list.c3"]) == 0
     out = capsys.readouterr().out

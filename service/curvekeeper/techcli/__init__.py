@@ -52,6 +52,8 @@ def add_commands(sub: Any) -> None:
     ls.add_argument("--prefix", help="only ids starting with this")
     ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance"],
                     help="only channels in this state")
+    ls.add_argument("--due", choices=["due_soon", "overdue"],
+                    help="only channels whose calibration is due soon (within their due_soon_days) or overdue")
     ls.add_argument("--json", action="store_true", help="the service's items as JSON")
     ls.set_defaults(func=_runner(channels_list))
     show = ch_sub.add_parser("show", parents=common, help="one channel's configuration and summary")

@@ -16,7 +16,7 @@ from .csvfiles import read_points
 
 
 def channels_list(client: Client, args: argparse.Namespace) -> int:
-    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state))
+    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state, due_state=args.due))
     if args.json:
         _json(items)
         return 0
@@ -27,8 +27,9 @@ def channels_list(client: Client, args: argparse.Namespace) -> int:
         rows.append([ch["id"], str(drift.get("state") or "-"), str(drift.get("tolerance_state") or "-"),
                      str(ch.get("n_samples", 0)),
                      "-" if rmse is None else f"{_num(rmse, 4)} {_unit(ch)}".rstrip(),
-                     str(ch.get("last_sample_at") or "-")])
-    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample"], rows)
+                     str(ch.get("last_sample_at") or "-"),
+                     f"{ch['due_on']} {ch['due_state']}" if ch.get("due_on") else "-"])
+    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample", "calibration due"], rows)
     print(f"{len(rows)} channel(s)", file=sys.stderr)
     return 0
 
