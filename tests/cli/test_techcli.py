@@ -180,9 +180,19 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     first = api.get_channel(cid)["version"]
 
     shifted = write_csv(tmp_path / "shifted.csv", ["x", "y"], [[x, 1.5 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
+    # a dry run shows the as-found table (the current curve 0.5 degC low at each point) and applies nothing
+    api.request("PATCH", f"/v1/channels/{cid}", json={"drift": {"tolerance": 0.4}})
+    patched = api.get_channel(cid)["version"]
+    assert main(["calibrate", cid, str(shifted), "--dry-run"]) == 0
+    out = capsys.readouterr().out
+    rows = out[out.index("as found"):].splitlines()
+    assert rows[1].split() == ["x", "reference", "indicated", "error", "tolerance", "verdict"]
+    assert [r.split()[3:] for r in rows[2:8]] == [["-0.5", "0.4", "fail"]] * 6
+    assert "verdict as found: fail, as left: pass" in out and "dry run: nothing applied" in out
+    assert "does not replace traceable" in out and api.get_channel(cid)["version"] == patched
     assert main(["calibrate", cid, str(shifted), "--yes", "--reason", "drifted 0.5 degC"]) == 0
     out = capsys.readouterr().out
-    assert "largest curve change  0.5 degC" in out
+    assert "largest curve change  0.5 degC" in out and "as left pass" in out
     cals = api.request("GET", f"/v1/channels/{cid}/events?kind=calibration")["items"]
     assert cals[-1]["details"]["reason"] == "drifted 0.5 degC"
     undo = int(out.rsplit("rollback cal.c1 ", 1)[1].split()[0])

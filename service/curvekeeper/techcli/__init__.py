@@ -101,6 +101,7 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
     cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
+    cal.add_argument("--dry-run", action="store_true", help="show the fit's as-found table and verdict, apply nothing")
     cal.set_defaults(func=_runner(calibrate))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")

@@ -169,6 +169,16 @@ def rollback(client: Client, args: argparse.Namespace) -> int:
 
 
 # calibrate ------------------------------------------------------------------------------
+def _as_found(record: dict[str, Any], unit: str) -> None:
+    """The would-be record's as-found table (the current curve at each point) and verdicts."""
+    print(f"as found (the current curve at each point, {record['decision_rule']} decision rule):")
+    _table(["x", "reference", "indicated", "error", "tolerance", "verdict"],
+           [[_num(p["x"]), _num(p["reference_value"]), _num(p["indicated"]), _num(p["error"], 4),
+             _num(p["tolerance"], 4), p["verdict"]] for p in record["as_found"]])
+    print(f"verdict as found: {record['as_found_verdict']}, as left: {record['verdict']} ({unit or 'output units'}); "
+          f"next interval suggested {record['interval_suggestion']['days']} days")
+
+
 def calibrate(client: Client, args: argparse.Namespace) -> int:
     cfg = client.get_channel(args.channel)
     path = Path(args.file)
@@ -176,16 +186,22 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
     print(f"{args.channel}: fit {len(points)} point(s) from {path} by least squares; this replaces the "
           f"current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples learned)")
     print("  the current state is kept as a snapshot, so the calibration can be rolled back")
-    print(f"  {CAUTION}")
-    _confirm(f"Calibrate {args.channel} now?", args.yes)
     body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
     if args.label is not None:
         body["label"] = args.label
     if args.reason is not None:
         body["reason"] = args.reason
-    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
     unit = _unit(cfg)
-    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
+    preview = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json={**body, "dry_run": True})
+    _as_found(preview["record"], unit)
+    print(f"  {CAUTION}")
+    if args.dry_run:
+        print("dry run: nothing applied")
+        return 0
+    _confirm(f"Calibrate {args.channel} now?", args.yes)
+    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
+    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}; record "
+          f"{r.get('calibration')}, as left {r['record']['verdict']}")
     coef = _coefficients(r, cfg)
     if coef:
         print(f"coefficients of {_space(cfg)} (raw input units):")
