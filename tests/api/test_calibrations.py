@@ -248,9 +248,14 @@ def test_due_dates_count_from_the_records_time(client: TestClient, keys: Keys, m
 
     assert listed("overdue") == ["site-a.old"] and listed("due_soon") == ["site-a.soon"]
     # a shorter interval (applied by PATCH) moves the due date: 10 d ago + 30 d is due soon
+    snap = ok(client.post("/v1/channels/site-a.fresh/snapshots", json={}, headers=tech), 201)["id"]
     ok(client.patch("/v1/channels/site-a.fresh", json={"recalibration_interval_days": 30}, headers=tech))
     assert due("site-a.fresh") == ((now - timedelta(days=10)).date() + timedelta(days=30), "due_soon")
     assert listed("due_soon") == ["site-a.soon", "site-a.fresh"]
+    # a rollback brings back the settings the snapshot was taken under, the interval with them
+    ok(client.post("/v1/channels/site-a.fresh/rollback", json={"snapshot": snap}, headers=tech))
+    assert due("site-a.fresh") == ((now - timedelta(days=10)).date() + timedelta(days=365), "ok")
+    ok(client.patch("/v1/channels/site-a.fresh", json={"recalibration_interval_days": 30}, headers=tech))
     # a calibration now makes the overdue channel current again; a back-dated one does not move it back
     calibrate(client, tech, url="/v1/channels/site-a.old/calibrate")
     calibrate(client, tech, url="/v1/channels/site-a.old/calibrate", at=(now - timedelta(days=900)).isoformat())
