@@ -28,9 +28,6 @@ from ..store.tables import CalibrationRecord, Channel
 from .channels import load
 from .paging import Page, decode_cursor, encode_cursor
 
-#: an ``at`` this far ahead of the server's clock is taken as now (clocks differ a little)
-CLOCK_SKEW = timedelta(seconds=60)
-
 
 def _num(v: float) -> float | None:
     return float(v) if math.isfinite(v) else None
@@ -97,10 +94,12 @@ def findings(before: ChannelModel, after: ChannelModel, points: list[tuple[list[
                                                     [r["error"] for r in as_found], tol)}
 
 
-def check(repo: Repository, ch: Channel, *, at: datetime | None, supersedes: int | None, now: datetime) -> datetime:
-    """The record's time (``at``, default ``now``); refuses an ``at`` in the future, and a
-    ``supersedes`` that is not a record of this channel or is superseded already."""
-    if at is not None and at > now + CLOCK_SKEW:
+def check(repo: Repository, ch: Channel, *, at: datetime | None, supersedes: int | None, now: datetime,
+          skew_s: float) -> datetime:
+    """The record's time (``at``, default ``now``; one less than ``skew_s`` seconds ahead of
+    ``now``, clocks differing a little, is taken as now); refuses an ``at`` further in the
+    future, and a ``supersedes`` that is not a record of this channel or is superseded already."""
+    if at is not None and at > now + timedelta(seconds=skew_s):
         raise InvalidRequest(f"at ({at.isoformat()}) is in the future; a calibration is recorded once done",
                              details={"field": "at"})
     if supersedes is not None:

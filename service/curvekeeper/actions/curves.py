@@ -116,7 +116,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None, dry_run: bool = False,
               reason: str | None = None, at: datetime | None = None, supersedes: int | None = None,
-              conditions: dict[str, Any] | None = None, references: list[str] | None = None) -> dict[str, Any]:
+              conditions: dict[str, Any] | None = None, references: list[str] | None = None,
+              max_clock_skew_s: float = 300.0) -> dict[str, Any]:
     """Fit the points (and/or stored history), make the fit the channel's curve and store
     its calibration record (``record``; done ``at``, default now; correcting the record
     ``supersedes`` names); with ``dry_run``, only report what the fit and the record would
@@ -124,7 +125,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
     audit trail; replay does not read it."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
-    when = calibrations.check(repo, ch, at=at, supersedes=supersedes, now=datetime.now(UTC))
+    when = calibrations.check(repo, ch, at=at, supersedes=supersedes, now=datetime.now(UTC),
+                              skew_s=max_clock_skew_s)
     model = unit.write_model(st)
     before_model = model.copy()
     d = len(model.config["inputs"])

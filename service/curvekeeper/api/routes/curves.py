@@ -80,5 +80,6 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run,
                                reason=body.reason, at=body.at, supersedes=body.supersedes,
                                conditions=body.conditions.model_dump() if body.conditions else None,
-                               references=[body.reference] if body.reference else [])
+                               references=[body.reference] if body.reference else [],
+                               max_clock_skew_s=ctx.settings.max_clock_skew_s)
     return CalibrationAnswer.model_validate(out)
