@@ -274,3 +274,15 @@ def test_replay_agrees_with_a_channel_calibrated_with_records(client: TestClient
         report = replay(repo, CH, check=True)
     assert report.matches, report.mismatches
     assert report.replayed_events == 2
+
+
+def test_a_fit_without_degrees_of_freedom_has_no_budget_and_no_guard_band(client: TestClient, keys: Keys,
+                                                                           make_channel: Any) -> None:
+    """Two points on a line leave no residual degrees of freedom: U is unknown, so the
+    record has no budget rows and the guarded rule cannot state conformity (conditional)."""
+    make_channel(CH, drift={"tolerance": TOL}, decision_rule="guarded")
+    rec = calibrate(client, keys["technician"], points=[{"x": 0.0, "y": 3.0}, {"x": 100.0, "y": 53.0}])["record"]
+    assert rec["fit"]["dof"] == 0 and rec["fit"]["residual_sd"] is None
+    assert rec["budget"]["rows"] == [] and rec["budget"]["U"] is None
+    assert [p["U"] for p in rec["as_left"]] == [None, None]
+    assert [p["verdict"] for p in rec["as_left"]] == ["conditional"] * 2 and rec["verdict"] == "conditional"
