@@ -27,7 +27,17 @@ from curvekeeper.config import Settings
 from curvekeeper.kernels import PROCESS
 from curvekeeper.store import migrate
 from curvekeeper.store.engine import make_engine
-from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, ReferenceInstrument, Sample, Snapshot
+from curvekeeper.store.tables import (
+    ApiKey,
+    Base,
+    CalibrationRecord,
+    Channel,
+    ChannelState,
+    Event,
+    ReferenceInstrument,
+    Sample,
+    Snapshot,
+)
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, make_url, select, text
 
@@ -170,10 +180,11 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
     with store.transaction(write=False) as repo:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
-                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument)}
-        states = {pk: (v, n, ms) for pk, v, n, ms in s.execute(
+                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument,
+                            CalibrationRecord)}
+        states = {pk: tuple(rest) for pk, *rest in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
-                   ChannelState.model_state))}
+                   ChannelState.model_state, ChannelState.due_on, ChannelState.due_soon_on))}
         configs = {cid: cfg for cid, cfg in s.execute(select(Channel.id, Channel.config))}
         archived = {cid: at for cid, at in s.execute(select(Channel.id, Channel.archived_at))}
         references = {r.id: (r.expanded_uncertainty, r.coverage_factor, r.distribution, r.certificate,

@@ -27,6 +27,7 @@ from pydantic import (
 )
 from pydantic_core import InitErrorDetails, PydanticCustomError
 
+from .core.conformity import DEFAULT_DUE_SOON_DAYS, DEFAULT_INTERVAL_DAYS, MAX_DAYS
 from .core.drift import DETECTOR_DEFAULTS
 from .core.uncertainty import HALF_WIDTH_DIVISORS
 
@@ -361,6 +362,17 @@ RequireReference = Annotated[bool, Field(strict=True)]
 REQUIRE_REFERENCE = ("samples must name their reference instrument (per sample or per request); one without "
                      "is refused with 422 reference_required")
 RANGE_MARGIN = "a sample whose input lies more than this many spans outside [min, max] is held as out of range"
+#: the calibration settings (PATCH takes them too)
+DecisionRule = Literal["simple", "guarded"]
+IntervalDays = Annotated[Integer, Field(ge=1, le=3650)]
+DueSoonDays = Annotated[Integer, Field(ge=0, le=MAX_DAYS)]
+DECISION_RULE = ("how a calibration states conformity with drift.tolerance (ILAC-G8:2019): simple (pass when "
+                 "|error| <= tolerance) or guarded (guard band w = U: pass when |error| <= tolerance - U, fail when "
+                 "|error| > tolerance + U, otherwise conditional)")
+INTERVAL = (f"days from a calibration to the next one due (default {DEFAULT_INTERVAL_DAYS}: yearly, common "
+            "practice); each calibration record suggests a new one, applied only by a PATCH")
+DUE_SOON = (f"days before the due date from which the channel is due_soon (default {DEFAULT_DUE_SOON_DAYS}, "
+            "common practice)")
 
 
 EXAMPLE: dict[str, Any] = {
@@ -404,6 +416,9 @@ class ChannelSettings(Strict):
     reference: Reference | None = Field(default=None, description=REFERENCE)
     range_margin: RangeMargin = Field(default=1.0, description=RANGE_MARGIN)
     require_reference: RequireReference = Field(default=False, description=REQUIRE_REFERENCE)
+    decision_rule: DecisionRule = Field(default="simple", description=DECISION_RULE)
+    recalibration_interval_days: IntervalDays = Field(default=DEFAULT_INTERVAL_DAYS, description=INTERVAL)
+    due_soon_days: DueSoonDays = Field(default=DEFAULT_DUE_SOON_DAYS, description=DUE_SOON)
 
     @model_validator(mode="wrap")
     @classmethod

@@ -19,8 +19,8 @@ from datetime import UTC, datetime
 from typing import Any
 
 #: ranks below this need attention
-ATTENTION = 5
-ARCHIVED = 6
+ATTENTION = 6
+ARCHIVED = 7
 
 
 def when(value: str | datetime | None, missing: str = "-") -> str:
@@ -55,6 +55,8 @@ def rank(channel: Mapping[str, Any]) -> int:
         return 3
     if drift.get("state") == "warning":
         return 4
+    if channel.get("due_state") == "overdue":
+        return 5
     return ATTENTION
 
 

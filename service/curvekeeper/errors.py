@@ -60,6 +60,8 @@ class KeyNotFound(NotFound):
 
 class ReferenceNotFound(NotFound):
     code = "reference_not_found"
+class CalibrationNotFound(NotFound):
+    code = "calibration_not_found"
 
 
 class Conflict(ServiceError):
@@ -97,6 +99,12 @@ class NothingToAcknowledge(Conflict):
 
 class ServiceUnchanged(Conflict):
     code = "service_unchanged"
+
+
+class AlreadySuperseded(Conflict):
+    """A calibration record is superseded once: a further correction supersedes the correction."""
+
+    code = "already_superseded"
 
 
 class NotCalibrated(Conflict):

@@ -69,6 +69,8 @@ MATRIX = [
     Row("POST",   f"{C}/predict",                 {"x": [50.0]},              401, 401, 401, 200, 403, 200, 200),
     Row("GET",    f"{C}/curve",                   None,                       401, 401, 401, 403, 403, 200, 200),
     Row("POST",   f"{C}/calibrate",               POINTS,                     401, 401, 401, 403, 403, 200, 200),
+    Row("GET",    f"{C}/calibrations",            None,                       401, 401, 401, 403, 403, 200, 200),
+    Row("GET",    f"{C}/calibrations/{{record_id}}", None,                    401, 401, 401, 403, 403, 200, 200),
     Row("GET",    f"{C}/snapshots",               None,                       401, 401, 401, 403, 403, 200, 200),
     Row("POST",   f"{C}/snapshots",               {"label": "matrix"},        401, 401, 401, 403, 403, 201, 201),
     Row("GET",    f"{C}/snapshots/{{snapshot_id}}", None,                     401, 401, 401, 403, 403, 200, 200),
@@ -144,6 +146,9 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
     snapshot_id = r.json()["id"]
     r = client.post("/v1/references", json={**NEW_REFERENCE, "id": REF}, headers=keys["technician"])
     assert r.status_code == 201, r.text
+    r = client.post(f"/v1/channels/{CH}/calibrate", json=POINTS, headers=keys["technician"])
+    assert r.status_code == 200, r.text
+    record_id = r.json()["calibration"]
     headers: dict[str, Headers] = {"none": {}, "bad_key": auth(BAD_SECRET)}
     headers.update({name: keys[name] for name in CALLERS[2:]})
     fresh = itertools.count(1)
@@ -151,8 +156,8 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
     for row in MATRIX:
         for caller in CALLERS:
             want: int = getattr(row, caller)
-            names: dict[str, Any] = {"channel_id": CH, "snapshot_id": snapshot_id, "new": f"site-a.new{next(fresh)}",
-                                     "reference_id": REF}
+            names: dict[str, Any] = {"channel_id": CH, "snapshot_id": snapshot_id, "record_id": record_id,
+                                     "new": f"site-a.new{next(fresh)}", "reference_id": REF}
             if "{kid}" in row.path:
                 made = client.post("/v1/keys", json={"role": "device"}, headers=keys["admin"])
                 assert made.status_code == 201, made.text

@@ -8,6 +8,7 @@ import json
 import socket
 import sys
 from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -124,7 +125,8 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     monkeypatch.setattr(techcli.common, "PAGE", 2)
     assert main(["channels", "list", "--prefix", "list."]) == 0
     out = capsys.readouterr().out.splitlines()
-    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "(UTC)"]
+    assert out[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "(UTC)", "calibration",
+                              "due"]
     assert [line.split()[0] for line in out[1:]] == [f"list.c{i}" for i in range(5)]
     row = next(line for line in out if line.startswith("list.c3"))
     assert row.split()[1:4] == ["ok", "-", "1"] and "degC" in row and "2026-12-01" in row
@@ -134,6 +136,17 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     assert [c["id"] for c in items] == [f"list.c{i}" for i in range(5)]
     assert main(["channels", "list", "--prefix", "list.", "--state", "alarm"]) == 0
     assert capsys.readouterr().out.splitlines()[1:] == []
+    # calibrated 400 days ago with the default 365-day interval: overdue; never calibrated: no due date
+    at = (datetime.now(UTC) - timedelta(days=400)).isoformat()
+    api.request("POST", "/v1/channels/list.c1/calibrate", json={"points": [{"x": 0, "y": 0}, {"x": 50, "y": 5},
+                                                                          {"x": 100, "y": 10}], "at": at})
+    assert main(["channels", "list", "--prefix", "list.", "--due", "overdue"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert [line.split()[0] for line in out[1:]] == ["list.c1"] and out[1].endswith("overdue")
+    assert main(["channels", "list", "--prefix", "list.", "--due", "due_soon"]) == 0
+    assert capsys.readouterr().out.splitlines()[1:] == []
+    assert main(["channels", "list", "--prefix", "list.c2"]) == 0
+    assert capsys.readouterr().out.splitlines()[1].endswith(" -")
 
     assert main(["channels", "show", "list.c3"]) == 0
     out = capsys.readouterr().out
@@ -168,9 +181,19 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     first = api.get_channel(cid)["version"]
 
     shifted = write_csv(tmp_path / "shifted.csv", ["x", "y"], [[x, 1.5 + 0.5 * x] for x in (0, 20, 40, 60, 80, 100)])
+    # a dry run shows the as-found table (the current curve 0.5 degC low at each point) and applies nothing
+    api.request("PATCH", f"/v1/channels/{cid}", json={"drift": {"tolerance": 0.4}})
+    patched = api.get_channel(cid)["version"]
+    assert main(["calibrate", cid, str(shifted), "--dry-run"]) == 0
+    out = capsys.readouterr().out
+    rows = out[out.index("as found"):].splitlines()
+    assert rows[1].split() == ["x", "reference", "indicated", "error", "tolerance", "verdict"]
+    assert [r.split()[3:] for r in rows[2:8]] == [["-0.5", "0.4", "fail"]] * 6
+    assert "verdict as found: fail, as left: pass" in out and "dry run: nothing applied" in out
+    assert "does not replace traceable" in out and api.get_channel(cid)["version"] == patched
     assert main(["calibrate", cid, str(shifted), "--yes", "--reason", "drifted 0.5 degC"]) == 0
     out = capsys.readouterr().out
-    assert "largest curve change  0.5 degC" in out
+    assert "largest curve change  0.5 degC" in out and "as left pass" in out
     cals = api.request("GET", f"/v1/channels/{cid}/events?kind=calibration")["items"]
     assert cals[-1]["details"]["reason"] == "drifted 0.5 degC"
     undo = int(out.rsplit("rollback cal.c1 ", 1)[1].split()[0])

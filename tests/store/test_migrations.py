@@ -6,7 +6,7 @@ import json
 import os
 import uuid
 from collections.abc import Iterator
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -158,16 +158,22 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
+#: the calibration settings 0008 fills in, as it fills them
+NEW_IN_0008 = {"decision_rule": "simple", "recalibration_interval_days": 365, "due_soon_days": 30}
+
+
 def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
-    # require_reference came later still (0007)
-    out = {k: v for k, v in config.items() if k not in ("coverage", "reference", "range_margin", "require_reference")}
+    # require_reference came later still (0007), the calibration settings in 0008
+    out = {k: v for k, v in config.items()
+           if k not in ("coverage", "reference", "range_margin", "require_reference", *NEW_IN_0008)}
     out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
     out["coverage_factor"] = 2.0
     return out
 
 
 def _filled(config: dict[str, Any]) -> dict[str, Any]:
-    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, "require_reference": False, **config,
+    return {"coverage": 0.95, "reference": None, "range_margin": 1.0, "require_reference": False, **NEW_IN_0008,
+            **config,
             "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
 
 
@@ -217,3 +223,44 @@ def _downgrade(engine: Engine, revision: str) -> None:
     with engine.begin() as conn:
         cfg.attributes["connection"] = conn
         command.downgrade(cfg, revision)
+
+
+def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_events(empty_url: str) -> None:
+    """A channel calibrated before records existed gets decision_rule simple, a 365-day
+    interval and a 30-day due-soon window, and a due date 365 days after its latest
+    calibration event; one never calibrated has none. Downgrading removes them again."""
+    config = channel_config({"id": "site-c.p3", "inputs": [{"name": "raw", "min": 0, "max": 10}]})
+    old = {k: v for k, v in config.items() if k not in NEW_IN_0008}
+    state = ChannelModel.from_config(config).to_state()
+    at = datetime(2026, 3, 1, 9, 30, tzinfo=UTC)
+    engine = make_engine(empty_url)
+    try:
+        migrate.upgrade(engine, "0005")
+        event_0005 = table("event", column("channel_pk"), column("kind"), column("version"), column("key_id"),
+                           column("at", UTCDateTime), column("details", JSON))
+        state_0005 = table("channel_state", column("channel_pk"), column("model_state", JSON), column("version"),
+                           column("n_samples"), column("n_rejected"), column("drift_state"),
+                           column("updated_at", UTCDateTime))
+        with engine.begin() as conn:
+            for pk, cid in ((1, "site-c.p3"), (2, "site-c.p4")):
+                conn.execute(insert(Channel.__table__).values(pk=pk, id=cid, config={**old, "id": cid},
+                                                              created_at=at))
+                conn.execute(insert(state_0005).values(channel_pk=pk, model_state=state, version=2, n_samples=0,
+                                                       n_rejected=0, drift_state="ok", updated_at=at))
+            for when in (at - timedelta(days=40), at):  # the latest counts
+                conn.execute(insert(event_0005).values(channel_pk=1, kind="calibration", version=1, key_id=None,
+                                                       at=when, details={}))
+        migrate.upgrade(engine)
+        with engine.connect() as conn:
+            rows = conn.execute(select(Channel.config, ChannelState.last_calibrated_at, ChannelState.due_on,
+                                       ChannelState.due_soon_on).join_from(
+                Channel, ChannelState, Channel.pk == ChannelState.channel_pk).order_by(Channel.pk)).all()
+        assert rows[0][0] == config and rows[1][0] == {**config, "id": "site-c.p4"}
+        # 2026-03-01 + 365 d = 2027-03-01 (2026 is not a leap year); due soon 30 d before
+        assert tuple(rows[0][1:]) == (at, date(2027, 3, 1), date(2027, 1, 30))
+        assert tuple(rows[1][1:]) == (None, None, None)
+        _downgrade(engine, "0005")
+        with engine.connect() as conn:
+            assert conn.execute(select(Channel.config).where(Channel.pk == 1)).scalar_one() == old
+    finally:
+        engine.dispose()

@@ -198,7 +198,7 @@ def test_fleet_lists_channels_needing_attention_first_and_filters(tab: Tab, serv
     ids = [rows.nth(i).get_attribute("data-channel") for i in range(rows.count())]
     attention = [c["id"] for c in channels
                  if c["drift"]["state"] in ("alarm", "warning") or c["drift"]["tolerance_state"] == "out_of_tolerance"
-                 or c["service_state"] == "out_of_service"]
+                 or c["service_state"] == "out_of_service" or c["due_state"] == "overdue"]
     # the story leaves coldstore.dock.p1 in alarm and out of tolerance, and the faulty probe
     # out of service after its rollback (the rollback test, later in this module, changes them)
     assert "coldstore.produce.p2" in attention and "coldstore.dock.p1" in attention
@@ -341,6 +341,58 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     page.wait_for_selector("#calibrate-message.error")
     assert "line 2" in page.text_content("#calibrate-message")
     assert served.api.get(f"/v1/channels/{cid}").json()["version"] == after["version"]
+
+
+def test_calibration_history_shows_as_found_as_left_and_verdicts(tab: Tab, served: Served) -> None:
+    """A channel calibrated twice more than a year ago: overdue in the fleet (and under its
+    filter), and its page lists both records; the newer one shows the first curve as found."""
+    from datetime import UTC, datetime, timedelta
+
+    cid = "coldstore.bench.t1"
+    made = served.api.post("/v1/channels", json={
+        "id": cid, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+        "output": {"name": "temperature", "unit": "degC"}, "drift": {"tolerance": 0.5}})
+    assert made.status_code == 201, made.text
+    xs = [0.0, 20.0, 40.0, 60.0, 80.0, 100.0]
+    noise = [0.02, -0.03, 0.01, 0.03, -0.02, -0.01]
+    now = datetime.now(UTC)
+    ids = []
+    for days, offset in ((400, 0.0), (390, -0.3)):  # the second finds the curve 0.3 degC high
+        r = served.api.post(f"/v1/channels/{cid}/calibrate", json={
+            "points": [{"x": x, "y": -5.0 + offset + 0.2 * x + e} for x, e in zip(xs, noise, strict=True)],
+            "at": (now - timedelta(days=days)).isoformat(), "reference": "ref-thermometer-7",
+            "conditions": {"values": {"ambient": "20.5 degC"}, "note": "stirred bath"}})
+        assert r.status_code == 200, r.text
+        ids.append(r.json()["calibration"])
+    page = tab.page
+    sign_in(tab, served)
+    page.wait_for_selector("#fleet-table tbody tr")
+    page.select_option("#due-state", "overdue")
+    wait_rows(page, "#fleet-table tbody tr", 1)
+    row = page.locator("#fleet-table tbody tr").first
+    assert row.get_attribute("data-channel") == cid and "overdue" in row.text_content()
+
+    page.goto(f"{served.url}/ui/channels/{cid}")
+    ch = served.api.get(f"/v1/channels/{cid}").json()
+    page.wait_for_selector(f"body[data-loaded='{ch['version']}']")
+    assert "overdue" in page.text_content("#channel-facts") and ch["due_on"] in page.text_content("#channel-facts")
+    wait_rows(page, "#calibration-table tbody tr", 2)
+    newest = page.locator("#calibration-table tbody tr").first
+    assert newest.get_attribute("data-record") == str(ids[1])
+    assert "pass" in newest.text_content()  # as found 0.3 degC high: within 0.5 degC
+    newest.locator("button").click()
+    page.wait_for_selector(f"#calibration-record[data-record='{ids[1]}']")
+    wait_rows(page, "#record-as-found tbody tr", len(xs))
+    wait_rows(page, "#record-as-left tbody tr", len(xs))
+    record = served.api.get(f"/v1/channels/{cid}/calibrations/{ids[1]}").json()
+    found = page.locator("#record-as-found tbody tr").first.text_content()
+    assert f"{record['as_found'][0]['error']:.3g} degC" in found and "pass" in found
+    box = page.text_content("#calibration-record")
+    assert "ref-thermometer-7" in box and "ambient = 20.5 degC" in box and "stirred bath" in box
+    assert "curve and scatter" in page.text_content("#record-budget")
+    assert f"{record['interval_suggestion']['days']} days suggested" in box
+    assert "does not replace" in page.text_content("p.caution")  # the caution stays in view
+    shot(page, "calibration-record.png")
 
 
 def test_a_page_without_a_key_goes_to_sign_in(tab: Tab, served: Served) -> None:

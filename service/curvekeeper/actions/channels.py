@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
 from pydantic import ValidationError
@@ -10,6 +11,7 @@ from sqlalchemy.exc import IntegrityError
 from ..channel_config import ChannelConfig, NewChannel, warnings_for
 from ..core import ChannelModel, ConfigError
 from ..core.config import MUTABLE
+from ..core.conformity import due_on, due_state
 from ..errors import (
     AlreadyArchived,
     ChannelArchived,
@@ -32,6 +34,8 @@ STATES = {"ok", "warning", "alarm", "out_of_tolerance", "damaged"}
 DAMAGED = "damaged"
 #: the ``archived`` filter of the list: live channels only (the default), all, or archived only
 ARCHIVED = ("exclude", "include", "only")
+#: the ``due_state`` filter of the list
+DUE_STATES = {"due_soon", "overdue"}
 
 
 def refuse_archived(ch: Channel) -> None:
@@ -53,6 +57,28 @@ def load(repo: Repository, channel_id: str, *, lock: bool = False, archived_ok: 
     return found
 
 
+def due_columns(config: dict[str, Any], last: datetime | None) -> dict[str, Any]:
+    """The state row's due-date columns for a channel last calibrated at ``last``."""
+    if last is None:
+        return {"last_calibrated_at": None, "due_on": None, "due_soon_on": None}
+    due = due_on(last.astimezone(UTC).date(), config["recalibration_interval_days"])
+    return {"last_calibrated_at": last, "due_on": due, "due_soon_on": due - timedelta(days=config["due_soon_days"])}
+
+
+def refresh_due(repo: Repository, st: ChannelState, config: dict[str, Any], last: datetime | None) -> None:
+    """Set the due-date columns after a calibration at ``last`` or a change of settings."""
+    cols = due_columns(config, last)
+    if (st.last_calibrated_at, st.due_on, st.due_soon_on) != tuple(cols.values()):
+        repo.save_due(st, **cols)
+
+
+def due(config: dict[str, Any], st: ChannelState, today: date | None = None) -> dict[str, Any]:
+    """``due_on`` (null: never calibrated) and ``due_state`` as a channel answers them."""
+    today = today or datetime.now(UTC).date()
+    return {"due_on": st.due_on, "due_state": due_state(st.due_on, today, config["due_soon_days"]),
+            "last_calibrated_at": st.last_calibrated_at}
+
+
 def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
     """Config plus summary, as ``GET /v1/channels/{id}`` answers it."""
     s = model.summary()
@@ -72,6 +98,7 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
         "archived": ch.archived_at is not None,
         "archived_at": ch.archived_at,
     })
+    out.update(due(ch.config, st))
     return out
 
 
@@ -120,22 +147,27 @@ def damaged_item(ch: Channel, st: ChannelState, error: StateDamaged) -> dict[str
 
 
 def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | None,
-          limit: int, archived: str = "exclude") -> Page:
+          limit: int, archived: str = "exclude", due_state: str | None = None) -> Page:
     """A page of channels by creation order; archived ones only with ``archived`` "include"
-    or "only". A channel whose stored state cannot be restored
+    or "only"; ``due_state`` keeps the channels due soon or overdue. A channel whose stored state cannot be restored
     is listed as ``damaged`` (only under the ``damaged`` filter, or none), so one damaged
     channel never breaks the fleet's list. The filters on the drift and tolerance states
-    go to the store; ``damaged`` is known only by restoring each state (most are cached)."""
+    go to the store; ``damaged`` is known only by restoring each state (most are cached).
+    ``due_state`` (``due_soon``, ``overdue``) keeps the channels in that state today (UTC)."""
     repo = unit.repo
     if state is not None and state not in STATES:
         raise InvalidRequest(f"state must be one of {', '.join(sorted(STATES))}", details={"field": "state"})
     if archived not in ARCHIVED:
         raise InvalidRequest(f"archived must be one of {', '.join(ARCHIVED)}", details={"field": "archived"})
+    if due_state is not None and due_state not in DUE_STATES:
+        raise InvalidRequest(f"due_state must be one of {', '.join(sorted(DUE_STATES))}",
+                             details={"field": "due_state"})
+    today = datetime.now(UTC).date()
     after = decode_cursor(cursor)
     items: list[dict[str, Any]] = []
     while True:
         rows = repo.list_channels(prefix=prefix, state=None if state == DAMAGED else state, after_pk=after,
-                                  limit=limit + 1, archived=archived)
+                                  limit=limit + 1, archived=archived, due_state=due_state, today=today)
         for ch, st in rows:
             if len(items) == limit and state is None:  # every row is listed: this one opens the next page
                 return Page(items, None if after is None else encode_cursor(after))
@@ -182,6 +214,7 @@ def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> 
     version = st.version + 1
     repo.save_config(ch, config)
     unit.save_model(st, updated, version)
+    refresh_due(repo, st, config, st.last_calibrated_at)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes, "config": config}}])
     return view(ch, st, updated)

@@ -3,15 +3,16 @@
 from __future__ import annotations
 
 import math
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
-from .channels import load, refuse_archived
-from .references import reference_for_use, today, use_on_channel
+from . import calibrations
+from .channels import load, refresh_due, refuse_archived
+from .references import reference_for_use, use_on_channel
 from .unit import Unit, item_cost, restore
 
 HISTORY_LIMIT = 1_000_000
@@ -116,18 +117,24 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None, dry_run: bool = False,
               reason: str | None = None, reference: str | None = None,
-              allow_overdue_reference: bool = False) -> dict[str, Any]:
-    """Fit the points (and/or stored history) and make the fit the channel's curve; with
-    ``dry_run``, only report what the fit would be, changing nothing. ``reason`` (why, in a
-    person's words) goes into the event for the audit trail; replay does not read it.
-    ``reference`` names the reference instrument (checked as ``reference_for_use`` does);
-    the channel's ``reference`` setting then takes its U and k."""
+              allow_overdue_reference: bool = False, at: datetime | None = None, supersedes: int | None = None,
+              conditions: dict[str, Any] | None = None, max_clock_skew_s: float = 300.0) -> dict[str, Any]:
+    """Fit the points (and/or stored history), make the fit the channel's curve and store
+    its calibration record (``record``; done ``at``, default now; correcting the record
+    ``supersedes`` names); with ``dry_run``, only report what the fit and the record would
+    be, changing nothing. ``reason`` (why, in a person's words) goes into the event for the
+    audit trail; replay does not read it. ``reference`` names the reference instrument
+    (checked as ``reference_for_use`` does, against the calibration's date); the channel's
+    ``reference`` setting then takes its U and k, and the record's budget counts them."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
     refuse_archived(ch)  # a dry run too: it previews a change the channel cannot take
-    use = None if reference is None else reference_for_use(repo, reference, today(), allow_overdue_reference)
+    when = calibrations.check(repo, ch, at=at, supersedes=supersedes, now=datetime.now(UTC),
+                              skew_s=max_clock_skew_s)
+    use = None if reference is None else reference_for_use(repo, reference, when.date(), allow_overdue_reference)
     config = ch.config if use is None else use_on_channel(ch.config, use)
     model = unit.write_model(st)
+    before_model = model.copy()
     d = len(model.config["inputs"])
     xs: list[list[float]] = []
     ys: list[float] = []
@@ -160,27 +167,41 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
         raise InvalidRequest(exc.message, details=exc.details) from exc
     facts = None if use is None else use.facts()
     report["reference"] = facts
+    if config is not ch.config:
+        model = model.with_settings(config)  # the record's budget counts the instrument named
+    key = repo.get_key(key_id) if key_id else None
+    record = {**calibrations.findings(before_model, model, points, report),
+              "conditions": conditions or {"values": {}, "note": None},
+              "by": key.label if key is not None and key.label else key_id,
+              "references": [] if facts is None else [facts]}
     if dry_run:
-        report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False})
+        report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False,
+                       "calibration": None, "record": record})
         return report
     version = st.version + 1
     before = repo.insert_snapshot(ch.pk, reason="before-calibrate", label=label, config=ch.config,
                                   model_state=before_state,
                                   version=st.version, n_samples=st.n_samples)
     if config is not ch.config:
-        model = model.with_settings(config)
         repo.save_config(ch, config)
     state = model.to_state()
     after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=config, model_state=state,
                                  version=version, n_samples=st.n_samples)
     unit.save_model(st, model, version)
     used = {} if use is None else {"reference": facts, "reference_setting": config["reference"]}
+    stored = calibrations.store(repo, ch, version=version, at=when, key_id=key_id, supersedes=supersedes,
+                                body=record)
+    latest = st.last_calibrated_at
+    refresh_due(repo, st, ch.config, when if latest is None or when > latest else latest)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
                          "details": {"label": label, **({"reason": reason} if reason else {}), **used,
                                      "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],
                                      "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
                                      "max_curve_change": report["max_curve_change"],
-                                     "snapshot_before": before.pk, "snapshot_after": after.pk}}])
-    report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version, "applied": True})
+                                     "snapshot_before": before.pk, "snapshot_after": after.pk,
+                                     "record": stored["id"], "at": when.isoformat(), "verdict": record["verdict"],
+                                     **({"supersedes": supersedes} if supersedes is not None else {})}}])
+    report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version, "applied": True,
+                   "calibration": stored["id"], "record": record})
     return report

@@ -11,7 +11,7 @@ from ..core.config import MUTABLE
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
-from .channels import load, view
+from .channels import load, refresh_due, view
 from .paging import Page, decode_cursor, encode_cursor
 from .unit import Unit, restore
 
@@ -112,6 +112,7 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
     if model.config != ch.config:  # the settings it was taken under come back with it
         repo.save_config(ch, model.config)
     unit.save_model(st, model, version)
+    refresh_due(repo, st, model.config, st.last_calibrated_at)  # the interval may have come back too
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk,
                                      "set_reference": set_reference, **({"reason": reason} if reason else {})}}])

@@ -22,7 +22,7 @@ from ..web import routes as web
 from . import docs, errors
 from .deps import AppContext, KeyCache
 from .middleware import BodyLimit, RequestMetrics, SecurityHeaders
-from .routes import audit, channels, curves, health, keys, lifecycle, references, samples, snapshots
+from .routes import audit, calibrations, channels, curves, health, keys, lifecycle, references, samples, snapshots
 
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
@@ -64,7 +64,7 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
                   docs_url=None, redoc_url=None)
     errors.install(app)
     docs.install(app, "curvekeeper")
-    for module in (health, channels, samples, curves, snapshots, lifecycle, keys, audit, references, web):
+    for module in (health, channels, samples, curves, calibrations, snapshots, lifecycle, keys, audit, references, web):
         app.include_router(module.router)
     app.include_router(web.root)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)

@@ -8,7 +8,8 @@ thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage``,
 ``coverage_factor`` (null: k from Student's t), ``reference`` (the reference instrument's
 ``expanded_uncertainty``, ``coverage_factor`` and ``distribution``, the ``instrument`` they
 were taken from, or null), ``range_margin``, ``require_reference`` (the service's rule that
-samples name their reference instrument; the core does not read it).
+samples name their reference instrument; the core does not read it),
+``decision_rule`` (``simple`` | ``guarded``), ``recalibration_interval_days``, ``due_soon_days``.
 The core reads it and never changes it.
 """
 
@@ -22,4 +23,5 @@ Config = dict[str, Any]
 #: settings a channel may change after creation; the rest (inputs with their resolution,
 #: output, basis) fix the curve's form
 MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage",
-                     "coverage_factor", "reference", "range_margin", "require_reference"})
+                     "coverage_factor", "reference", "range_margin", "require_reference", "decision_rule",
+                     "recalibration_interval_days", "due_soon_days"})

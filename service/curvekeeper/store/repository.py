@@ -14,10 +14,22 @@ import numpy as np
 from numpy.typing import NDArray
 from sqlalchemy import Table, bindparam, func, insert, select, update
 from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session, defer
+from sqlalchemy.orm import Session, aliased, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
-from .tables import ApiKey, Channel, ChannelState, Event, ReferenceInstrument, Sample, Snapshot, utcnow
+from .tables import (
+    ApiKey,
+    CalibrationRecord,
+    Channel,
+    ChannelState,
+    Event,
+    ReferenceInstrument,
+    Sample,
+    Snapshot,
+    utcnow,
+)
+
+_SUCCESSOR = aliased(CalibrationRecord)
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
                   "residual", "drift_statistic", "accepted", "reason", "reference")
@@ -149,8 +161,10 @@ class Repository:
         return ch, st
 
     def list_channels(self, *, prefix: str | None, state: str | None, after_pk: int | None,
-                      limit: int, archived: str = "exclude") -> list[tuple[Channel, ChannelState]]:
-        """Channels by creation order; ``archived``: "exclude" (live only), "include", "only"."""
+                      limit: int, archived: str = "exclude", due_state: str | None = None,
+                      today: date | None = None) -> list[tuple[Channel, ChannelState]]:
+        """Channels by creation order; ``archived``: "exclude" (live only), "include", "only";
+        ``due_state``: "due_soon" or "overdue" on ``today``."""
         stmt = (select(Channel, ChannelState)
                 .join(ChannelState, ChannelState.channel_pk == Channel.pk)
                 .options(defer(ChannelState.model_state, raiseload=True))
@@ -165,6 +179,10 @@ class Repository:
             stmt = stmt.where(Channel.archived_at.is_(None))
         elif archived == "only":
             stmt = stmt.where(Channel.archived_at.is_not(None))
+        if due_state == "overdue":
+            stmt = stmt.where(ChannelState.due_on < today)
+        elif due_state == "due_soon":
+            stmt = stmt.where(ChannelState.due_soon_on <= today, ChannelState.due_on >= today)
         if after_pk is not None:
             stmt = stmt.where(Channel.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
@@ -204,6 +222,38 @@ class Repository:
     def save_config(self, ch: Channel, config: dict[str, Any]) -> None:
         ch.config = config
         self.session.flush()
+
+    def save_due(self, st: ChannelState, **values: datetime | date | None) -> None:
+        """The state row's due-date columns (``last_calibrated_at``, ``due_on``,
+        ``due_soon_on``); ``st`` shows them afterwards."""
+        self.session.execute(update(ChannelState).where(ChannelState.channel_pk == st.channel_pk).values(**values))
+        for name, value in values.items():
+            set_committed_value(st, name, value)
+
+    # calibration records --------------------------------------------------------------
+    def insert_record(self, record: CalibrationRecord) -> CalibrationRecord:
+        """Store a new record; records are never updated nor deleted (no method does)."""
+        self.session.add(record)
+        self.session.flush()
+        return record
+
+    def get_record(self, channel_pk: int, record_pk: int) -> tuple[CalibrationRecord, int | None] | None:
+        """A channel's record with the pk of the record that supersedes it (None: none does)."""
+        row = self.session.execute(
+            select(CalibrationRecord, _SUCCESSOR.pk)
+            .outerjoin(_SUCCESSOR, _SUCCESSOR.supersedes == CalibrationRecord.pk)
+            .where(CalibrationRecord.channel_pk == channel_pk, CalibrationRecord.pk == record_pk)).one_or_none()
+        return None if row is None else (row[0], row[1])
+
+    def list_records(self, channel_pk: int, *, after_pk: int | None, limit: int
+                     ) -> list[tuple[CalibrationRecord, int | None]]:
+        """A channel's records, oldest stored first, each with the pk of its successor."""
+        stmt = (select(CalibrationRecord, _SUCCESSOR.pk)
+                .outerjoin(_SUCCESSOR, _SUCCESSOR.supersedes == CalibrationRecord.pk)
+                .where(CalibrationRecord.channel_pk == channel_pk).order_by(CalibrationRecord.pk).limit(limit))
+        if after_pk is not None:
+            stmt = stmt.where(CalibrationRecord.pk > after_pk)
+        return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     # samples ----------------------------------------------------------------------
     def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int]) -> set[int]:

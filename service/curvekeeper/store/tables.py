@@ -94,6 +94,11 @@ class ChannelState(Base):
     rmse: Mapped[float | None] = mapped_column(Float, nullable=True)
     last_sample_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # the due date, for the list's due_state filter: from the latest calibration record's
+    # ``at`` and the channel's interval (null: never calibrated); due soon from due_soon_on
+    last_calibrated_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    due_on: Mapped[date | None] = mapped_column(Date, nullable=True)
+    due_soon_on: Mapped[date | None] = mapped_column(Date, nullable=True)
 
 
 class Sample(Base):
@@ -178,6 +183,25 @@ class ReferenceInstrument(Base):
     retired: Mapped[bool] = mapped_column(Boolean, default=False)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class CalibrationRecord(Base):
+    """What one calibration found and left, immutable once written: a correction is a new
+    record whose ``supersedes`` names this one (at most one does: unique). ``record``
+    holds the body (as found, as left, fit, budget, conditions, references, decision rule,
+    interval suggestion); ``at`` is when the calibration was done, ``created_at`` when stored."""
+
+    __tablename__ = "calibration_record"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"), index=True)
+    version: Mapped[int] = mapped_column(BigInteger)
+    at: Mapped[datetime] = mapped_column(UTCDateTime)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime)
+    key_id: Mapped[str | None] = mapped_column(String(40), nullable=True)
+    verdict: Mapped[str] = mapped_column(String(16))
+    supersedes: Mapped[int | None] = mapped_column(ForeignKey("calibration_record.pk"), nullable=True, unique=True)
+    record: Mapped[dict[str, Any]] = mapped_column(JSON)
 
 
 class ApiKey(Base):

@@ -59,6 +59,8 @@ def add_commands(sub: Any) -> None:
                     help="only channels in this state")
     ls.add_argument("--archived", choices=["include", "only"],
                     help="archived channels too (listed last), or only them (default: live channels only)")
+    ls.add_argument("--due", choices=["due_soon", "overdue"],
+                    help="only channels whose calibration is due soon (within their due_soon_days) or overdue")
     ls.add_argument("--json", action="store_true", help="the service's items as JSON")
     ls.set_defaults(func=_runner(channels_list))
     show = ch_sub.add_parser("show", parents=common, help="one channel's configuration and summary")
@@ -128,6 +130,7 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("--reference", help="the reference instrument the points were measured with")
     cal.add_argument("--allow-overdue-reference", action="store_true",
                      help="calibrate although the reference is overdue (recorded)")
+    cal.add_argument("--dry-run", action="store_true", help="show the fit's as-found table and verdict, apply nothing")
     cal.set_defaults(func=_runner(calibrate))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")

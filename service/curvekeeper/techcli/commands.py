@@ -17,9 +17,8 @@ from .csvfiles import read_points
 
 
 def channels_list(client: Client, args: argparse.Namespace) -> int:
-    """In the fleet page's order (``display.fleet_order``: attention first, archived last),
-    times as the pages write them."""
-    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state, archived=args.archived))
+    items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state, archived=args.archived,
+                        due_state=args.due))
     items = [dict(c) for c in display.fleet_order(items)]
     if args.json:
         _json(items)
@@ -36,8 +35,9 @@ def channels_list(client: Client, args: argparse.Namespace) -> int:
         rows.append([ch["id"], state, str(drift.get("tolerance_state") or "-"),
                      str(ch.get("n_samples", 0)),
                      "-" if rmse is None else f"{_num(rmse, 4)} {_unit(ch)}".rstrip(),
-                     display.when(ch.get("last_sample_at"))])
-    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample (UTC)"], rows)
+                     display.when(ch.get("last_sample_at")),
+                     f"{ch['due_on']} {ch['due_state']}" if ch.get("due_on") else "-"])
+    _table(["id", "drift", "tolerance", "samples", "rmse", "last sample (UTC)", "calibration due"], rows)
     attention = sum(1 for ch in items if display.rank(ch) < display.ATTENTION)
     print(f"{len(rows)} channel(s), {attention} needing attention (listed first)", file=sys.stderr)
     return 0
@@ -181,6 +181,16 @@ def rollback(client: Client, args: argparse.Namespace) -> int:
 
 
 # calibrate ------------------------------------------------------------------------------
+def _as_found(record: dict[str, Any], unit: str) -> None:
+    """The would-be record's as-found table (the current curve at each point) and verdicts."""
+    print(f"as found (the current curve at each point, {record['decision_rule']} decision rule):")
+    _table(["x", "reference", "indicated", "error", "tolerance", "verdict"],
+           [[_num(p["x"]), _num(p["reference_value"]), _num(p["indicated"]), _num(p["error"], 4),
+             _num(p["tolerance"], 4), p["verdict"]] for p in record["as_found"]])
+    print(f"verdict as found: {record['as_found_verdict']}, as left: {record['verdict']} ({unit or 'output units'}); "
+          f"next interval suggested {record['interval_suggestion']['days']} days")
+
+
 def calibrate(client: Client, args: argparse.Namespace) -> int:
     cfg = client.get_channel(args.channel)
     path = Path(args.file)
@@ -188,8 +198,6 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
     print(f"{args.channel}: fit {len(points)} point(s) from {path} by least squares; this replaces the "
           f"current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples learned)")
     print("  the current state is kept as a snapshot, so the calibration can be rolled back")
-    print(f"  {CAUTION}")
-    _confirm(f"Calibrate {args.channel} now?", args.yes)
     body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
     if args.label is not None:
         body["label"] = args.label
@@ -197,9 +205,17 @@ def calibrate(client: Client, args: argparse.Namespace) -> int:
         body["reason"] = args.reason
     if args.reference is not None:
         body.update(reference=args.reference, allow_overdue_reference=args.allow_overdue_reference)
-    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
     unit = _unit(cfg)
-    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
+    preview = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json={**body, "dry_run": True})
+    _as_found(preview["record"], unit)
+    print(f"  {CAUTION}")
+    if args.dry_run:
+        print("dry run: nothing applied")
+        return 0
+    _confirm(f"Calibrate {args.channel} now?", args.yes)
+    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
+    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}; record "
+          f"{r.get('calibration')}, as left {r['record']['verdict']}")
     if r.get("reference"):
         ref = r["reference"]
         print(f"against reference {ref['id']} ({ref['certificate']}, due {ref['due_on']}"

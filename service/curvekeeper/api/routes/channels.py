@@ -18,6 +18,7 @@ ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_
 Limit = Annotated[int, Query(ge=1, le=1000)]
 STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
 ARCHIVED_FILTER = "exclude: live channels only (default); include: archived ones too; only: archived ones only"
+DUE_FILTER = "due_soon (due within the channel's due_soon_days, today included) or overdue (past its due_on)"
 
 
 @router.post("", status_code=201, summary="Create a channel", response_model=ChannelCreated)
@@ -32,10 +33,12 @@ def list_channels(ctx: Ctx, who: Who, prefix: Annotated[Plain | None, Query(max_
                   state: Annotated[str | None, Query(description=STATE_FILTER)] = None,
                   archived: Annotated[Literal["exclude", "include", "only"], Query(description=ARCHIVED_FILTER)]
                   = "exclude",
+                  due_state: Annotated[str | None, Query(description=DUE_FILTER)] = None,
                   limit: Limit = 100, cursor: str | None = None) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=False) as unit:
-        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit, archived=archived)
+        page = channels.list_(unit, prefix=prefix, state=state, cursor=cursor, limit=limit, archived=archived,
+                              due_state=due_state)
     return {"items": page.items, "next_cursor": page.next_cursor}
 
 
@@ -46,7 +49,7 @@ def get_channel(channel_id: ChannelPath, ctx: Ctx, who: Who) -> dict[str, Any]:
         return channels.get(unit, channel_id)
 
 
-@router.patch("/{channel_id}", summary="Change learner, drift, tolerance or snapshot settings",
+@router.patch("/{channel_id}", summary="Change learner, drift, tolerance, snapshot or calibration settings",
               response_model=ChannelPublic)
 def patch_channel(channel_id: ChannelPath, body: ChannelUpdate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require_channel(channel_id, "technician")

@@ -63,7 +63,8 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
     return CurveAnswer.model_validate(out)
 
 
-@router.post("/calibrate", summary="Closed-form least-squares calibration")
+@router.post("/calibrate", summary="Closed-form least-squares calibration, with its calibration record",
+             responses=error_responses(409))
 @counted("points", lambda s: MAX_POINTS, "max_points", "points")
 def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
     # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
@@ -78,5 +79,8 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
                                include_history=body.include_history, since=body.since, until=body.until,
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run,
                                reason=body.reason, reference=body.reference,
-                               allow_overdue_reference=body.allow_overdue_reference)
+                               allow_overdue_reference=body.allow_overdue_reference, at=body.at,
+                               supersedes=body.supersedes,
+                               conditions=body.conditions.model_dump() if body.conditions else None,
+                               max_clock_skew_s=ctx.settings.max_clock_skew_s)
     return CalibrationAnswer.model_validate(out)

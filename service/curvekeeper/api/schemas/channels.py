@@ -5,7 +5,7 @@ the configuration with the channel's summary."""
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Discriminator, Field, Tag
@@ -13,6 +13,9 @@ from pydantic import MISSING, BaseModel, ConfigDict, Discriminator, Field, Tag
 from ...channel_config import (
     COVERAGE,
     COVERAGE_FACTOR,
+    DECISION_RULE,
+    DUE_SOON,
+    INTERVAL,
     RANGE_MARGIN,
     REFERENCE,
     REQUIRE_REFERENCE,
@@ -20,8 +23,11 @@ from ...channel_config import (
     Coverage,
     CoverageFactor,
     Cusum,
+    DecisionRule,
+    DueSoonDays,
     Ewma,
     Integer,
+    IntervalDays,
     NewChannel,
     PageHinkley,
     Positive,
@@ -58,6 +64,9 @@ class ChannelUpdate(BaseModel):
     reference: Reference | None | MISSING = Field(MISSING, description=REFERENCE)
     range_margin: RangeMargin | MISSING = Field(MISSING, description=RANGE_MARGIN)
     require_reference: RequireReference | MISSING = Field(MISSING, description=REQUIRE_REFERENCE)
+    decision_rule: DecisionRule | MISSING = Field(MISSING, description=DECISION_RULE)
+    recalibration_interval_days: IntervalDays | MISSING = Field(MISSING, description=INTERVAL)
+    due_soon_days: DueSoonDays | MISSING = Field(MISSING, description=DUE_SOON)
     inputs: Any | MISSING = Field(MISSING, description="cannot change: 409")
     output: Any | MISSING = Field(MISSING, description="cannot change: 409")
     basis: Any | MISSING = Field(MISSING, description="cannot change: 409")
@@ -113,6 +122,12 @@ class ChannelPublic(ChannelConfig):
     archived: bool = Field(description="archived: its history can be read, it takes no samples nor changes (409 "
                                        "archived) and the list leaves it out unless asked")
     archived_at: datetime | None = Field(description="when it was archived; null: live")
+    last_calibrated_at: datetime | None = Field(description="the latest calibration's time (its record's at)")
+    due_on: date | None = Field(description="last_calibrated_at's date + recalibration_interval_days (UTC); null: "
+                                            "never calibrated")
+    due_state: Literal["ok", "due_soon", "overdue"] | None = Field(
+        description="today (UTC) against due_on: overdue after it, due_soon from due_soon_days before it; null: "
+                    "never calibrated")
 
 
 class ChannelCreated(ChannelPublic):

@@ -6,8 +6,10 @@ from typing import Literal
 
 from pydantic import MISSING, BaseModel, ConfigDict, Field
 
-from ...channel_config import Basis, Distribution, InputSpec, OutputSpec, Reason, ReferenceId
+from ...channel_config import Basis, InputSpec, OutputSpec, Reason, ReferenceId
+from .calibrations import ConditionsIn, RecordBody
 from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
+from .references import ReferenceUsed
 
 
 class PredictIn(BaseModel):
@@ -44,9 +46,15 @@ class CalibrateIn(BaseModel):
     reason: Reason | None = Field(None, description="why, for the audit trail (1 to 500 characters of plain text)")
     reference: ReferenceId | None = Field(None, description=(
         "the reference instrument the points were measured with (GET /v1/references/{id}); the channel's reference "
-        "setting then takes its U and k. Unknown: 404; retired: 409; due before today: 409 reference_overdue"))
+        "setting then takes its U and k, and the record lists it. Unknown: 404; retired: 409; due before the "
+        "calibration's date: 409 reference_overdue"))
     allow_overdue_reference: bool = Field(False, strict=True, description=(
         "calibrate against a reference whose due date has passed; the choice is recorded"))
+    at: When | None = Field(None, description="when the calibration was done (not in the future; default now): the "
+                                              "record's time, which due dates count from")
+    supersedes: SnapshotId | None = Field(None, description="the id of this channel's calibration record this "
+                                                            "calibration corrects (a record is superseded once)")
+    conditions: ConditionsIn | None = Field(None, description="the calibration's conditions, kept in its record")
 
 
 # answers -----------------------------------------------------------------------------------------
@@ -158,24 +166,6 @@ class FitReport(Answer):
     max_curve_change: float | None = Field(description="largest change of the curve over the range, output units")
 
 
-class ReferenceUsed(Answer):
-    """The reference instrument a calibration used, as it stood that day."""
-
-    id: str
-    unit: str
-    expanded_uncertainty: float = Field(description="U (for a rectangular or triangular distribution: the "
-                                                    "half-width a), the reference's unit")
-    coverage_factor: float
-    distribution: Distribution
-    standard_uncertainty: float = Field(description="u = U / k, what enters the channel's uncertainty")
-    certificate: str
-    calibrated_on: str
-    due_on: str
-    on: str = Field(description="the calibration's day (UTC) the due date was checked against")
-    overdue: bool = Field(description="its due date lay before the calibration's day")
-    allow_overdue_reference: bool = Field(description="what the request said about an overdue reference")
-
-
 class CalibrationAnswer(RawCoefficients, FitReport):
     """The fit report; with dry_run, what the fit would be (``applied`` false)."""
 
@@ -185,3 +175,5 @@ class CalibrationAnswer(RawCoefficients, FitReport):
     snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")
     version: int
     applied: bool
+    calibration: int | None = Field(description="the stored calibration record's id; null on a dry run")
+    record: RecordBody = Field(description="the calibration record (on a dry run: what it would record)")

@@ -125,3 +125,21 @@ class ReferencePublic(Answer):
 
 class ReferencePage(Page[ReferencePublic]):
     """Reference instruments by creation order."""
+
+
+class ReferenceUsed(Answer):
+    """The reference instrument a calibration used, as it stood that day."""
+
+    id: str
+    unit: str
+    expanded_uncertainty: float = Field(description="U (for a rectangular or triangular distribution: the "
+                                                    "half-width a), the reference's unit")
+    coverage_factor: float
+    distribution: Distribution
+    standard_uncertainty: float = Field(description="u = U / k, what enters the channel's uncertainty")
+    certificate: str
+    calibrated_on: str
+    due_on: str
+    on: str = Field(description="the calibration's day (UTC) the due date was checked against")
+    overdue: bool = Field(description="its due date lay before the calibration's day")
+    allow_overdue_reference: bool = Field(description="what the request said about an overdue reference")

@@ -62,6 +62,10 @@ function renderFacts() {
   fact(dl, "coverage factor", ch.coverage_factor === null || ch.coverage_factor === undefined
     ? `k from Student's t at ${num(100 * ch.coverage, "%", 4)} coverage`
     : `k = ${num(ch.coverage_factor, "", 3)}`);
+  fact(dl, "calibration due", ...(ch.due_on
+    ? [CK.badge(ch.due_state), ` on ${ch.due_on} (every ${ch.recalibration_interval_days} days; ` +
+       `last ${CK.when(ch.last_calibrated_at)} UTC; decision rule ${ch.decision_rule})`]
+    : [`never calibrated (interval ${ch.recalibration_interval_days} days; decision rule ${ch.decision_rule})`]));
   fact(dl, "version", String(ch.version));
   fact(dl, "last sample (UTC)", CK.when(ch.last_sample_at));
 }
@@ -207,6 +211,7 @@ async function loadAll() {
   await renderResiduals();
   renderSnapshots();
   renderEvents(page.events);
+  await CKRecords.load(path(), outUnit()).catch((e) => CK.say(msg, `Could not load the calibration records: ${e.message}`, "error"));
   document.body.dataset.loaded = String(page.ch.version);
 }
 

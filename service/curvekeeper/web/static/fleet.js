@@ -8,15 +8,17 @@ async function loadFleet() {
   const prefix = document.getElementById("prefix").value.trim();
   const state = document.getElementById("state").value;
   const archived = document.getElementById("show-archived").checked;
+  const dueState = document.getElementById("due-state").value;
   const summary = document.getElementById("fleet-summary");
   const tbody = document.querySelector("#fleet-table tbody");
   const q = new URLSearchParams();
   if (prefix) q.set("prefix", prefix);
   if (state) q.set("state", state);
   if (archived) q.set("archived", "include");
+  if (dueState) q.set("due_state", dueState);
   summary.textContent = "Loading …";
   if (!tbody.children.length) {
-    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "7", text: "Loading the channels …" })));
+    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "8", text: "Loading the channels …" })));
   }
   let items;
   try {
@@ -42,6 +44,8 @@ async function loadFleet() {
       el("td", {}, el("a", { href: "/ui/channels/" + encodeURIComponent(ch.id), text: ch.id })),
       el("td", {}, ...drift),
       el("td", {}, tol),
+      el("td", {}, ...(ch.due_on ? [CK.badge(ch.due_state), " ", el("small", { text: ch.due_on })]
+                               : [el("span", { class: "state state-none", text: "never calibrated" })])),
       el("td", { text: CK.when(ch.last_sample_at) }),
       el("td", { class: "num", text: `${ch.n_samples}` + (ch.n_rejected ? ` (+${ch.n_rejected} held back)` : "") }),
       el("td", { class: "num", text: num(ch.rmse, unit, 3) }),
@@ -60,6 +64,7 @@ document.addEventListener("DOMContentLoaded", () => {
   document.getElementById("filters").addEventListener("submit", (ev) => { ev.preventDefault(); loadFleet(); });
   document.getElementById("state").addEventListener("change", loadFleet);
   document.getElementById("show-archived").addEventListener("change", loadFleet);
+  document.getElementById("due-state").addEventListener("change", loadFleet);
   loadFleet();
   // keep the list current while the page is in view
   setInterval(() => { if (document.visibilityState === "visible") loadFleet(); }, REFRESH_MS);
