@@ -7,7 +7,7 @@ records existed has no record, but its due date counts from its latest ``calibra
 event.
 
 Revision ID: 0008
-Revises: 0005
+Revises: 0007
 Create Date: 2026-12-02 18:30:00
 """
 
@@ -23,7 +23,7 @@ from alembic import op
 import curvekeeper.store.tables
 
 revision = "0008"
-down_revision = "0005"
+down_revision = "0007"
 branch_labels = None
 depends_on = None
 
