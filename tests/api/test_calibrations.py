@@ -118,6 +118,9 @@ def test_records_cannot_be_changed_or_deleted(client: TestClient, keys: Keys, ch
 
 def test_a_first_calibration_has_no_as_found_and_its_as_left_is_the_fit(client: TestClient, keys: Keys,
                                                                         channel: Any) -> None:
+    ok(client.post("/v1/references", json={"id": "ref-bath-2", "unit": "kPa", "expanded_uncertainty": 0.02,
+                                           "certificate": "BATH-2-CERT", "calibrated_on": "2026-01-05",
+                                           "due_on": "2036-01-05"}, headers=keys["technician"]), 201)
     out = calibrate(client, keys["technician"], conditions={"values": {"ambient_temperature": "21.4 degC",
                                                                        "humidity_percent": 45}, "note": "bath 2"},
                     reference="ref-bath-2")
@@ -126,7 +129,8 @@ def test_a_first_calibration_has_no_as_found_and_its_as_left_is_the_fit(client: 
     assert rec["channel"] == CH and rec["version"] == out["version"] and rec["supersedes"] is None
     assert rec["conditions"] == {"values": {"ambient_temperature": "21.4 degC", "humidity_percent": 45},
                                  "note": "bath 2"}
-    assert rec["references"] == ["ref-bath-2"] and rec["decision_rule"] == "simple"
+    assert [(r["id"], r["certificate"], r["due_on"]) for r in rec["references"]] == [
+        ("ref-bath-2", "BATH-2-CERT", "2036-01-05")] and rec["decision_rule"] == "simple"
     # never calibrated: no as-found indication, nothing to judge, the interval stays
     assert all(p["indicated"] is None and p["error"] is None and p["verdict"] == "not_applicable"
                for p in rec["as_found"])

@@ -185,12 +185,13 @@ def test_list_order_and_times_follow_the_pages_rule(api: Client, capsys: pytest.
     assert main(["channels", "list", "--prefix", "order."]) == 0
     out = capsys.readouterr()
     lines = out.out.splitlines()
-    assert lines[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "(UTC)"]
+    assert lines[0].split() == ["id", "drift", "tolerance", "samples", "rmse", "last", "sample", "(UTC)", "calibration",
+                                "due"]
     items = api.request("GET", "/v1/channels?prefix=order.")["items"]
     ids = [line.split()[0] for line in lines[1:]]
     assert ids == [c["id"] for c in display.fleet_order(items)] == ["order.c", "order.a-2", "order.a.1", "order.b"]
     row = next(line for line in lines if line.startswith("order.b"))
-    assert row.rstrip().endswith("2026-12-01 09:00:00")  # UTC, whole seconds: worked by hand
+    assert row.rstrip().endswith("2026-12-01 09:00:00  -")  # UTC, whole seconds: worked by hand; never calibrated
     assert "1 needing attention" in out.err
 
 

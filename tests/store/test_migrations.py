@@ -235,7 +235,7 @@ def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_even
     at = datetime(2026, 3, 1, 9, 30, tzinfo=UTC)
     engine = make_engine(empty_url)
     try:
-        migrate.upgrade(engine, "0005")
+        migrate.upgrade(engine, "0007")
         event_0005 = table("event", column("channel_pk"), column("kind"), column("version"), column("key_id"),
                            column("at", UTCDateTime), column("details", JSON))
         state_0005 = table("channel_state", column("channel_pk"), column("model_state", JSON), column("version"),
@@ -259,7 +259,7 @@ def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_even
         # 2026-03-01 + 365 d = 2027-03-01 (2026 is not a leap year); due soon 30 d before
         assert tuple(rows[0][1:]) == (at, date(2027, 3, 1), date(2027, 1, 30))
         assert tuple(rows[1][1:]) == (None, None, None)
-        _downgrade(engine, "0005")
+        _downgrade(engine, "0007")
         with engine.connect() as conn:
             assert conn.execute(select(Channel.config).where(Channel.pk == 1)).scalar_one() == old
     finally:

@@ -353,6 +353,10 @@ def test_calibration_history_shows_as_found_as_left_and_verdicts(tab: Tab, serve
         "id": cid, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
         "output": {"name": "temperature", "unit": "degC"}, "drift": {"tolerance": 0.5}})
     assert made.status_code == 201, made.text
+    ref = served.api.post("/v1/references", json={
+        "id": "ref-thermometer-7", "unit": "degC", "expanded_uncertainty": 0.03, "certificate": "T7-2024-118",
+        "calibrated_on": "2024-06-01", "due_on": "2031-06-01"})
+    assert ref.status_code == 201, ref.text
     xs = [0.0, 20.0, 40.0, 60.0, 80.0, 100.0]
     noise = [0.02, -0.03, 0.01, 0.03, -0.02, -0.01]
     now = datetime.now(UTC)
