@@ -18,7 +18,7 @@ import os
 import sqlite3
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING, NamedTuple
+from typing import TYPE_CHECKING, Any, NamedTuple
 
 from sqlalchemy.engine import URL, make_url
 from sqlalchemy.exc import SQLAlchemyError
@@ -126,6 +126,10 @@ def _refused(exc: NoStore) -> int:
     return 2
 
 
+def _iso(value: Any) -> str:
+    return str(value.isoformat())  # a datetime, as the service's JSON writes it
+
+
 def open_store(args: argparse.Namespace, command: str) -> Store | int:
     """The existing store the command names, opened; or, printed, why not (exit status 2):
     missing, not ours, or behind this version's schema (``SchemaError``)."""
@@ -213,13 +217,6 @@ def cmd_keys_revoke(args: argparse.Namespace) -> int:
         store.dispose()
     print_revoked(json.loads(json.dumps(key, default=_iso)))
     return 0
-
-
-def _iso(value: object) -> str:
-    """A datetime as the service's JSON writes it (ISO-8601)."""
-    if hasattr(value, "isoformat"):
-        return str(value.isoformat())
-    raise TypeError(f"{type(value).__name__} is not JSON")
 
 
 def cmd_db_upgrade(args: argparse.Namespace) -> int:

@@ -187,3 +187,9 @@ def test_replay_reads_the_archive_events(client: TestClient, keys: Keys, history
     ok(client.post(ARCHIVE, json={}, headers=h))
     ok(client.post(UNARCHIVE, json={}, headers=h))
     assert main(["replay", CH, "--check", "--quiet", "--db", database_url]) == 0
+
+
+def test_a_channel_is_never_deleted(client: TestClient, keys: Keys, history: dict[str, Any]) -> None:
+    """No route deletes a channel: archiving is the way to retire one."""
+    err = expect_error(client, "DELETE", BASE, 405, "method_not_allowed", headers=keys["admin"])
+    assert "method" in err["message"].lower()

@@ -58,6 +58,9 @@ REQUEST_CHECKS = [negative_data_rejection, missing_required_header, unsupported_
 KNOWN: dict[str, Any] = {"channel_id": "site-a.p1", "snapshot_id": 1}
 #: a channel in drift alarm, for the acknowledge cases alone (the first that passes clears it)
 ALARMED = "site-a.alarm"
+#: a live channel for the archive cases and an archived one for the unarchive cases (each's
+#: first valid case changes it; the others answer 409), so no other operation meets an archived channel
+TO_ARCHIVE, ARCHIVED = "site-a.live", "site-a.retired"
 CHANNEL_ID = re.compile(r"^[a-z0-9._-]{1,128}$")
 #: status codes each operation answered, to show that every one gave a body to check
 ANSWERED: dict[str, set[int]] = {}
@@ -85,6 +88,9 @@ def running_app() -> Iterator[None]:
         out = c.post(f"/v1/channels/{ALARMED}/samples", headers=AUTH,
                      json={"samples": [{"x": float(x), "y": 2.0 + 0.02 * x} for x in range(0, 100, 4)]}).json()
         assert out["drift"]["state"] == "alarm", out
+        for cid in (TO_ARCHIVE, ARCHIVED):
+            assert c.post("/v1/channels", json={**body, "id": cid}, headers=AUTH).status_code == 201
+        assert c.post(f"/v1/channels/{ARCHIVED}/archive", json={}, headers=AUTH).status_code == 200
         yield
 
 
@@ -98,7 +104,11 @@ def aim(case: Any) -> None:
         valid = (isinstance(value, str) and CHANNEL_ID.fullmatch(value) is not None) if name != "snapshot_id" \
             else isinstance(value, int) and not isinstance(value, bool) and -(2**31) <= value < 2**31
         if name in KNOWN and valid:
-            params[name] = ALARMED if name == "channel_id" and case.path.endswith("/acknowledge") else KNOWN[name]
+            params[name] = KNOWN[name]
+            if name == "channel_id":
+                params[name] = next((cid for end, cid in (("/acknowledge", ALARMED), ("/archive", TO_ARCHIVE),
+                                                          ("/unarchive", ARCHIVED)) if case.path.endswith(end)),
+                                    KNOWN[name])
 
 
 @schema.parametrize()
