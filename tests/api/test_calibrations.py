@@ -156,7 +156,10 @@ def test_a_first_calibration_has_no_as_found_and_its_as_left_is_the_fit(client: 
     assert max(p["U"] for p in left) == b["U"]
     assert math.sqrt(sum(r["contribution"] ** 2 for r in b["rows"])) == pytest.approx(b["u_combined"], rel=1e-12)
     assert b["U"] == pytest.approx(b["k"] * b["u_combined"], rel=1e-12)
-    assert [r["source"] for r in b["rows"]] == ["curve and scatter"] and b["rows"][0]["type"] == "A"
+    assert [(r["source"], r["type"]) for r in b["rows"]] == [("curve and scatter", "A"), ("reference", "B")]
+    # the reference instrument named: U 0.02 kPa with the default k = 2 gives u = 0.01 kPa (GUM 4.3.3)
+    assert rec["references"][0]["standard_uncertainty"] == pytest.approx(0.01, rel=1e-12)
+    assert b["rows"][1]["u"] == pytest.approx(0.01, rel=1e-12)
     pred = ok(client.post(f"/v1/channels/{CH}/predict", json={"x": [b["x"]]}, headers=keys["technician"]))
     assert (pred["u"][0], pred["U"][0], pred["k"][0], pred["dof"][0]) == pytest.approx(
         (b["u_combined"], b["U"], b["k"], b["dof_effective"]), rel=1e-12)
