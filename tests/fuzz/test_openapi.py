@@ -55,7 +55,7 @@ REQUEST_CHECKS = [negative_data_rejection, missing_required_header, unsupported_
 
 
 #: what the fixture made; valid path parameters are pointed at these (see ``aim``)
-KNOWN: dict[str, Any] = {"channel_id": "site-a.p1", "snapshot_id": 1}
+KNOWN: dict[str, Any] = {"channel_id": "site-a.p1", "snapshot_id": 1, "reference_id": "fuzz.ref"}
 #: a channel in drift alarm, for the acknowledge cases alone (the first that passes clears it)
 ALARMED = "site-a.alarm"
 #: a live channel for the archive cases and an archived one for the unarchive cases (each's
@@ -82,6 +82,9 @@ def running_app() -> Iterator[None]:
         assert c.post("/v1/channels/site-a.p1/calibrate", headers=AUTH, json={"points": [
             {"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 101.0}, {"x": 100.0, "y": 201.5}]}).status_code == 200
         KNOWN["kid"] = c.post("/v1/keys", headers=AUTH, json={"role": "device", "label": "fuzz"}).json()["id"]
+        assert c.post("/v1/references", headers=AUTH, json={
+            "id": KNOWN["reference_id"], "unit": "V", "expanded_uncertainty": 0.01, "certificate": "CERT-F",
+            "calibrated_on": "2026-01-05", "due_on": "2036-01-05"}).status_code == 201
         assert c.post("/v1/channels", json={**body, "id": ALARMED}, headers=AUTH).status_code == 201
         c.post(f"/v1/channels/{ALARMED}/calibrate", headers=AUTH,
                json={"points": [{"x": float(x), "y": 1.0 + 0.02 * x + 0.01 * (-1) ** x} for x in range(0, 101, 5)]})

@@ -18,6 +18,8 @@ def test_the_references_page_is_served_with_the_caution(client: TestClient) -> N
     r = client.get("/ui/references")
     assert r.status_code == 200 and r.headers["content-type"].startswith("text/html")
     assert "does not replace traceable, accredited" in r.text and "<script>" not in r.text
+    csp = r.headers["content-security-policy"]
+    assert "script-src 'self';" in csp and "unsafe-eval" not in csp and "http" not in csp
     assert client.get("/ui/static/references.js").status_code == 200
 
 

@@ -34,8 +34,7 @@ class SampleLike(Protocol):
     def t(self) -> datetime | None: ...
     @property
     def seq(self) -> int | None: ...
-    @property
-    def reference(self) -> str | None: ...
+    # and optionally ``reference``, the reference instrument's id (None or absent: none)
 
 
 @dataclass(frozen=True)
@@ -72,7 +71,7 @@ def _references(unit: Unit, samples: Sequence[SampleLike], keep: list[int], refe
     """Per kept sample, the reference instrument it names (its own, else the request's);
     None when none does. Raises when a named one is unknown or retired, or when the channel
     requires one and a sample names none."""
-    refs = [samples[i].reference or reference for i in keep]
+    refs: list[str | None] = [getattr(samples[i], "reference", None) or reference for i in keep]
     if required:
         missing = next((keep[k] for k, r in enumerate(refs) if r is None), None)
         if missing is not None:
