@@ -27,7 +27,7 @@ from curvekeeper.config import Settings
 from curvekeeper.kernels import PROCESS
 from curvekeeper.store import migrate
 from curvekeeper.store.engine import make_engine
-from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, Event, Sample, Snapshot
+from curvekeeper.store.tables import ApiKey, Base, Channel, ChannelState, CurveTrace, Event, Sample, Snapshot
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, make_url, select, text
 
@@ -169,7 +169,7 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
     with store.transaction(write=False) as repo:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
-                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey)}
+                  for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, CurveTrace)}
         states = {pk: (v, n, ms) for pk, v, n, ms in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state))}

@@ -35,6 +35,13 @@ def test_the_unweighted_line_is_scipys_linregress() -> None:
     assert tr.a == pytest.approx(ref.intercept, rel=1e-10)
     assert np.sqrt(tr.cov[1, 1]) == pytest.approx(ref.stderr, rel=1e-9)
     assert np.sqrt(tr.cov[0, 0]) == pytest.approx(ref.intercept_stderr, rel=1e-9)
+    # one more point at day 20 ahead: s sqrt(1 + 1/n + (x0 - mean)^2 / Sxx), the textbook
+    # prediction standard error of a straight line (Draper and Smith, quoted from memory)
+    res = d - (ref.intercept + ref.slope * tau)
+    s_ = np.sqrt(res @ res / 38)
+    x0 = 20.0
+    assert tr.band(x0) == pytest.approx(
+        s_ * np.sqrt(1 + 1 / 40 + (x0 - tau.mean()) ** 2 / ((tau - tau.mean()) ** 2).sum()), rel=1e-9)
 
 
 def test_the_weighted_line_is_numpys_polyfit_and_scipys_curve_fit() -> None:

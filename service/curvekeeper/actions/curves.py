@@ -162,6 +162,7 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
     after = repo.insert_snapshot(ch.pk, reason="calibration", label=label, config=ch.config, model_state=state,
                                  version=version, n_samples=st.n_samples)
     unit.save_model(st, model, version)
+    repo.clear_trace(ch.pk)  # the forecast's history starts afresh from the new reference curve
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
                          "details": {"label": label, **({"reason": reason} if reason else {}),
                                      "points": [[x, y] for x, y in points],

@@ -8,6 +8,7 @@ from typing import Any
 
 from ..errors import NothingToAcknowledge, ServiceUnchanged
 from .channels import load, view
+from .trace import of_channel
 from .unit import Unit
 
 
@@ -27,7 +28,7 @@ def acknowledge(unit: Unit, channel_id: str, note: str, key_id: str | None) -> d
     repo.insert_events([{"channel_pk": ch.pk, "kind": "acknowledged", "version": version, "key_id": key_id,
                          "details": {"note": note, "drift_state": state,
                                      "statistic": statistic if math.isfinite(statistic) else None}}])
-    return view(ch, st, model)
+    return view(ch, st, model, of_channel(repo, ch.pk, ch.config))
 
 
 def set_service(unit: Unit, channel_id: str, state: str, note: str, key_id: str | None) -> dict[str, Any]:
@@ -45,4 +46,4 @@ def set_service(unit: Unit, channel_id: str, state: str, note: str, key_id: str 
     unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "service_changed", "version": version, "key_id": key_id,
                          "details": {"from": was, "to": state, "note": note}}])
-    return view(ch, st, model)
+    return view(ch, st, model, of_channel(repo, ch.pk, ch.config))

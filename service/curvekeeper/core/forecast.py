@@ -12,8 +12,11 @@ adjustment of trend standard errors; common practice); r1 is first raised by its
 (1 + 3 r1) / n (Marriott and Pope's approximation, E[r1] = rho - (1 + 3 rho) / n), which
 short series otherwise leave too small. The interval's coverage is then approximate:
 close to nominal from about 40 points, below it for short, strongly correlated series. The crossing date is where the
-line meets the tolerance; its interval is where the line's confidence band (Student's t
-for ``coverage``) meets it (the inverse of the band, Fieller's interval for (T - a) / b).
+line meets the tolerance. The channel's own tolerance check trips on the difference it sees
+(the line plus the points' scatter), so the interval is where the line's prediction band
+meets the tolerance: the line's standard error and the scatter of one more point (the
+weighted residual variance at the newest point's u), Student's t for ``coverage`` (the
+inverse of the band, as Fieller's interval inverts a confidence band for (T - a) / b).
 """
 
 from __future__ import annotations
@@ -31,7 +34,7 @@ Array = NDArray[np.float64]
 
 METHOD = ("weighted least-squares line of the largest curve difference against measurement time; "
           "standard errors widened for lag-1 autocorrelation (AR(1) effective sample size); "
-          "interval where the line's {coverage:g} % confidence band meets the tolerance")
+          "interval where the line's {coverage:g} % prediction band meets the tolerance")
 HORIZON_DAYS = 365  # a crossing beyond this (and not plausible within it) is "not within N days"
 MIN_POINTS = 5  # fewer trace points give no forecast
 DAY_S = 86400.0
@@ -41,7 +44,8 @@ DAY_S = 86400.0
 class Trend:
     """d = a + b tau, tau in days from ``origin`` (POSIX seconds); ``cov`` (2, 2) of (a, b)
     after the autocorrelation widening; ``dof`` its degrees of freedom (n_eff - 2, at
-    least 1); ``r1`` the lag-1 autocorrelation used (bias-raised, clipped to [0, 0.99])."""
+    least 1); ``r1`` the lag-1 autocorrelation used (bias-raised, clipped to [0, 0.99]);
+    ``scatter`` the variance of one more point about the line (output units squared)."""
 
     a: float
     b: float
@@ -50,11 +54,13 @@ class Trend:
     n: int
     r1: float
     origin: float
+    scatter: float
 
     def band(self, tau: ArrayLike) -> Array:
-        """The line's standard error at tau (days from the origin), output units."""
+        """The standard error of one more point at tau (days from the origin): the line's
+        and the scatter's, output units."""
         t = np.asarray(tau, dtype=float)
-        v = self.cov[0, 0] + 2.0 * t * self.cov[0, 1] + t * t * self.cov[1, 1]
+        v = self.cov[0, 0] + self.scatter + 2.0 * t * self.cov[0, 1] + t * t * self.cov[1, 1]
         return np.asarray(np.sqrt(np.maximum(v, 0.0)))
 
 
@@ -82,7 +88,7 @@ def fit_trend(t: ArrayLike, d: ArrayLike, u: ArrayLike | None = None) -> Trend:
     n_eff = n * (1.0 - r1) / (1.0 + r1)
     dof = max(n_eff - 2.0, 1.0)
     cov *= (n - 2) / dof  # the residual variance over n_eff - 2 instead of n - 2
-    return Trend(float(coef[0]), float(coef[1]), cov, dof, n, r1, origin)
+    return Trend(float(coef[0]), float(coef[1]), cov, dof, n, r1, origin, s2 / float(w[np.argmax(ts)]))
 
 
 def _roots(trend: Trend, tolerance: float, q: float) -> list[float]:
@@ -91,7 +97,7 @@ def _roots(trend: Trend, tolerance: float, q: float) -> list[float]:
     a, b, c = trend.a, trend.b, trend.cov
     A = b * b - q * q * c[1, 1]
     B = b * (tolerance - a) + q * q * c[0, 1]
-    C = (tolerance - a) ** 2 - q * q * c[0, 0]
+    C = (tolerance - a) ** 2 - q * q * (c[0, 0] + trend.scatter)
     if abs(A) <= 1e-12 * max(b * b, q * q * c[1, 1], 1e-300):
         return [] if B == 0 else [C / (2.0 * B)]
     disc = B * B - A * C
@@ -108,7 +114,7 @@ def _covered(trend: Trend, tolerance: float, q: float, tau: float) -> bool:
 def crossing(trend: Trend, tolerance: float, coverage: float = 0.95) -> tuple[float | None, float | None,
                                                                             float | None]:
     """(point, low, high) in days from the trend's origin where the line meets ``tolerance``
-    and the ends of the interval where its confidence band does; None where there is none
+    and the ends of the interval where its prediction band does; None where there is none
     (no rising line: no point; an end the data do not bound). Without a rising line, low is
     the first day from the origin on which the band reaches the tolerance."""
     q = float(coverage_factor(trend.dof, coverage))

@@ -12,12 +12,12 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, bindparam, func, insert, select
+from sqlalchemy import Table, bindparam, delete, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
-from .tables import ApiKey, Channel, ChannelState, Event, Sample, Snapshot, utcnow
+from .tables import ApiKey, Channel, ChannelState, CurveTrace, Event, Sample, Snapshot, utcnow
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
                   "residual", "drift_statistic", "accepted", "reason")
@@ -314,6 +314,30 @@ class Repository:
         if after_pk is not None:
             stmt = stmt.where(Event.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
+
+    # curve trace (the forecast's history) --------------------------------------------
+    def last_trace_time(self, channel_pk: int) -> datetime | None:
+        """Measurement time of the channel's latest trace point, or None."""
+        return self.session.scalar(select(func.max(CurveTrace.t)).where(CurveTrace.channel_pk == channel_pk))
+
+    def insert_trace_point(self, channel_pk: int, *, t: datetime, difference: float, u: float | None,
+                           version: int) -> None:
+        self.session.add(CurveTrace(channel_pk=channel_pk, t=t, difference=difference, u=u, version=version))
+        self.session.flush()
+
+    def clear_trace(self, channel_pk: int) -> None:
+        self.session.execute(delete(CurveTrace).where(CurveTrace.channel_pk == channel_pk))
+
+    def traces(self, channel_pks: Sequence[int]) -> dict[int, list[tuple[datetime, float, float | None]]]:
+        """Each channel's trace points (t, difference, u), oldest first, in one query."""
+        out: dict[int, list[tuple[datetime, float, float | None]]] = {pk: [] for pk in channel_pks}
+        if not out:
+            return out
+        stmt = (select(CurveTrace.channel_pk, CurveTrace.t, CurveTrace.difference, CurveTrace.u)
+                .where(CurveTrace.channel_pk.in_(list(out))).order_by(CurveTrace.channel_pk, CurveTrace.t))
+        for pk, t, d, u in self.session.execute(stmt):
+            out[pk].append((t, d, u))
+        return out
 
     # keys -------------------------------------------------------------------------------
     def insert_key(self, key: ApiKey) -> None:
