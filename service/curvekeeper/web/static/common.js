@@ -91,6 +91,23 @@ const CK = (() => {
     return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });
   }
 
+  // the channel's forecast of when it leaves tolerance, in words (one owner: fleet and channel pages)
+  function forecastText(f, unit, long = false) {
+    if (!f) return "no forecast";
+    const rate = `drift ${num(f.rate, unit ? unit + "/day" : "/day", 2)}`;
+    if (f.not_within_days !== null) return `not within ${f.not_within_days} days (${rate})`;
+    const day = (iso) => (iso ? iso.slice(0, 10) : "not bounded");
+    const on = f.leaves_tolerance_on ? day(f.leaves_tolerance_on) : "not expected (no rising trend)";
+    const interval = f.low || f.high ? `interval ${day(f.low)} to ${day(f.high)}` : "interval not bounded by the data";
+    const text = `${on}, ${interval} (${rate})`;
+    return long ? `${text}; ${f.n_points} trace points; ${f.method}` : text;
+  }
+  // forecast date as a sort key: soonest first, no date last
+  function forecastKey(f) {
+    const iso = f && f.not_within_days === null ? (f.leaves_tolerance_on || f.low) : null;
+    return iso ? Date.parse(iso) : Infinity;
+  }
+
   function say(node, text, kind = "") {
     node.textContent = text;
     node.className = "message" + (kind ? " " + kind : "");
@@ -101,5 +118,6 @@ const CK = (() => {
     if (out) out.addEventListener("click", signOut);
   });
 
-  return { key, setKey, signOut, api, all, el, num, when, badge, say, plotText, ApiError };
+  return { key, setKey, signOut, api, all, el, num, when, badge, say, plotText, forecastText, forecastKey,
+           ApiError };
 })();

@@ -1,5 +1,6 @@
 "use strict";
-// attention first: a damaged state, an alarm, out of service, out of tolerance, a warning; then the rest
+// attention first: a damaged state, an alarm, out of service, out of tolerance, a warning; then the rest;
+// within each, the soonest forecast to leave tolerance first
 const REFRESH_MS = 30000;
 function rank(ch) {
   const d = ch.drift || {};
@@ -22,7 +23,7 @@ async function loadFleet() {
   if (state) q.set("state", state);
   summary.textContent = "Loading …";
   if (!tbody.children.length) {
-    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "7", text: "Loading the channels …" })));
+    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "8", text: "Loading the channels …" })));
   }
   let items;
   try {
@@ -31,7 +32,8 @@ async function loadFleet() {
     summary.textContent = `Could not load the channels: ${e.message}`;
     return;
   }
-  items.sort((a, b) => rank(a) - rank(b) || a.id.localeCompare(b.id));
+  const soon = (ch) => CK.forecastKey(ch.forecast);
+  items.sort((a, b) => rank(a) - rank(b) || (soon(a) - soon(b) || 0) || a.id.localeCompare(b.id));
   const { el, num } = CK;
   tbody.replaceChildren(...items.map((ch) => {
     const d = ch.drift || {};
@@ -46,6 +48,7 @@ async function loadFleet() {
       el("td", {}, el("a", { href: "/ui/channels/" + encodeURIComponent(ch.id), text: ch.id })),
       el("td", {}, ...drift),
       el("td", {}, tol),
+      el("td", {}, el("small", { class: "forecast", text: CK.forecastText(ch.forecast, unit) })),
       el("td", { text: CK.when(ch.last_sample_at) }),
       el("td", { class: "num", text: `${ch.n_samples}` + (ch.n_rejected ? ` (+${ch.n_rejected} held back)` : "") }),
       el("td", { class: "num", text: num(ch.rmse, unit, 3) }),
