@@ -1,7 +1,7 @@
 """The technician's commands: a client of a running service.
 
 ``curvekeeper channels list``, ``channels show``, ``curve``, ``snapshots list|take|diff``,
-``rollback``, ``calibrate``, ``samples export|load``. The service's address comes from
+``rollback``, ``calibrate``, ``report``, ``samples export|load``. The service's address comes from
 ``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
 environment variable ``CURVEKEEPER_KEY``, never from a flag, so it stays out of shell history
 and process lists.
@@ -20,6 +20,7 @@ from .commands import (
     channels_list,
     channels_show,
     curve,
+    report,
     rollback,
     samples_export,
     samples_load,
@@ -100,6 +101,12 @@ def add_commands(sub: Any) -> None:
     cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")
     cal.set_defaults(func=_runner(calibrate))
+
+    rp = sub.add_parser("report", parents=common, help="a calibration record's PDF report, into a file")
+    rp.add_argument("channel", help="the channel's id")
+    rp.add_argument("cal", nargs="?", help="the calibration record's id (default: the channel's latest)")
+    rp.add_argument("--out", required=True, help="the PDF file to write (replaced if it exists)")
+    rp.set_defaults(func=_runner(report))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")
     sa_sub = sa.add_subparsers(dest="samples_command", required=True)
