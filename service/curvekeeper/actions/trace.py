@@ -13,23 +13,28 @@ from ..core import ChannelModel
 from ..core.forecast import forecast
 from ..store import Repository
 
-#: at most one trace point per hour of measurement time: bounded storage (about 8,800 points
-#: a year between calibrations), and closer points add little but autocorrelation
+#: at most one trace point per hour of measurement time (closer points add little but
+#: autocorrelation), and per 1/TRACE_SPACING of the trace's age: the trace stays small (about
+#: 550 points after a year; its age grows the spacing once the trace is TRACE_SPACING hours old)
 TRACE_EVERY_S = 3600.0
+TRACE_SPACING = 100
 
 Point = tuple[datetime, float, float | None]
 
 
 def record(repo: Repository, channel_pk: int, model: ChannelModel, t: datetime, version: int) -> None:
     """After a batch is learnt: a trace point at the batch's latest measurement time ``t``
-    when the channel has a reference curve and the last point is ``TRACE_EVERY_S`` older
-    (samples older than the last point add none)."""
+    when the channel has a reference curve and the last point is older by ``TRACE_EVERY_S``
+    and by the trace's age over ``TRACE_SPACING`` (samples older than the last point add
+    none)."""
     found = model.reference_difference()
     if found is None:
         return
-    last = repo.last_trace_time(channel_pk)
-    if last is not None and (t - last).total_seconds() < TRACE_EVERY_S:
-        return
+    span = repo.trace_span(channel_pk)
+    if span is not None:
+        first, last = span
+        if (t - last).total_seconds() < max(TRACE_EVERY_S, (t - first).total_seconds() / TRACE_SPACING):
+            return
     difference, u = found
     repo.insert_trace_point(channel_pk, t=t, difference=difference, u=u, version=version)
 

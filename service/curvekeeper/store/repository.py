@@ -316,9 +316,11 @@ class Repository:
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     # curve trace (the forecast's history) --------------------------------------------
-    def last_trace_time(self, channel_pk: int) -> datetime | None:
-        """Measurement time of the channel's latest trace point, or None."""
-        return self.session.scalar(select(func.max(CurveTrace.t)).where(CurveTrace.channel_pk == channel_pk))
+    def trace_span(self, channel_pk: int) -> tuple[datetime, datetime] | None:
+        """Measurement times of the channel's first and latest trace points, or None."""
+        first, last = self.session.execute(select(func.min(CurveTrace.t), func.max(CurveTrace.t))
+                                           .where(CurveTrace.channel_pk == channel_pk)).one()
+        return None if first is None or last is None else (first, last)
 
     def insert_trace_point(self, channel_pk: int, *, t: datetime, difference: float, u: float | None,
                            version: int) -> None:

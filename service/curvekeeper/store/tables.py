@@ -169,7 +169,7 @@ class CurveTrace(Base):
     """A channel's curve against its reference curve since the last calibration, for the
     forecast: at measurement time ``t``, the largest |current - reference| curve difference
     over the input range and the curve's standard uncertainty ``u`` there (output units).
-    At most one point per ``actions.trace.TRACE_EVERY_S`` of measurement time; a calibration
+    Spaced by ``actions.trace.record`` (bounded per channel); a calibration
     (or a rollback that sets the reference) clears them."""
 
     __tablename__ = "curve_trace"

@@ -107,7 +107,8 @@ class Forecast(Answer):
     high: datetime | None = Field(description="latest date of the interval; null: not bounded by the data")
     rate: float = Field(description="the drift rate: change of the largest curve difference, output units per day")
     method: str = Field(description="how the line and its interval were found")
-    n_points: int = Field(description="trace points behind the line (at most one per hour of measurement time)")
+    n_points: int = Field(description="trace points behind the line (at most one per hour of measurement time, fewer "
+                                          "as the trace ages)")
     not_within_days: int | None = Field(description="set (and the dates null) when neither the line nor its band "
                                                     "reaches the tolerance within this many days of the last point")
 
