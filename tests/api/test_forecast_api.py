@@ -127,3 +127,10 @@ def test_the_trace_starts_afresh_at_a_calibration_and_needs_a_tolerance(client: 
         "points": [{"x": float(a), "y": float(b)} for a, b in zip(xc, truth(xc), strict=True)]}))
     assert trace(client, "cal.p1") == []
     assert ok(client.get("/v1/channels/cal.p1", headers=admin))["forecast"] is None
+    # a rollback that keeps the reference keeps the trace; one that sets it starts afresh
+    feed(client, admin, "cal.p1", rng, 3, RATE, per_day=2)
+    snap = ok(client.post("/v1/channels/cal.p1/snapshots", headers=admin, json={}), 201)["id"]
+    ok(client.post("/v1/channels/cal.p1/rollback", headers=admin, json={"snapshot": snap}))
+    assert len(trace(client, "cal.p1")) == 3
+    ok(client.post("/v1/channels/cal.p1/rollback", headers=admin, json={"snapshot": snap, "set_reference": True}))
+    assert trace(client, "cal.p1") == []
