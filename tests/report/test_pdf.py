@@ -4,6 +4,7 @@ y" on every page) and drawn with poppler's pdftoppm (one PNG per page)."""
 
 from __future__ import annotations
 
+import io
 import re
 import shutil
 import subprocess
@@ -134,3 +135,17 @@ def test_the_pages_render_with_pdftoppm(pdf: Path, tmp_path: Path) -> None:
     pngs = sorted(tmp_path.glob("page-*.png"))
     assert len(pngs) == n
     assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and p.stat().st_size > 2000 for p in pngs)
+
+
+def test_a_two_input_channel_and_a_sparse_record_render() -> None:
+    """x as [resistance, lead temperature]: the plots use the first input; parts the record
+    lacks print as '-' or '(none)', never fail."""
+    rows = [point([100.0 + i, 20.0], float(i), float(i) + 0.01, 0.3, "pass") for i in range(4)]
+    record = {"id": "c-1", "as_found": rows, "as_left": rows, "verdict": "pass", "decision_rule": "simple"}
+    channel = {"id": "two.c1", "inputs": [{"name": "r", "unit": "ohm", "min": 90, "max": 120},
+                                          {"name": "lead", "unit": "degC", "min": 0, "max": 40}],
+               "output": {"name": "t", "unit": "degC"}, "forecast": None}
+    reader = PdfReader(io.BytesIO(render_report(record, channel)))
+    text = flat(" ".join(p.extract_text() for p in reader.pages))
+    assert "101, 20" in text and "|error| <= tolerance" in text and "(none)" in text
+    assert f"page 1 of {len(reader.pages)}" in text
