@@ -33,6 +33,7 @@ from curvekeeper.store.tables import (
     CalibrationRecord,
     Channel,
     ChannelState,
+    CurveTrace,
     Event,
     ReferenceInstrument,
     Sample,
@@ -181,7 +182,7 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
                   for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument,
-                            CalibrationRecord)}
+                            CalibrationRecord, CurveTrace)}
         states = {pk: tuple(rest) for pk, *rest in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state, ChannelState.due_on, ChannelState.due_soon_on))}

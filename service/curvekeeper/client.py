@@ -109,8 +109,10 @@ class Client:
         hint = retry_after(response) if response is not None else None
         return wait if hint is None else max(wait, hint)
 
-    def request(self, method: str, path: str, *, json: Any = None, idempotent: bool = True) -> Any:
-        """Send a request with retries; the decoded JSON answer, or ``ClientError``."""
+    def request(self, method: str, path: str, *, json: Any = None, idempotent: bool = True,
+                raw: bool = False) -> Any:
+        """Send a request with retries; the decoded JSON answer (``raw``: the body's bytes, e.g.
+        a PDF), or ``ClientError``."""
         attempt = 0
         while True:
             response: httpx.Response | None = None
@@ -124,6 +126,8 @@ class Client:
                 failure = exc
             else:
                 if response.status_code < 400:
+                    if raw:
+                        return response.content
                     return response.json() if response.content else None
                 if response.status_code not in (429, 503):
                     raise _error(response)

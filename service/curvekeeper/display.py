@@ -5,15 +5,17 @@ line both follow. The pages hold the same two functions in ``web/static/common.j
 Times: UTC, ``YYYY-MM-DD HH:MM:SS`` (whole seconds, the fraction cut off, not rounded;
 no zone letter: the headings say UTC). A value that is no time is shown as it came.
 
-Channel order: attention first, then by id (plain character order, as the ids are
-lower-case letters, digits, ``.``, ``_`` and ``-``). Ranks: 0 a stored state that cannot
-be restored, 1 drift alarm, 2 out of service, 3 out of tolerance, 4 drift warning, 5 the
-rest, 6 archived (listed only when asked, after the live ones). Ranks below 5 need
-attention.
+Channel order: attention first; within a rank the soonest forecast to leave tolerance
+first (``forecast_key``), then by id (plain character order, as the ids are lower-case
+letters, digits, ``.``, ``_`` and ``-``). Ranks: 0 a stored state that cannot be
+restored, 1 drift alarm, 2 out of service, 3 out of tolerance, 4 drift warning, 5 a
+calibration overdue, 6 the rest, 7 archived (listed only when asked, after the live
+ones). Ranks below 6 need attention.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime
 from typing import Any
@@ -60,6 +62,18 @@ def rank(channel: Mapping[str, Any]) -> int:
     return ATTENTION
 
 
+def forecast_key(forecast: Mapping[str, Any] | None) -> float:
+    """When a channel is expected to leave tolerance, as a POSIX time for sorting (its
+    ``leaves_tolerance_on``, else the interval's ``low``); infinity when not foreseen."""
+    if not forecast or forecast.get("not_within_days") is not None:
+        return math.inf
+    day = forecast.get("leaves_tolerance_on") or forecast.get("low")
+    if not day:
+        return math.inf
+    t = datetime.fromisoformat(str(day))
+    return (t if t.tzinfo else t.replace(tzinfo=UTC)).timestamp()
+
+
 def fleet_order(channels: Iterable[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
-    """The channels as the fleet page lists them: by rank, then by id."""
-    return sorted(channels, key=lambda c: (rank(c), str(c["id"])))
+    """The channels as the fleet page lists them: by rank, the soonest forecast, then by id."""
+    return sorted(channels, key=lambda c: (rank(c), forecast_key(c.get("forecast")), str(c["id"])))

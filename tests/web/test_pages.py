@@ -210,6 +210,25 @@ def test_fleet_lists_channels_needing_attention_first_and_filters(tab: Tab, serv
     faulty = page.locator("#fleet-table tbody tr[data-channel='coldstore.produce.p2']")
     assert "out of service" in faulty.text_content()
     assert "updated" in page.text_content("#fleet-summary")
+    # each row's forecast column says what the API's forecast says; within the channels not
+    # needing attention, the soonest to leave tolerance come first (none: last)
+    by_id = {c["id"]: c for c in channels}
+    for i, cid in enumerate(ids):
+        f = by_id[cid]["forecast"]
+        cell = rows.nth(i).locator("small.forecast").text_content()
+        if f is None:
+            assert cell == "no forecast", (cid, cell)
+        elif f["not_within_days"] is not None:
+            assert cell.startswith(f"not within {f['not_within_days']} days"), (cid, cell)
+        else:
+            assert (f["leaves_tolerance_on"] or "not expected")[:10] in cell, (cid, cell)
+
+    def soon(cid: str) -> str:
+        f = by_id[cid]["forecast"]
+        return (f and f["not_within_days"] is None and (f["leaves_tolerance_on"] or f["low"])) or "9999"
+
+    rest = ids[len(attention):]
+    assert [soon(c) for c in rest] == sorted(soon(c) for c in rest)
     shot(page, "fleet.png")
 
     page.fill("#prefix", "coldstore.chill.")

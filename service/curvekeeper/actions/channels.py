@@ -26,6 +26,7 @@ from ..errors import (
 from ..store import Repository
 from ..store.tables import Channel, ChannelState
 from .paging import Page, decode_cursor, encode_cursor
+from .trace import of_channel, of_points
 from .unit import Unit, summary_columns
 
 #: the ``state`` filter of the list: the drift watch's states, the tolerance check's, and
@@ -79,8 +80,9 @@ def due(config: dict[str, Any], st: ChannelState, today: date | None = None) -> 
             "last_calibrated_at": st.last_calibrated_at}
 
 
-def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
-    """Config plus summary, as ``GET /v1/channels/{id}`` answers it."""
+def view(ch: Channel, st: ChannelState, model: ChannelModel, forecast: dict[str, Any] | None) -> dict[str, Any]:
+    """Config plus summary, as ``GET /v1/channels/{id}`` answers it, with the ``forecast``
+    of when it leaves tolerance (``trace.of_channel``)."""
     s = model.summary()
     out = dict(ch.config)
     out.update({
@@ -97,6 +99,7 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel) -> dict[str, Any]:
         "created_at": ch.created_at,
         "archived": ch.archived_at is not None,
         "archived_at": ch.archived_at,
+        "forecast": forecast,
     })
     out.update(due(ch.config, st))
     return out
@@ -128,13 +131,13 @@ def create(repo: Repository, body: NewChannel | dict[str, Any], key_id: str) -> 
         raise ChannelExists(f"channel {channel_id!r} exists already") from exc
     repo.insert_events([{"channel_pk": ch.pk, "kind": "channel_created", "version": 0, "key_id": key_id,
                          "details": {"config": config}}])
-    return {**view(ch, st, model), "warnings": warnings_for(config)}
+    return {**view(ch, st, model, None), "warnings": warnings_for(config)}
 
 
 def get(unit: Unit, channel_id: str) -> dict[str, Any]:
     repo = unit.repo
     ch, st = load(repo, channel_id)
-    return view(ch, st, unit.read_model(st))
+    return view(ch, st, unit.read_model(st), of_channel(repo, ch.pk, ch.config))
 
 
 def damaged_item(ch: Channel, st: ChannelState, error: StateDamaged) -> dict[str, Any]:
@@ -168,11 +171,12 @@ def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | No
     while True:
         rows = repo.list_channels(prefix=prefix, state=None if state == DAMAGED else state, after_pk=after,
                                   limit=limit + 1, archived=archived, due_state=due_state, today=today)
+        traces = repo.traces([ch.pk for ch, _ in rows])
         for ch, st in rows:
             if len(items) == limit and state is None:  # every row is listed: this one opens the next page
                 return Page(items, None if after is None else encode_cursor(after))
             try:
-                item = view(ch, st, unit.read_model(st))
+                item = view(ch, st, unit.read_model(st), of_points(traces[ch.pk], ch.config))
             except StateDamaged as exc:
                 item = damaged_item(ch, st, exc)
             if state is None or (item.get("state") == DAMAGED) == (state == DAMAGED):
@@ -217,7 +221,7 @@ def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> 
     refresh_due(repo, st, config, st.last_calibrated_at)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes, "config": config}}])
-    return view(ch, st, updated)
+    return view(ch, st, updated, of_channel(repo, ch.pk, config))
 
 
 def set_archived(repo: Repository, channel_id: str, archive: bool, note: str | None, key_id: str | None

@@ -193,6 +193,7 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
                                 body=record)
     latest = st.last_calibrated_at
     refresh_due(repo, st, ch.config, when if latest is None or when > latest else latest)
+    repo.clear_trace(ch.pk)  # the forecast's history starts afresh from the new reference curve
     repo.insert_events([{"channel_pk": ch.pk, "kind": "calibration", "version": version, "key_id": key_id,
                          "details": {"label": label, **({"reason": reason} if reason else {}), **used,
                                      "points": [[x, y] for x, y in points],

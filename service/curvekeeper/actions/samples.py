@@ -19,6 +19,7 @@ from ..store.tables import utcnow
 from .channels import load
 from .paging import Page, decode_cursor, encode_cursor
 from .references import check_named
+from .trace import record
 from .unit import Unit, item_cost
 
 
@@ -182,6 +183,8 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
         latest = max(times)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)
     unit.save_model(st, model, v0 + n_kept, **values)
+    if times:
+        record(repo, st.channel_pk, model, max(times), v0 + n_kept)
     per_request: list[float | None] = [None] * len(samples)
     for k, i in enumerate(keep):
         per_request[i] = resid_list[k]

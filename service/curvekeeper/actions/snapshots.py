@@ -13,6 +13,7 @@ from ..store import Repository
 from ..store.tables import Snapshot
 from .channels import load, refresh_due, view
 from .paging import Page, decode_cursor, encode_cursor
+from .trace import of_channel
 from .unit import Unit, restore
 
 
@@ -116,7 +117,9 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
     repo.insert_events([{"channel_pk": ch.pk, "kind": "rollback", "version": version, "key_id": key_id,
                          "details": {"snapshot": snapshot_id, "snapshot_before": before.pk,
                                      "set_reference": set_reference, **({"reason": reason} if reason else {})}}])
-    out = view(ch, st, model)
+    if set_reference:  # a new reference curve: the trace starts afresh, as after a calibration
+        repo.clear_trace(ch.pk)
+    out = view(ch, st, model, of_channel(repo, ch.pk, model.config))
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id
     out["reference_curve"] = "restored_snapshot" if set_reference else "kept"

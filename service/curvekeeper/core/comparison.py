@@ -3,10 +3,15 @@ tolerance check against the reference curve. Part of ``ChannelModel``."""
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 from numpy.typing import NDArray
 
 from .facts import ModelParts
+
+if TYPE_CHECKING:
+    from .prediction import Prediction
 
 Array = NDArray[np.float64]
 
@@ -18,6 +23,9 @@ class CurveComparison(ModelParts):
 
     _grid_x: Array | None
     _grid_phi: Array | None
+
+    if TYPE_CHECKING:  # given by ChannelModel
+        def prediction(self, X: Array) -> Prediction: ...
 
     def _grid(self) -> tuple[Array, Array]:
         """The standard grid, (g, d) raw inputs, and its basis (g, p), made once."""
@@ -53,6 +61,19 @@ class CurveComparison(ModelParts):
             return None, None, left_out
         i = int(np.argmax(np.where(finite, gap, -np.inf)))  # the first of equal largest
         return float(gap[i]), self._grid()[0][i].copy(), left_out
+
+    def reference_difference(self) -> tuple[float, float | None] | None:
+        """(largest |f_now - f_ref| over the input range, the current curve's standard
+        uncertainty u at that input), output units, by ``curve_difference`` against the
+        reference curve; u None when unknown; None without a reference curve or where no
+        grid point is finite in both curves."""
+        if self.s.w_ref is None:
+            return None
+        gap, x, _ = self.curve_difference(self.s.w_ref)
+        if gap is None or x is None:
+            return None
+        u = float(self.prediction(x.reshape(1, -1)).u[0])
+        return gap, u if np.isfinite(u) else None
 
     def _check_tolerance(self) -> None:
         self.s.tolerance_state, mcc = self._tolerance(self.s.w)

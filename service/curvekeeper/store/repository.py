@@ -12,7 +12,7 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, bindparam, func, insert, select, update
+from sqlalchemy import Table, bindparam, delete, func, insert, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, aliased, defer
 from sqlalchemy.orm.attributes import set_committed_value
@@ -22,6 +22,7 @@ from .tables import (
     CalibrationRecord,
     Channel,
     ChannelState,
+    CurveTrace,
     Event,
     ReferenceInstrument,
     Sample,
@@ -425,6 +426,32 @@ class Repository:
             setattr(ref, name, value)
         ref.updated_at = utcnow()
         self.session.flush()
+
+    # curve trace (the forecast's history) --------------------------------------------
+    def trace_span(self, channel_pk: int) -> tuple[datetime, datetime] | None:
+        """Measurement times of the channel's first and latest trace points, or None."""
+        first, last = self.session.execute(select(func.min(CurveTrace.t), func.max(CurveTrace.t))
+                                           .where(CurveTrace.channel_pk == channel_pk)).one()
+        return None if first is None or last is None else (first, last)
+
+    def insert_trace_point(self, channel_pk: int, *, t: datetime, difference: float, u: float | None,
+                           version: int) -> None:
+        self.session.add(CurveTrace(channel_pk=channel_pk, t=t, difference=difference, u=u, version=version))
+        self.session.flush()
+
+    def clear_trace(self, channel_pk: int) -> None:
+        self.session.execute(delete(CurveTrace).where(CurveTrace.channel_pk == channel_pk))
+
+    def traces(self, channel_pks: Sequence[int]) -> dict[int, list[tuple[datetime, float, float | None]]]:
+        """Each channel's trace points (t, difference, u), oldest first, in one query."""
+        out: dict[int, list[tuple[datetime, float, float | None]]] = {pk: [] for pk in channel_pks}
+        if not out:
+            return out
+        stmt = (select(CurveTrace.channel_pk, CurveTrace.t, CurveTrace.difference, CurveTrace.u)
+                .where(CurveTrace.channel_pk.in_(list(out))).order_by(CurveTrace.channel_pk, CurveTrace.t))
+        for pk, t, d, u in self.session.execute(stmt):
+            out[pk].append((t, d, u))
+        return out
 
     # keys -------------------------------------------------------------------------------
     def insert_key(self, key: ApiKey) -> None:

@@ -218,3 +218,21 @@ class ApiKey(Base):
     revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
     #: the last authenticated use, to the minute at best (written at most once a minute per key)
     last_used_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+
+
+class CurveTrace(Base):
+    """A channel's curve against its reference curve since the last calibration, for the
+    forecast: at measurement time ``t``, the largest |current - reference| curve difference
+    over the input range and the curve's standard uncertainty ``u`` there (output units).
+    Spaced by ``actions.trace.record`` (bounded per channel); a calibration
+    (or a rollback that sets the reference) clears them."""
+
+    __tablename__ = "curve_trace"
+    __table_args__ = (Index("ix_curve_trace_channel_t", "channel_pk", "t"),)
+
+    pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
+    channel_pk: Mapped[int] = mapped_column(ForeignKey("channel.pk", ondelete="CASCADE"))
+    t: Mapped[datetime] = mapped_column(UTCDateTime)
+    difference: Mapped[float] = mapped_column(Float)
+    u: Mapped[float | None] = mapped_column(Float, nullable=True)
+    version: Mapped[int] = mapped_column(BigInteger)

@@ -1,7 +1,7 @@
 """The technician's commands: a client of a running service.
 
 ``curvekeeper channels list|show|create|patch|archive|unarchive``, ``curve``,
-``snapshots list|take|diff``, ``rollback``, ``calibrate``, ``samples export|load``,
+``snapshots list|take|diff``, ``rollback``, ``calibrate``, ``report``, ``samples export|load``,
 ``references list|show|create|patch|retire``, and
 ``keys list|revoke`` (an admin key; with ``--db``, on the store directly). The service's address comes from
 ``--url`` (default ``$CURVEKEEPER_URL`` or http://127.0.0.1:8000); the key only from the
@@ -24,6 +24,7 @@ from .commands import (
     channels_list,
     channels_show,
     curve,
+    report,
     rollback,
     samples_export,
     samples_load,
@@ -132,6 +133,12 @@ def add_commands(sub: Any) -> None:
                      help="calibrate although the reference is overdue (recorded)")
     cal.add_argument("--dry-run", action="store_true", help="show the fit's as-found table and verdict, apply nothing")
     cal.set_defaults(func=_runner(calibrate))
+
+    rp = sub.add_parser("report", parents=common, help="a calibration record's PDF report, into a file")
+    rp.add_argument("channel", help="the channel's id")
+    rp.add_argument("cal", nargs="?", help="the calibration record's id (default: the channel's latest)")
+    rp.add_argument("--out", required=True, help="the PDF file to write (replaced if it exists)")
+    rp.set_defaults(func=_runner(report))
 
     sa = sub.add_parser("samples", help="export or bulk-load a channel's samples (service client)")
     sa_sub = sa.add_subparsers(dest="samples_command", required=True)

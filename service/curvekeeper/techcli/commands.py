@@ -16,6 +16,23 @@ from .common import CAUTION, EXPORT_FIELDS, LocalError, _confirm, _difference, _
 from .csvfiles import read_points
 
 
+def report(client: Client, args: argparse.Namespace) -> int:
+    """The PDF report of calibration record CAL (default: the channel's latest, by its time)."""
+    cal = args.cal
+    if cal is None:
+        records = list(_pages(client, f"/v1/channels/{args.channel}/calibrations"))
+        if not records:
+            raise LocalError(f"channel {args.channel} has no calibration records yet")
+        cal = max(records, key=lambda r: (str(r.get("at") or ""), str(r["id"])))["id"]
+    pdf = client.request("GET", f"/v1/channels/{args.channel}/calibrations/{cal}/report.pdf", raw=True)
+    if not isinstance(pdf, bytes) or not pdf.startswith(b"%PDF-"):
+        raise LocalError("the service's answer is not a PDF: is it a curvekeeper service?")
+    Path(args.out).write_bytes(pdf)
+    print(f"wrote {args.out}: the report of calibration {cal} of channel {args.channel} ({len(pdf)} bytes)")
+    print(CAUTION)
+    return 0
+
+
 def channels_list(client: Client, args: argparse.Namespace) -> int:
     items = list(_pages(client, "/v1/channels", prefix=args.prefix, state=args.state, archived=args.archived,
                         due_state=args.due))

@@ -36,6 +36,7 @@ from ...channel_config import (
     RequireReference,
     Text,
 )
+from .common import Answer
 
 ChannelCreate = NewChannel
 
@@ -105,6 +106,25 @@ ServiceState = Literal["in_service", "out_of_service"]
 DriftPublic = Annotated[PageHinkleyPublic | CusumPublic | EwmaPublic, Field(discriminator="detector")]
 
 
+class Forecast(Answer):
+    """When the channel is expected to leave tolerance, from a straight line through its
+    curve's largest difference from the reference curve over measurement time since the
+    last calibration (``method`` says how)."""
+
+    leaves_tolerance_on: datetime | None = Field(
+        description="where the line meets the tolerance; null: the line does not rise, or not within "
+                    "not_within_days")
+    low: datetime | None = Field(description="earliest date of the interval (where the line's prediction band "
+                                             "meets the tolerance); null: not bounded by the data")
+    high: datetime | None = Field(description="latest date of the interval; null: not bounded by the data")
+    rate: float = Field(description="the drift rate: change of the largest curve difference, output units per day")
+    method: str = Field(description="how the line and its interval were found")
+    n_points: int = Field(description="trace points behind the line (at most one per hour of measurement time, fewer "
+                                          "as the trace ages)")
+    not_within_days: int | None = Field(description="set (and the dates null) when neither the line nor its band "
+                                                    "reaches the tolerance within this many days of the last point")
+
+
 class ChannelPublic(ChannelConfig):
     """A channel: its configuration (defaults filled in) and its summary."""
 
@@ -128,6 +148,9 @@ class ChannelPublic(ChannelConfig):
     due_state: Literal["ok", "due_soon", "overdue"] | None = Field(
         description="today (UTC) against due_on: overdue after it, due_soon from due_soon_days before it; null: "
                     "never calibrated")
+    forecast: Forecast | None = Field(description="when the channel is expected to leave tolerance; null: no "
+                                                  "tolerance, or fewer than 5 trace points since the last "
+                                                  "calibration")
 
 
 class ChannelCreated(ChannelPublic):

@@ -57,6 +57,7 @@ function renderFacts() {
     ? [CK.badge(d.tolerance_state), ` curve moved ${num(d.max_curve_change, outUnit(), 3)} from the last calibration ` +
        `(tolerance ${num(d.tolerance, outUnit(), 3)})`]
     : ["no tolerance check set"]));
+  fact(dl, "forecast", CK.forecastText(ch.forecast, outUnit(), true));
   fact(dl, "samples", `${ch.n_samples} stored, ${ch.n_rejected} held back as outliers`);
   fact(dl, "rmse", num(ch.rmse, outUnit(), 3));
   fact(dl, "coverage factor", ch.coverage_factor === null || ch.coverage_factor === undefined

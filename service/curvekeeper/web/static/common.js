@@ -89,7 +89,8 @@ const CK = (() => {
 
   // channel order, shared with the command line (curvekeeper/display.py): attention first
   // (a damaged state, an alarm, out of service, out of tolerance, a warning, a calibration
-  // overdue), then the rest, then archived channels; within a rank by id, in plain character order
+  // overdue), then the rest, then archived channels; within a rank the soonest forecast to
+  // leave tolerance first, then by id, in plain character order
   const ATTENTION = 6;
   function rank(ch) {
     const d = ch.drift || {};
@@ -103,7 +104,8 @@ const CK = (() => {
     return ATTENTION;
   }
   function byRank(a, b) {
-    return rank(a) - rank(b) || (a.id < b.id ? -1 : a.id > b.id ? 1 : 0);
+    const soon = forecastKey(a.forecast) - forecastKey(b.forecast);
+    return rank(a) - rank(b) || (soon || 0) || (a.id < b.id ? -1 : a.id > b.id ? 1 : 0);
   }
 
   const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
@@ -112,6 +114,23 @@ const CK = (() => {
   function badge(state) {
     if (!state) return el("span", { class: "state state-none", text: "not checked" });
     return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });
+  }
+
+  // the channel's forecast of when it leaves tolerance, in words (one owner: fleet and channel pages)
+  function forecastText(f, unit, long = false) {
+    if (!f) return "no forecast";
+    const rate = `drift ${num(f.rate, unit ? unit + "/day" : "/day", 2)}`;
+    if (f.not_within_days !== null) return `not within ${f.not_within_days} days (${rate})`;
+    const day = (iso) => (iso ? iso.slice(0, 10) : "not bounded");
+    const on = f.leaves_tolerance_on ? day(f.leaves_tolerance_on) : "not expected (no rising trend)";
+    const interval = f.low || f.high ? `interval ${day(f.low)} to ${day(f.high)}` : "interval not bounded by the data";
+    const text = `${on}, ${interval} (${rate})`;
+    return long ? `${text}; ${f.n_points} trace points; ${f.method}` : text;
+  }
+  // forecast date as a sort key: soonest first, no date last
+  function forecastKey(f) {
+    const iso = f && f.not_within_days === null ? (f.leaves_tolerance_on || f.low) : null;
+    return iso ? Date.parse(iso) : Infinity;
   }
 
   function say(node, text, kind = "") {
@@ -124,5 +143,6 @@ const CK = (() => {
     if (out) out.addEventListener("click", signOut);
   });
 
-  return { key, setKey, signOut, api, all, el, num, when, rank, byRank, ATTENTION, badge, say, plotText, ApiError };
+  return { key, setKey, signOut, api, all, el, num, when, rank, byRank, ATTENTION, badge, say, plotText,
+           forecastText, forecastKey, ApiError };
 })();

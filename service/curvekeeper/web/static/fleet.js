@@ -1,6 +1,7 @@
 "use strict";
-// attention first, then the rest, then archived channels (only with "show archived"): the
-// order CK.rank gives, the same as the command line's
+// attention first, then the rest, then archived channels (only with "show archived"); within
+// each, the soonest forecast to leave tolerance first: the order CK.byRank gives, the same as
+// the command line's
 const REFRESH_MS = 30000;
 const { rank, ATTENTION } = CK;
 
@@ -18,7 +19,7 @@ async function loadFleet() {
   if (dueState) q.set("due_state", dueState);
   summary.textContent = "Loading …";
   if (!tbody.children.length) {
-    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "8", text: "Loading the channels …" })));
+    tbody.replaceChildren(CK.el("tr", { class: "loading" }, CK.el("td", { colspan: "9", text: "Loading the channels …" })));
   }
   let items;
   try {
@@ -46,6 +47,7 @@ async function loadFleet() {
       el("td", {}, tol),
       el("td", {}, ...(ch.due_on ? [CK.badge(ch.due_state), " ", el("small", { text: ch.due_on })]
                                : [el("span", { class: "state state-none", text: "never calibrated" })])),
+      el("td", {}, el("small", { class: "forecast", text: CK.forecastText(ch.forecast, unit) })),
       el("td", { text: CK.when(ch.last_sample_at) }),
       el("td", { class: "num", text: `${ch.n_samples}` + (ch.n_rejected ? ` (+${ch.n_rejected} held back)` : "") }),
       el("td", { class: "num", text: num(ch.rmse, unit, 3) }),
