@@ -32,7 +32,16 @@ def test_channels_come_attention_first_then_by_id_archived_last() -> None:
         {"id": "s", "drift": {"state": "ok"}, "service_state": "out_of_service"},
         {"id": "al", "drift": {"state": "alarm"}, "service_state": "out_of_service"},
         {"id": "dm", "state": "damaged"},
+        {"id": "od", "drift": {"state": "ok"}, "due_state": "overdue"},
+        # the soonest forecast to leave tolerance first within a rank; none foreseen last
+        {"id": "f2", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": "2027-05-01", "low": "2027-03-01",
+                                                            "not_within_days": None}},
+        {"id": "f1", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": "2027-04-30", "low": "2027-04-01",
+                                                            "not_within_days": None}},
+        {"id": "f0", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": None, "low": None,
+                                                            "not_within_days": 365}},
     ]
-    assert [c["id"] for c in display.fleet_order(chans)] == ["dm", "al", "s", "t", "w", "a-1", "a_2", "z.ok", "gone"]
-    assert [display.rank(c) for c in display.fleet_order(chans)] == [0, 1, 2, 3, 4, 5, 5, 5, 6]
-    assert sum(display.rank(c) < display.ATTENTION for c in chans) == 5
+    assert [c["id"] for c in display.fleet_order(chans)] == [
+        "dm", "al", "s", "t", "w", "od", "f1", "f2", "a-1", "a_2", "f0", "z.ok", "gone"]
+    assert [display.rank(c) for c in display.fleet_order(chans)] == [0, 1, 2, 3, 4, 5, 6, 6, 6, 6, 6, 6, 7]
+    assert sum(display.rank(c) < display.ATTENTION for c in chans) == 6
