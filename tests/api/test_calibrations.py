@@ -293,3 +293,31 @@ def test_a_fit_without_degrees_of_freedom_has_no_budget_and_no_guard_band(client
     assert rec["budget"]["rows"] == [] and rec["budget"]["U"] is None
     assert [p["U"] for p in rec["as_left"]] == [None, None]
     assert [p["verdict"] for p in rec["as_left"]] == ["conditional"] * 2 and rec["verdict"] == "conditional"
+
+
+# the report ------------------------------------------------------------------------
+
+
+def test_the_report_is_a_pdf_of_the_record(client: TestClient, keys: Keys, channel: Any) -> None:
+    """The PDF holds the record's numbers (read back with pypdf); an unknown record or
+    channel is 404 and a device key may not read it, with nothing changed."""
+    import io
+    import re
+
+    from pypdf import PdfReader
+
+    tech = keys["technician"]
+    out = calibrate(client, tech, conditions={"values": {"ambient_temperature": "21.0 degC"}, "note": "bench"})
+    rid = out["calibration"]
+    r = client.get(f"{RECORDS}/{rid}/report.pdf", headers=tech)
+    assert r.status_code == 200 and r.headers["content-type"] == "application/pdf"
+    assert f'filename="calibration-{CH}-{rid}.pdf"' in r.headers["content-disposition"]
+    reader = PdfReader(io.BytesIO(r.content))
+    text = re.sub(r"\s+", " ", " ".join(p.extract_text() for p in reader.pages))
+    n = len(reader.pages)
+    assert all(f"page {i} of {n}" in text.lower() for i in range(1, n + 1))
+    assert CH in text and "21.0 degC" in text and f"{out['record']['budget']['U']:.6g}" in text
+    expect_error(client, "GET", f"{RECORDS}/999/report.pdf", 404, "calibration_not_found", headers=tech)
+    expect_error(client, "GET", f"/v1/channels/site-a.none/calibrations/{rid}/report.pdf", 404, "channel_not_found",
+                 headers=tech)
+    expect_error(client, "GET", f"{RECORDS}/{rid}/report.pdf", 403, "forbidden", headers=keys["device"])

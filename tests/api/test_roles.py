@@ -71,6 +71,7 @@ MATRIX = [
     Row("POST",   f"{C}/calibrate",               POINTS,                     401, 401, 401, 403, 403, 200, 200),
     Row("GET",    f"{C}/calibrations",            None,                       401, 401, 401, 403, 403, 200, 200),
     Row("GET",    f"{C}/calibrations/{{record_id}}", None,                    401, 401, 401, 403, 403, 200, 200),
+    Row("GET",    f"{C}/calibrations/{{record_id}}/report.pdf", None,         401, 401, 401, 403, 403, 200, 200),
     Row("GET",    f"{C}/snapshots",               None,                       401, 401, 401, 403, 403, 200, 200),
     Row("POST",   f"{C}/snapshots",               {"label": "matrix"},        401, 401, 401, 403, 403, 201, 201),
     Row("GET",    f"{C}/snapshots/{{snapshot_id}}", None,                     401, 401, 401, 403, 403, 200, 200),

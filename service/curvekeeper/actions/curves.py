@@ -89,10 +89,9 @@ def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> 
     return out
 
 
-def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
-    repo = unit.repo
-    ch, st = load(repo, channel_id)
-    model = unit.read_model(st)
+def grid_points(model: ChannelModel, points: int) -> list[dict[str, Any]]:
+    """The curve on ``points`` grid points per input over the declared ranges: x, y, u, U, k,
+    and y -/+ U (null where y or U is)."""
     grid = model.scaler.grid(points)
     v = _values(model, grid)
     single = grid.shape[1] == 1
@@ -102,6 +101,14 @@ def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
         pts.append({"x": xi[0] if single else xi, "y": yi, "u": v["u"][i], "U": Ui, "k": v["k"][i],
                     "lower": None if yi is None or Ui is None else yi - Ui,
                     "upper": None if yi is None or Ui is None else yi + Ui})
+    return pts
+
+
+def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
+    repo = unit.repo
+    ch, st = load(repo, channel_id)
+    model = unit.read_model(st)
+    pts = grid_points(model, points)
     summary = model.summary()
     out: dict[str, Any] = {
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],

@@ -1,15 +1,16 @@
 """A calibration record's PDF report for a channel: the channel as its answer gives it
-(forecast included) and its curve with the expanded uncertainty, rendered by
-``curvekeeper.report``. The route and the command line fetch the record, then call this."""
+(forecast included) and the curve the calibration left, with its expanded uncertainty,
+rendered by ``curvekeeper.report``."""
 
 from __future__ import annotations
 
 import re
 from typing import Any
 
-from .channels import get
-from .curves import curve
-from .unit import Unit
+from . import calibrations
+from .channels import get, load
+from .curves import grid_points
+from .unit import Unit, restore
 
 CURVE_POINTS = 101  # grid points of the curve drawn with its k·u band
 
@@ -19,14 +20,19 @@ def filename(channel_id: str, record: dict[str, Any]) -> str:
     return re.sub(r"[^A-Za-z0-9._-]", "_", f"calibration-{channel_id}-{record.get('id', 'record')}.pdf")
 
 
-def calibration_report(unit: Unit, channel_id: str, record: dict[str, Any]) -> bytes:
-    """The PDF bytes of ``record`` (a calibration record of this channel, the shape of ``GET
-    .../calibrations/{cal}``) with the channel's answer and its current curve (x, y, U on a
-    grid; a one-input channel's curve only, the plots' x axis). Raises ``ChannelNotFound``."""
+def calibration_report(unit: Unit, channel_id: str, record_id: int) -> tuple[bytes, str]:
+    """The PDF bytes and a file name of calibration record ``record_id`` of this channel
+    with the channel's answer and the curve that calibration left (x, y, U on a grid, from
+    the snapshot it took; a one-input channel's only, the plots' x axis). Raises
+    ``ChannelNotFound``, ``CalibrationNotFound``."""
     from ..report import render_report  # matplotlib loads on the first report, not at start
 
+    record = calibrations.get(unit.repo, channel_id, record_id)
     channel = get(unit, channel_id)
     points = None
-    if len(channel["inputs"]) == 1 and channel["calibrated"]:
-        points = [{"x": p["x"], "y": p["y"], "U": p["U"]} for p in curve(unit, channel_id, CURVE_POINTS)["points"]]
-    return render_report(record, channel, curve=points)
+    ch, _ = load(unit.repo, channel_id)
+    snap = unit.repo.calibration_snapshot(ch.pk, record["version"])
+    if snap is not None and len(channel["inputs"]) == 1:
+        model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
+        points = [{"x": p["x"], "y": p["y"], "U": p["U"]} for p in grid_points(model, CURVE_POINTS)]
+    return render_report(record, channel, curve=points), filename(channel_id, record)

@@ -328,6 +328,12 @@ class Repository:
         return self.session.scalars(select(Snapshot).where(Snapshot.channel_pk == channel_pk,
                                                            Snapshot.pk == snapshot_pk)).one_or_none()
 
+    def calibration_snapshot(self, channel_pk: int, version: int) -> Snapshot | None:
+        """The snapshot a calibration took of the curve it left (reason "calibration", that version)."""
+        return self.session.scalars(select(Snapshot).where(
+            Snapshot.channel_pk == channel_pk, Snapshot.reason == "calibration", Snapshot.version == version)
+            .order_by(Snapshot.pk.desc()).limit(1)).one_or_none()
+
     def list_snapshots(self, channel_pk: int, *, after_pk: int | None, limit: int) -> Sequence[Snapshot]:
         stmt = select(Snapshot).where(Snapshot.channel_pk == channel_pk).order_by(Snapshot.pk).limit(limit)
         if after_pk is not None:

@@ -5,8 +5,9 @@ from __future__ import annotations
 from typing import Annotated
 
 from fastapi import APIRouter, Path
+from fastapi.responses import Response
 
-from ...actions import calibrations
+from ...actions import calibrations, report
 from ..deps import Ctx, Who
 from ..schemas.calibrations import CalibrationPage, CalibrationRecord, record_page
 from ..schemas.common import COMMON_ERRORS, error_responses
@@ -33,3 +34,15 @@ def get_record(channel_id: ChannelPath, record_id: RecordId, ctx: Ctx, who: Who)
     who.require_channel(channel_id, "technician")
     with ctx.work.unit(write=False) as unit:
         return CalibrationRecord.model_validate(calibrations.get(unit.repo, channel_id, record_id))
+
+
+@router.get("/{record_id}/report.pdf", summary="A calibration record's report, as PDF",
+            response_class=Response, responses={200: {
+                "content": {"application/pdf": {"schema": {"type": "string", "format": "binary"}}},
+                "description": "the report (PDF): a document, not JSON"}})
+def get_report(channel_id: ChannelPath, record_id: RecordId, ctx: Ctx, who: Who) -> Response:
+    who.require_channel(channel_id, "technician")
+    with ctx.work.unit(write=False) as unit:
+        pdf, name = report.calibration_report(unit, channel_id, record_id)
+    return Response(pdf, media_type="application/pdf",
+                    headers={"Content-Disposition": f'attachment; filename="{name}"'})
