@@ -29,7 +29,7 @@ def point(x: float, ref: float, ind: float, tol: float, verdict: str) -> dict[st
 RECORD: dict[str, Any] = {
     "id": 7,
     "at": "2026-11-20T09:41:00+00:00",
-    "by": "technician j. okafor (key k-17)",
+    "by": "bench technician 2 (key k-17)",
     "decision_rule": "guarded",
     "verdict": "conditional",
     "supersedes": 5,
@@ -99,7 +99,7 @@ def test_the_report_parses_and_holds_the_records_numbers(pdf: Path) -> None:
     for v in (ref["id"], ref["certificate"], ref["calibrated_on"], ref["due_on"], "0.025"):
         assert v in text
     for v in (CHANNEL["id"], "PX-3381", "resistance [ohm]", "temperature [°C]", "2026-11-20T09:41:00",
-              "j. okafor", "guard band w = U", "21.4 degC", "cable strain relief", "219", "2027-06-02"):
+              "bench technician 2", "guard band w = U", "21.4 degC", "cable strain relief", "219", "2027-06-02"):
         assert v in text, v
     assert ONLY_THE_ITEM in text and CAUTION in text
     assert "supersedes" in text.lower() and " 5 " in text
@@ -149,3 +149,14 @@ def test_a_two_input_channel_and_a_sparse_record_render() -> None:
     text = flat(" ".join(p.extract_text() for p in reader.pages))
     assert "101, 20" in text and "|error| <= tolerance" in text and "(none)" in text
     assert f"page 1 of {len(reader.pages)}" in text
+
+
+def test_a_calibration_against_an_overdue_reference_says_so() -> None:
+    """The record's reference carries ``overdue`` (its due date lay before the calibration's
+    day) when the person calibrated with ``allow_overdue_reference``: the report names it."""
+    refs = [{**RECORD["references"][0], "due_on": "2026-10-01", "overdue": True, "allow_overdue_reference": True}]
+    text = flat(" ".join(p.extract_text() for p in PdfReader(io.BytesIO(render_report(
+        {**RECORD, "references": refs}, CHANNEL))).pages))
+    assert "ref-prt-07) was past its due date" in text and "allow_overdue_reference" in text
+    plain = flat(" ".join(p.extract_text() for p in PdfReader(io.BytesIO(render_report(RECORD, CHANNEL))).pages))
+    assert "past its due date" not in plain

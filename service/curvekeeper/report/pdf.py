@@ -129,9 +129,10 @@ def render_report(record: dict[str, Any], channel: dict[str, Any], *,
                 ("decision rule", c.DECISION_RULES.get(str(record.get("decision_rule")),
                                                        str(record.get("decision_rule") or "-"))),
                 ("overall verdict", str(record.get("verdict") or "-").upper())])
-    if record.get("allow_overdue_reference"):
-        pdf.para("A reference standard was past its due date; the calibration was allowed by the person above "
-                 "(allow_overdue_reference).")
+    overdue = [str(r.get("id")) for r in record.get("references") or [] if isinstance(r, dict) and r.get("overdue")]
+    if overdue or record.get("allow_overdue_reference"):
+        pdf.para(f"A reference standard ({', '.join(overdue) or 'named below'}) was past its due date on the day "
+                 "of calibration; the person above chose to calibrate against it (allow_overdue_reference).")
 
     pdf.heading("As found (before adjustment)")
     pdf.grid(c.POINT_COLUMNS, c.point_rows(as_found))
