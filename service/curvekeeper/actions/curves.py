@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
+from ..core.scaling import box_grid
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
 from .channels import load
 from .unit import Unit, item_cost, restore
@@ -87,11 +88,17 @@ def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> 
     return out
 
 
-def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
+def curve(unit: Unit, channel_id: str, points: int, over: str = "input") -> dict[str, Any]:
+    """The curve at ``points`` points (per input, see ``box_grid``) over the declared input
+    range (``over="input"``) or the operating range (``"operating"``), with its summary."""
     repo = unit.repo
     ch, st = load(repo, channel_id)
     model = unit.read_model(st)
-    grid = model.scaler.grid(points)
+    if over == "operating":
+        lo, hi, _ = model.operating_range()
+        grid = box_grid(lo, hi, points)
+    else:
+        grid = model.scaler.grid(points)
     v = _values(model, grid)
     single = grid.shape[1] == 1
     pts = []
@@ -103,8 +110,9 @@ def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
     summary = model.summary()
     out: dict[str, Any] = {
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
-        "weights": model.weights.tolist(), "points": pts,
-        "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "quality": quality(model),
+        "weights": model.weights.tolist(), "over": over, "points": pts, "operating_range": summary["operating_range"],
+        "n_samples": st.n_samples, "rmse": summary["rmse"], "residual_sd": summary["residual_sd"],
+        "residual_sd_output": summary["residual_sd_output"], "drift": summary["drift"], "quality": quality(model),
         "version": st.version,
     }
     out.update(model.raw_coefficients())

@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel
-from ..core.config import MUTABLE
+from ..core.config import adopt_settings
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
@@ -86,7 +86,7 @@ def roll_back(current: ChannelModel, restored: ChannelModel, *, set_reference: b
     curve, drift watch and alarm, service state, counts), and under the settings the
     snapshot was taken under; with ``set_reference`` the restored curve becomes the
     reference. The replay of a rollback event calls this too."""
-    settings = {**current.config, **{k: restored.config[k] for k in MUTABLE if k in restored.config}}
+    settings = adopt_settings(current.config, restored.config)
     if settings != current.config:  # the watch fits the snapshot's detector, as a PATCH would leave it
         current = current.with_settings(settings)
     return current.take_curve(restored, set_reference=set_reference)

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from contextlib import nullcontext
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Query
 
@@ -54,12 +54,15 @@ async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who
 
 @router.get("/curve", summary="Coefficients and the curve sampled over the input range")
 def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
-          points: Annotated[int, Query(ge=2)] = 101) -> CurveAnswer:
+          points: Annotated[int, Query(ge=2)] = 101,
+          over: Annotated[Literal["input", "operating"], Query(
+              description="input: over each input's declared [min, max]; operating: over the operating range")]
+          = "input") -> CurveAnswer:
     who.require_channel(channel_id, "technician")
     if points > ctx.settings.max_curve_points:
         raise PayloadTooLarge(f"at most {ctx.settings.max_curve_points} points")
     with ctx.work.unit(write=False) as unit:
-        out = curves.curve(unit, channel_id, points)
+        out = curves.curve(unit, channel_id, points, over)
     return CurveAnswer.model_validate(out)
 
 
