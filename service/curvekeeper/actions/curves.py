@@ -10,6 +10,7 @@ import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
 from ..core.scaling import box_grid
+from ..csvpoints import CsvProblem, Points, read_points
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
 from .channels import load
 from .unit import Unit, item_cost, restore
@@ -119,17 +120,41 @@ def curve(unit: Unit, channel_id: str, points: int, over: str = "input") -> dict
     return out
 
 
+def _csv_points(csv: str | None, points: list[tuple[list[float], float]], d: int,
+                x_columns: list[str | int] | None, y_column: str | int | None, max_points: int) -> Points | None:
+    """The points of the csv text (None without one); ``InvalidRequest`` naming the line."""
+    if csv is None:
+        if x_columns is not None or y_column is not None:
+            raise InvalidRequest("x_columns and y_column choose columns of csv: give csv too",
+                                 details={"field": "x_columns" if x_columns is not None else "y_column"})
+        return None
+    if points:
+        raise InvalidRequest("give the points either as points or as csv, not both", details={"field": "csv"})
+    try:
+        read = read_points(csv, d, x_columns, y_column)
+    except CsvProblem as exc:
+        raise InvalidRequest(exc.message, details={"field": "csv", "line": exc.line}) from exc
+    if len(read.y) > max_points:
+        raise PayloadTooLarge(f"at most {max_points} points in one calibration; the csv holds {len(read.y)}")
+    return read
+
+
 def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], float]],
               include_history: bool, since: datetime | None, until: datetime | None, last: int | None,
               label: str | None, key_id: str | None, dry_run: bool = False,
-              reason: str | None = None) -> dict[str, Any]:
-    """Fit the points (and/or stored history) and make the fit the channel's curve; with
-    ``dry_run``, only report what the fit would be, changing nothing. ``reason`` (why, in a
-    person's words) goes into the event for the audit trail; replay does not read it."""
+              reason: str | None = None, csv: str | None = None, x_columns: list[str | int] | None = None,
+              y_column: str | int | None = None, max_points: int = HISTORY_LIMIT) -> dict[str, Any]:
+    """Fit the points (given, or read from ``csv`` text by ``csvpoints``, and/or stored
+    history) and make the fit the channel's curve; with ``dry_run``, only report what the
+    fit would be, changing nothing. ``reason`` (why, in a person's words) goes into the event
+    for the audit trail; replay does not read it."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
     model = unit.write_model(st)
     d = len(model.config["inputs"])
+    read = _csv_points(csv, points, d, x_columns, y_column, max_points)
+    if read is not None:
+        points = [(x, y) for x, y in zip(read.x, read.y, strict=True)]
     xs: list[list[float]] = []
     ys: list[float] = []
     for i, (x, y) in enumerate(points):
@@ -159,6 +184,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
         report = model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
     except (FitError, InputError) as exc:
         raise InvalidRequest(exc.message, details=exc.details) from exc
+    report["csv"] = None if read is None else {"x_columns": read.x_columns, "y_column": read.y_column,
+                                               "rows": len(read.y)}
     if dry_run:
         report.update({"snapshot_before": None, "snapshot_after": None, "version": st.version, "applied": False})
         return report

@@ -67,22 +67,10 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
 
 
 # curve ----------------------------------------------------------------------------------
-def _term_name(term: Any, basis: dict[str, Any], names: list[str]) -> str:
-    kind = basis.get("kind")
-    if kind == "log_poly":
-        return "1" if term == 0 else f"ln({names[0]})" if term == 1 else f"ln({names[0]})^{term}"
-    if isinstance(term, list):
-        parts = [n if e == 1 else f"{n}^{e}" for n, e in zip(names, term, strict=False) if e]
-        return "*".join(parts) or "1"
-    return str(term)
-
-
 def _coefficients(report: dict[str, Any], cfg: dict[str, Any]) -> list[list[str]]:
-    names = [i["name"] for i in cfg.get("inputs", [])]
-    basis = report.get("basis") or cfg.get("basis") or {}
-    if report.get("raw_coefficients") is not None:
-        terms, coef, sd = report.get("raw_terms") or [], report["raw_coefficients"], report.get("raw_coefficient_sd")
-        labels = [_term_name(t, basis, names) for t in terms] or [str(i) for i in range(len(coef))]
+    if report.get("raw_coefficients") is not None:  # the terms as the service names them
+        coef, sd = report["raw_coefficients"], report.get("raw_coefficient_sd")
+        labels = report.get("raw_term_names") or [str(i) for i in range(len(coef))]
     else:
         coef, sd = report.get("weights") or [], report.get("weight_sd")
         labels = [f"w{i}" for i in range(len(coef))]
@@ -168,35 +156,63 @@ def rollback(client: Client, args: argparse.Namespace) -> int:
 
 
 # calibrate ------------------------------------------------------------------------------
+def _columns(values: list[str] | None) -> list[str] | None:
+    """--x-col given once per column or as a comma-separated list."""
+    if not values:
+        return None
+    return [c.strip() for v in values for c in v.split(",") if c.strip()]
+
+
+def _fit_report(r: dict[str, Any], cfg: dict[str, Any]) -> None:
+    """The fit report as the service gives it; every figure in its unit."""
+    unit = _unit(cfg)
+    cols = r.get("csv")
+    if cols:
+        print(f"  read {cols['rows']} row(s): inputs from {', '.join(cols['x_columns'])}, reference from "
+              f"{cols['y_column']}")
+    coef = _coefficients(r, cfg)
+    if coef:
+        print(f"  coefficients of {_space(cfg)} (raw input units):")
+        _table(["term", "coefficient", "s.d."], [["  " + row[0], *row[1:]] for row in coef])
+    transformed = (cfg.get("output", {}).get("transform") or "none") != "none"
+    print(f"  rms residual          {_num(r.get('rmse_output'), 4)} {unit}")
+    print(f"  residual s.d.         {_num(r.get('residual_sd_output'), 4)} {unit}" +
+          (f" (in the fitted space {_num(r.get('residual_sd'), 4)} of {_space(cfg)})" if transformed else ""))
+    print(f"  R-squared             {_num(r.get('r_squared'), 8)}")
+    change = r.get("max_curve_change")
+    print(f"  largest curve change  {_num(change, 4)} {unit} over the operating range" if change is not None else
+          "  largest curve change  - (no earlier curve to compare)")
+
+
 def calibrate(client: Client, args: argparse.Namespace) -> int:
+    """Preview the fit (a dry run: nothing changes), show it with the caution, ask, apply."""
     cfg = client.get_channel(args.channel)
     path = Path(args.file)
-    points = read_points(path, len(cfg["inputs"]), with_time=False)
-    print(f"{args.channel}: fit {len(points)} point(s) from {path} by least squares; this replaces the "
-          f"current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples learned)")
-    print("  the current state is kept as a snapshot, so the calibration can be rolled back")
-    print(f"  {CAUTION}")
-    _confirm(f"Calibrate {args.channel} now?", args.yes)
-    body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
+    body: dict[str, Any] = {"csv": path.read_text(encoding="utf-8-sig")}
+    x_cols, y_col = _columns(args.x_col), args.y_col
+    if x_cols is not None:
+        body["x_columns"] = x_cols
+    if y_col is not None:
+        body["y_column"] = y_col
     if args.label is not None:
         body["label"] = args.label
     if args.reason is not None:
         body["reason"] = args.reason
-    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
-    unit = _unit(cfg)
-    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}")
-    coef = _coefficients(r, cfg)
-    if coef:
-        print(f"coefficients of {_space(cfg)} (raw input units):")
-        _table(["term", "coefficient", "s.d."], coef)
-    transformed = (cfg.get("output", {}).get("transform") or "none") != "none"
-    print(f"residual s.d.  {_num(r.get('residual_sd'), 4)}{' (fitted space)' if transformed else ' ' + unit}")
-    if r.get("rmse_output") is not None:
-        print(f"rms residual   {_num(r['rmse_output'], 4)} {unit}")
-    print(f"R-squared      {_num(r.get('r_squared'), 8)}")
-    change = r.get("max_curve_change")
-    print(f"largest curve change  {_num(change, 4)} {unit}" if change is not None else
-          "largest curve change  - (no earlier curve to compare)")
+    url = f"/v1/channels/{args.channel}/calibrate"
+    preview = client.request("POST", url, json={**body, "dry_run": True}, idempotent=True)
+    print(f"{args.channel}: least-squares fit of {preview.get('n')} point(s) from {path} (a preview: nothing "
+          f"has changed yet)")
+    _fit_report(preview, cfg)
+    print(f"applying it replaces the current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples "
+          "learned); the current state is kept as a snapshot, so the calibration can be rolled back")
+    print(f"  {CAUTION}")
+    _confirm(f"Calibrate {args.channel} now?", args.yes)
+    r = client.request("POST", url, json=body, idempotent=False)
+    print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}; snapshots before "
+          f"{r.get('snapshot_before')}, after {r.get('snapshot_after')}")
+    if r.get("max_curve_change") != preview.get("max_curve_change"):  # the curve moved meanwhile
+        print(f"  largest curve change  {_num(r.get('max_curve_change'), 4)} {_unit(cfg)} (the curve changed "
+              "since the preview)")
     print(f"undo with: curvekeeper rollback {args.channel} {r.get('snapshot_before')}")
     return 0
 

@@ -80,5 +80,6 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
         out = curves.calibrate(unit, channel_id, points=points,
                                include_history=body.include_history, since=body.since, until=body.until,
                                last=body.last, label=body.label, key_id=who.key_id, dry_run=body.dry_run,
-                               reason=body.reason)
+                               reason=body.reason, csv=body.csv, x_columns=body.x_columns, y_column=body.y_column,
+                               max_points=MAX_POINTS)
     return CalibrationAnswer.model_validate(out)

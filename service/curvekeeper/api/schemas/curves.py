@@ -35,6 +35,16 @@ class CalibrateIn(BaseModel):
          "include_history": False, "label": "bench check", "reason": "yearly check against the reference bath"}]})
 
     points: list[PointIn] = Field(default_factory=list, max_length=100_000)
+    csv: str | None = Field(None, min_length=1, description=(
+        "the points as CSV text instead of points (a file's contents, as the page and the command line send it): "
+        "lines starting with # are skipped; fields separated by ',', ';' or a tab; a first row that is not all "
+        "numbers is a header; columns by x_columns and y_column, by default the header's x (x1 ... xn) and y, "
+        "else the first columns in order, the inputs then the reference value"))
+    x_columns: list[str | int] | None = Field(None, min_length=1, max_length=8, description=(
+        "with csv: the input columns, one per input in the channel's order, by header name or position (1 = the "
+        "first column)"))
+    y_column: str | int | None = Field(None, description="with csv: the reference value's column, by header name "
+                                                         "or position")
     include_history: bool = False
     since: When | None = Field(None, description="with include_history: samples measured at or after")
     until: When | None = Field(None, description="with include_history: samples measured at or before")
@@ -170,9 +180,18 @@ class FitReport(Answer):
                                                        "output units; null where a curve has no finite value")
 
 
+class CsvColumns(Answer):
+    """What was read from the csv text."""
+
+    x_columns: list[str] = Field(description="the input columns, by header name (or 'column N' without a header)")
+    y_column: str = Field(description="the reference value's column")
+    rows: int = Field(description="data rows read")
+
+
 class CalibrationAnswer(RawCoefficients, FitReport):
     """The fit report; with dry_run, what the fit would be (``applied`` false)."""
 
+    csv: CsvColumns | None = Field(description="the columns read from the csv text; null: no csv was given")
     snapshot_before: int | None = Field(description="snapshot of the state before the fit; null on a dry run")
     snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")
     version: int
