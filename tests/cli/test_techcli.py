@@ -310,6 +310,12 @@ def test_calibrate_reads_what_the_page_reads(api: Client, tmp_path: Path,
     ch = api.get_channel(cid)
     assert f"{techcli.common._num(ch['residual_sd_output'], 4)} degC (in the fitted space" in sd
     assert cal["n"] == 6 and [p[0] for p in cal["points"]] == [[v] for v in r.tolist()]
+    assert main(["channels", "show", cid]) == 0
+    out = capsys.readouterr().out
+    assert f"residual s.d.    {techcli.common._num(ch['residual_sd_output'], 4)} degC (in the fitted space " in out
+    assert "operating range  raw [3600, 28000] (samples)" in out
+    assert main(["curve", cid, "--points", "2"]) == 0
+    assert f"residual s.d. {techcli.common._num(ch['residual_sd_output'], 4)} degC" in capsys.readouterr().out
     # no header at all: the first column the input, the second the reference
     plain = tmp_path / "plain.csv"
     plain.write_text("".join(f"{a},{b}\n" for a, b in zip(r, t, strict=True)))

@@ -51,6 +51,9 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
         ("learner", json.dumps(ch.get("learner"), sort_keys=True)),
         ("samples", f"{ch.get('n_samples', 0)} ({ch.get('n_rejected', 0)} held back)"),
         ("rmse", "-" if ch.get("rmse") is None else f"{_num(ch['rmse'], 4)} {_unit(ch)}"),
+        ("residual s.d.", _residual_sd(ch)),
+        ("operating range", "; ".join(f"{r['name']} [{_num(r['min'])}, {_num(r['max'])}] ({r['source']})"
+                                      for r in ch.get("operating_range") or [])),
         ("drift", f"{drift.get('state', '-')} ({drift.get('detector', '-')}, statistic "
                   f"{_num(drift.get('statistic'), 4)})"),
         ("tolerance", "-" if drift.get("tolerance") is None else
@@ -67,6 +70,16 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
 
 
 # curve ----------------------------------------------------------------------------------
+def _residual_sd(ch: dict[str, Any]) -> str:
+    """The residual s.d. in output units, with the fitted-space figure where it differs."""
+    if ch.get("residual_sd_output") is None:
+        return "-"
+    text = f"{_num(ch['residual_sd_output'], 4)} {_unit(ch)}".rstrip()
+    if (ch.get("output", {}).get("transform") or "none") != "none":
+        text += f" (in the fitted space {_num(ch.get('residual_sd'), 4)} of {_space(ch)})"
+    return text
+
+
 def _coefficients(report: dict[str, Any], cfg: dict[str, Any]) -> list[list[str]]:
     if report.get("raw_coefficients") is not None:  # the terms as the service names them
         coef, sd = report["raw_coefficients"], report.get("raw_coefficient_sd")
@@ -104,7 +117,8 @@ def curve(client: Client, args: argparse.Namespace) -> int:
                                              _num(p.get("k"), 3)])
     _table(heads, rows)
     print(f"\nU = k u; {c.get('n_samples')} samples, rmse "
-          f"{_num(c.get('rmse'), 4)} {unit}; drift {c.get('drift', {}).get('state')}; version {c.get('version')}")
+          f"{_num(c.get('rmse'), 4)} {unit}, residual s.d. {_residual_sd(c)}; drift {c.get('drift', {}).get('state')}; "
+          f"version {c.get('version')}")
     coef = _coefficients(c, c)
     if coef:
         kind = "power series" if c.get("poly_coefficients") is not None else str(c["basis"].get("kind"))
