@@ -94,6 +94,12 @@ def test_every_curve_difference_is_taken_over_the_operating_range(client: TestCl
     bumped = f"{CHANNELS}/{CID}/snapshots/{applied['snapshot_after']}"
     diff = ok(client.get(bumped, headers=tech))["curve_difference"]
     assert abs(diff["max"] - largest_bump(5.0, 0.0, 100.0)) < 1e-9 and diff["at"] == 100.0
+    # two snapshots, both taken while [10, 40] was declared: compared where the channel is used now
+    pair = ok(client.get(url, params={"against": applied["snapshot_after"]}, headers=tech))["curve_difference"]
+    assert abs(pair["max"] - largest_bump(5.0, 0.0, 100.0)) < 1e-9 and pair["against"] == applied["snapshot_after"]
+    patch_range(client, keys, [10.0, 40.0])
+    pair = ok(client.get(url, params={"against": applied["snapshot_after"]}, headers=tech))["curve_difference"]
+    assert abs(pair["max"]) < 1e-9
 
 
 def test_the_curve_over_the_operating_range_and_the_residual_sd_in_output_units(

@@ -37,16 +37,18 @@ def list_(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) 
                 encode_cursor(rows[limit - 1].pk) if len(rows) > limit else None)
 
 
-def difference(reference: ChannelModel, other: ChannelModel) -> dict[str, Any]:
-    """The largest difference between two curves over the reference's standard grid
-    (``ChannelModel.curve_difference``): ``max`` in output units, ``at`` the raw inputs
-    where it is (a number for one input, a list for several), ``grid_points``, and
-    ``left_out``, the points where either curve is not finite. ``max`` and ``at`` are
-    None when the curves cannot be compared (no common finite point, another basis)."""
-    grid_points = len(reference.curve_values(reference.weights))
-    if other.weights.shape != reference.weights.shape:
+def difference(current: ChannelModel, other: ChannelModel, base: ChannelModel | None = None) -> dict[str, Any]:
+    """The largest difference between ``other``'s curve and the current one (or ``base``'s)
+    over the channel's operating range now (``ChannelModel.curve_difference``): ``max`` in
+    output units, ``at`` the raw inputs where it is (a number for one input, a list for
+    several), ``grid_points``, and ``left_out``, the points where either curve is not
+    finite. ``max`` and ``at`` are None when the curves cannot be compared (no common
+    finite point, another basis)."""
+    grid_points = len(current.curve_values(current.weights))
+    against = current if base is None else base
+    if other.weights.shape != current.weights.shape or against.weights.shape != current.weights.shape:
         return {"max": None, "at": None, "grid_points": grid_points, "left_out": grid_points}
-    largest, at, left_out = reference.curve_difference(np.asarray(other.weights))
+    largest, at, left_out = current.curve_difference(np.asarray(other.weights), np.asarray(against.weights))
     where = None if at is None else (float(at[0]) if at.size == 1 else at.tolist())
     return {"max": largest, "at": where, "grid_points": grid_points, "left_out": left_out}
 
@@ -73,9 +75,8 @@ def get(unit: Unit, channel_id: str, snapshot_id: int, against: int | None = Non
         "drift": summary["drift"], "config": old.config,
         "max_difference_from_current": from_current["max"],
         "curve_difference": {"against": against, **(
-            from_current if against is None else difference(restore(snaps[against].config, snaps[against].model_state,
-                                                                   f"snapshot {against}"),
-                                                            old))},
+            from_current if against is None else difference(current, old, restore(
+                snaps[against].config, snaps[against].model_state, f"snapshot {against}")))},
     })
     out.update(old.raw_coefficients())
     return out

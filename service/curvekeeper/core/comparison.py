@@ -80,22 +80,24 @@ class CurveComparison(ModelParts):
         y, _ = self.transform.inverse(self._grid()[1] @ weights)
         return y
 
-    def _gap(self, weights: Array) -> Array:
-        """|f_now(x) - f_other(x)| on the grid (g,), output units (NaN where both curves
-        overflow alike)."""
+    def _gap(self, weights: Array, base: Array | None = None) -> Array:
+        """|f_base(x) - f_other(x)| on the grid (g,), output units, ``base`` the current
+        weights unless given (NaN where both curves overflow alike)."""
         with np.errstate(invalid="ignore"):
-            return np.abs(self.curve_values(self.s.w) - self.curve_values(weights))
+            return np.abs(self.curve_values(self.s.w if base is None else base) - self.curve_values(weights))
 
     def max_curve_difference(self, weights: Array) -> float:
         """Largest |f_now(x) - f_other(x)| over the operating range, output units (not
         finite when either curve is not finite somewhere on the grid)."""
         return float(np.max(self._gap(weights)))
 
-    def curve_difference(self, weights: Array) -> tuple[float | None, Array | None, int]:
+    def curve_difference(self, weights: Array, base: Array | None = None) -> tuple[float | None, Array | None, int]:
         """``max_curve_difference`` among the grid points where both curves are finite, with
         the raw inputs x (d,) where it is and how many grid points were left out as not
-        finite; ``(None, None, g)`` when no point is finite in both."""
-        gap = self._gap(weights)
+        finite; ``(None, None, g)`` when no point is finite in both. ``base``: compare with
+        these weights (of this model's basis, e.g. a snapshot's) instead of the current ones,
+        still over this model's operating range."""
+        gap = self._gap(weights, base)
         finite = np.isfinite(gap)
         left_out = int(gap.size - np.count_nonzero(finite))
         if left_out == gap.size:

@@ -76,7 +76,7 @@ def add_commands(sub: Any) -> None:
     st.add_argument("--label", help="what the snapshot is for (kept with it)")
     st.set_defaults(func=_runner(snapshots_take))
     sd = sn_sub.add_parser("diff", parents=common,
-                           help="largest difference between two snapshots' curves over the input range")
+                           help="largest difference between two snapshots' curves over the operating range")
     sd.add_argument("channel", help="the channel's id")
     sd.add_argument("a", type=int, metavar="SID_A", help="the first snapshot's id")
     sd.add_argument("b", type=int, metavar="SID_B", help="the second snapshot's id")
