@@ -201,7 +201,9 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
                          "details": {"label": label, **({"reason": reason} if reason else {}),
                                      "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],
-                                     "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
+                                     "residual_sd": report["residual_sd"],
+                                     "residual_sd_output": report["residual_sd_output"],
+                                     "r_squared": report["r_squared"],
                                      "max_curve_change": report["max_curve_change"],
                                      "snapshot_before": before.pk, "snapshot_after": after.pk}}])
     report.update({"snapshot_before": before.pk, "snapshot_after": after.pk, "version": version, "applied": True})

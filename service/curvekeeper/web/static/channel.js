@@ -209,7 +209,7 @@ function eventSummary(ev) {
     if (k === "config") { parts.push("configuration"); continue; }
     if (k === "measured_at") continue;  // shown as the event's time
     if (v === null || v === undefined) continue;
-    const unit = ["max_curve_change", "rmse_output", "tolerance"].includes(k) ? outUnit()
+    const unit = ["max_curve_change", "rmse_output", "tolerance", "residual_sd_output"].includes(k) ? outUnit()
       : k === "residual_sd" ? (fitted() ? "(fitted space)" : outUnit()) : "";
     let text = typeof v === "number" ? CK.num(v, unit, 4)
       : typeof v === "object" ? JSON.stringify(v) : String(v);
