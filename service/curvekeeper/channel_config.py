@@ -124,7 +124,7 @@ def _kind(key: str, default: str, kinds: tuple[str, ...]) -> BeforeValidator:
 # inputs and output -------------------------------------------------------------------
 OPERATING_RANGE = ("[lo, hi] where the sensor is used, inside [min, max], input units: the curve is compared "
                    "(tolerance check, curve changes, snapshot differences) and drawn there; null: the span of the "
-                   "inputs learned from (calibration points and samples), or [min, max] before any")
+                   "samples' inputs, before any sample that of the last calibration's points, else [min, max]")
 
 
 class InputSpec(Strict):

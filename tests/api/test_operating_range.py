@@ -67,7 +67,7 @@ def test_every_curve_difference_is_taken_over_the_operating_range(client: TestCl
     cal = f"{CHANNELS}/{CID}/calibrate"
     ok(client.post(cal, json={"points": bench(0.0)}, headers=tech))
     ch = ok(client.get(f"{CHANNELS}/{CID}", headers=tech))
-    assert ch["operating_range"][0]["source"] == "samples"  # the bench points' span, 0 to 100
+    assert ch["operating_range"][0]["source"] == "calibration"  # no sample yet: the bench points' span, 0 to 100
     # a calibration's change: the bump lies above x = 50, inside the span of the points
     preview = ok(client.post(cal, json={"points": bench(5.0), "dry_run": True}, headers=tech))
     assert abs(preview["max_curve_change"] - largest_bump(5.0, 0.0, 100.0)) < 1e-9
@@ -87,8 +87,8 @@ def test_every_curve_difference_is_taken_over_the_operating_range(client: TestCl
     ch = ok(client.get(f"{CHANNELS}/{CID}", headers=tech))
     assert ch["drift"]["tolerance_state"] == "ok" and abs(ch["drift"]["max_curve_change"]) < 1e-9
 
-    cleared = patch_range(client, keys, None)  # back to the span of what was learned: 0 to 100
-    assert cleared["operating_range"] == [{"name": "raw", "min": 0.0, "max": 100.0, "source": "samples"}]
+    cleared = patch_range(client, keys, None)  # back to the span of the bench points: 0 to 100
+    assert cleared["operating_range"] == [{"name": "raw", "min": 0.0, "max": 100.0, "source": "calibration"}]
     assert cleared["drift"]["tolerance_state"] == "out_of_tolerance"
     assert abs(cleared["drift"]["max_curve_change"] - largest_bump(5.0, 0.0, 100.0)) < 1e-9
     bumped = f"{CHANNELS}/{CID}/snapshots/{applied['snapshot_after']}"

@@ -313,7 +313,7 @@ def test_calibrate_reads_what_the_page_reads(api: Client, tmp_path: Path,
     assert main(["channels", "show", cid]) == 0
     out = capsys.readouterr().out
     assert f"residual s.d.    {techcli.common._num(ch['residual_sd_output'], 4)} degC (in the fitted space " in out
-    assert "operating range  raw [3600, 28000] (samples)" in out
+    assert "operating range  raw [3600, 28000] (calibration)" in out
     assert main(["curve", cid, "--points", "2"]) == 0
     assert f"residual s.d. {techcli.common._num(ch['residual_sd_output'], 4)} degC" in capsys.readouterr().out
     # no header at all: the first column the input, the second the reference

@@ -48,7 +48,7 @@ def test_a_curve_that_moved_only_outside_the_operating_range_is_within_tolerance
     assert checked.tolerance_state == "ok" and checked.max_curve_change == pytest.approx(0.0, abs=1e-12)
     # over the span of the calibration points (0 to 100) the same curve is 5 degC off at x = 100
     whole = retolerance(m, 0.5)
-    assert whole.operating_ranges() == [{"name": "raw", "min": 0.0, "max": 100.0, "source": "samples"}]
+    assert whole.operating_ranges() == [{"name": "raw", "min": 0.0, "max": 100.0, "source": "calibration"}]
     assert whole.tolerance_state == "out_of_tolerance"
     assert whole.max_curve_change == pytest.approx(5.0, rel=1e-12)
 
@@ -86,11 +86,13 @@ def test_the_largest_difference_matches_numpy_on_a_fine_grid() -> None:
     assert m.max_curve_difference(w_ref) == largest
 
 
-def test_the_span_grows_with_what_is_learned_and_stays_inside_the_range() -> None:
+def test_the_span_of_the_samples_grows_and_stays_inside_the_range() -> None:
     m = model_of({"inputs": [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0}],
                   "output": {"name": "t", "unit": "degC"}, "range_margin": 0.5})
-    assert m.operating_ranges()[0]["source"] == "input_range"  # nothing learned yet
-    m.learn([20.0, 30.0, 25.0], [20.0, 30.0, 25.0])
+    assert m.operating_ranges()[0]["source"] == "input_range"  # nothing known yet
+    m.fit_closed_form([0.0, 50.0, 100.0], [0.0, 50.0, 100.0])  # a bench calibration over the whole range
+    assert m.operating_ranges()[0] == {"name": "raw", "min": 0.0, "max": 100.0, "source": "calibration"}
+    m.learn([20.0, 30.0, 25.0], [20.0, 30.0, 25.0])  # in service: where the samples are
     assert m.operating_ranges()[0] == {"name": "raw", "min": 20.0, "max": 30.0, "source": "samples"}
     m.learn([1000.0], [1000.0])  # beyond the margin: held as out of range, not counted
     assert (m.operating_ranges()[0]["min"], m.operating_ranges()[0]["max"]) == (20.0, 30.0)
@@ -99,18 +101,24 @@ def test_the_span_grows_with_what_is_learned_and_stays_inside_the_range() -> Non
     m.set_service("out_of_service")
     m.learn([5.0], [5.0])  # out of service: still where the sensor is used
     assert m.operating_ranges()[0]["min"] == 5.0
+    m.fit_closed_form([40.0, 50.0, 60.0], [40.0, 50.0, 60.0])  # a later calibration: the samples' span stays
+    assert m.operating_ranges()[0] == {"name": "raw", "min": 5.0, "max": 100.0, "source": "samples"}
 
 
 def test_the_span_is_kept_in_the_state_and_an_older_state_compares_over_the_whole_range() -> None:
     m = model_of(hinge(1.0))
     m.fit_closed_form([10.0, 20.0, 40.0, 60.0], [1.0, 2.0, 3.0, 4.0])
+    m.learn([30.0, 35.0], [2.5, 2.7])
     state = m.to_state()
-    assert state["input_span"] == [[10.0], [60.0]]
+    assert state["calibration_span"] == [[10.0], [60.0]] and state["input_span"] == [[30.0], [35.0]]
     back = ChannelModel.from_state(m.config, state)
     assert back.operating_ranges() == m.operating_ranges()
-    old = {k: v for k, v in state.items() if k != "input_span"} | {"format": 3}
+    assert back.to_state() == state
+    old = {k: v for k, v in state.items() if k not in ("input_span", "calibration_span")} | {"format": 3}
     restored = ChannelModel.from_state(m.config, old)
-    assert restored.operating_ranges()[0] == {"name": "raw", "min": 0.0, "max": 100.0, "source": "samples"}
+    assert restored.operating_ranges()[0] == {"name": "raw", "min": 0.0, "max": 100.0, "source": "calibration"}
+    restored.learn([70.0], [4.5])  # the first sample since: where the sensor is used
+    assert restored.operating_ranges()[0] == {"name": "raw", "min": 70.0, "max": 70.0, "source": "samples"}
 
 
 def test_the_residual_sd_in_output_units_against_numpy() -> None:

@@ -386,7 +386,8 @@ def test_the_curve_is_drawn_over_the_operating_range_with_switches(tab: Tab, ser
     lo, hi = page.evaluate("document.getElementById('curve-plot').layout.xaxis.range")
     assert lo < op["min"] and hi > op["max"] and hi - lo < 1.1 * (op["max"] - op["min"])
     caption = page.text_content("#curve-caption")
-    assert "the operating range" in caption and "span of the inputs learned from" in caption
+    assert "the operating range" in caption and "the span of the samples" in caption
+    assert op["source"] == "samples"
     facts = page.text_content("#channel-facts")
     assert "operating range" in facts and f"{ch['residual_sd_output']:.3g} degC" in facts
     assert "fitted reciprocal space" in facts

@@ -4,11 +4,12 @@ Part of ``ChannelModel``.
 
 The operating range of an input is where the channel is used, so where its curves are
 compared: the declared ``operating_range`` [lo, hi] where the channel has one, else the
-span of the input values the model learned from (calibration points and samples not held
-back as out of range or not finite, kept inside [min, max]: ``ModelState.span``), else the
-whole declared range [min, max]. Every curve difference the service gives (the tolerance
-check and ``max_curve_change``, a calibration's change, snapshot differences) is the
-largest over ``CURVE_GRID`` points on that range; nothing else computes one.
+span of the samples' input values (those not held back as out of range or not finite,
+kept inside [min, max]: ``ModelState.span``), else, before any sample, the span of the
+last calibration's points (``ModelState.cal_span``), else the whole declared range.
+Every curve difference the service gives (the tolerance check and ``max_curve_change``, a
+calibration's change, snapshot differences) is the largest over ``CURVE_GRID`` points on
+that range; nothing else computes one.
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ Array = NDArray[np.float64]
 
 CURVE_GRID = 201  # points over the operating range for curve comparisons (per axis: see box_grid)
 #: where an input's operating range comes from
-SOURCES = ("declared", "samples", "input_range")
+SOURCES = ("declared", "samples", "calibration", "input_range")
 
 
 class CurveComparison(ModelParts):
@@ -40,17 +41,17 @@ class CurveComparison(ModelParts):
 
     def operating_range(self) -> tuple[Array, Array, list[str]]:
         """(lo (d,), hi (d,), source per input): each input's operating range in input
-        units, and whether it was ``declared``, comes from the ``samples`` learned from, or
-        is the whole ``input_range`` (neither known)."""
+        units, and whether it was ``declared``, is the span of the ``samples``, of the last
+        ``calibration``'s points (no sample yet), or the whole ``input_range`` (none known)."""
         lo, hi = self.scaler.lo.copy(), self.scaler.hi.copy()
         source = ["input_range"] * len(lo)
-        span = self.s.span
+        span, which = (self.s.span, "samples") if self.s.span is not None else (self.s.cal_span, "calibration")
         for j, spec in enumerate(self.config["inputs"]):
             declared = spec.get("operating_range")
             if declared is not None:
                 lo[j], hi[j], source[j] = float(declared[0]), float(declared[1]), "declared"
             elif span is not None:
-                lo[j], hi[j], source[j] = span[0, j], span[1, j], "samples"
+                lo[j], hi[j], source[j] = span[0, j], span[1, j], which
         return lo, hi, source
 
     def _grid(self) -> tuple[Array, Array]:
@@ -64,9 +65,8 @@ class CurveComparison(ModelParts):
             self._grid_key = key
         return self._grid_x, self._grid_phi
 
-    def _widened(self, X: Array) -> Array | None:
-        """The span (2, d) widened by the inputs X (n, d), each clipped to its declared range."""
-        span = self.s.span
+    def _widened(self, X: Array, span: Array | None) -> Array | None:
+        """``span`` (2, d) widened by the inputs X (n, d), each clipped to its declared range."""
         if X.shape[0] == 0:
             return None if span is None else span.copy()
         Xc = np.clip(X, self.scaler.lo, self.scaler.hi)

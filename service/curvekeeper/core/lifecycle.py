@@ -49,7 +49,7 @@ class Lifecycle(ModelParts):
         def _samples(self, X: Any, y: Any) -> tuple[Array, Array]: ...
         def _bound_trace(self) -> None: ...
         def _check_tolerance(self) -> None: ...
-        def _widened(self, X: Array) -> Array | None: ...
+        def _widened(self, X: Array, span: Array | None) -> Array | None: ...
         def output_sd(self, sd: float | None) -> float | None: ...
 
     def fit_closed_form(self, X: Any, y: Any) -> dict[str, Any]:
@@ -62,7 +62,7 @@ class Lifecycle(ModelParts):
         fit = fit_least_squares(Phi, z, has_intercept=self.basis.has_intercept)
         old = self.s.w.copy()
         s = self.s
-        s.span = self._widened(Xa)
+        s.cal_span = self._widened(Xa, None)
         s.w = fit.weights.copy()
         s.w_ref = fit.weights.copy()
         s.cov = fit.cov_unscaled.copy()
@@ -165,7 +165,9 @@ class Lifecycle(ModelParts):
         s = self.s
         state.n_samples = s.n_samples
         state.service = s.service
-        state.span = None if s.span is None else s.span.copy()  # where the channel was used stays known
+        # where the channel was used, and its last calibration's points, stay known
+        state.span = None if s.span is None else s.span.copy()
+        state.cal_span = None if s.cal_span is None else s.cal_span.copy()
         state.ds, state.change_w = s.ds.copy(), np.stack([state.w, state.w])
         for k in (ST_EN, ST_EMEAN, ST_EVAR, ST_FVAR, ST_FDOF, ST_ACC, ST_REJ, ST_GUARD, ST_HELD):
             state.st[k] = s.st[k]

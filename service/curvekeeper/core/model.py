@@ -141,9 +141,9 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
         if config["learner"]["kind"] == "rls" and model.s.st[ST_TRMAX] == 0.0:
             model._bound_trace()  # a state from before the bound
         if state.get("format", 0) < 4 and model.calibrated:
-            # a state from before the span was kept: its inputs are not known, so the curve
-            # is compared where it was before, over the whole declared range
-            model.s.span = np.stack([model.scaler.lo, model.scaler.hi])
+            # a state from before the spans were kept: until samples come, the curve is
+            # compared where it was before, over the whole declared range
+            model.s.cal_span = np.stack([model.scaler.lo, model.scaler.hi])
         return model
 
     def copy(self) -> ChannelModel:
@@ -283,16 +283,16 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
         if alarm_at >= 0:
             snap = ModelState(w, None if s.w_ref is None else s.w_ref.copy(), None if s.cov is None else P, st, ds,
                               before_n + alarm_at, before_tol, s.max_curve_change, np.stack([w, w]),
-                              None, s.service, s.span)
+                              None, s.service, s.span, s.cal_span)
             if alarm_at > 0:  # the state as learning the samples before the alarm alone leaves it
-                span, s.span = s.span, self._widened(Xa[:alarm_at][seen[:alarm_at]])
+                span, s.span = s.span, self._widened(Xa[:alarm_at][seen[:alarm_at]], s.span)
                 snap.span = s.span
                 snap.tolerance_state, mcc = self._tolerance(w)
                 if snap.tolerance_state is not None:
                     snap.max_curve_change = mcc
                 s.span = span
             before_alarm = snap.to_dict()
-        s.span = self._widened(Xa[seen])
+        s.span = self._widened(Xa[seen], s.span)
         s.n_samples += n
         events: list[dict[str, Any]] = []
         prev = before_state

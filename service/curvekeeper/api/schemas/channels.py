@@ -84,11 +84,11 @@ class OperatingRange(BaseModel):
     name: str = Field(description="the input's name")
     min: float = Field(description="input units")
     max: float = Field(description="input units")
-    source: Literal["declared", "samples", "input_range"] = Field(
-        description="declared: the input's operating_range setting; samples: the span of the inputs learned from "
-                    "(calibration points and samples not held back as out of range, within [min, max]); "
-                    "input_range: the whole declared [min, max] (nothing learned yet, or a channel older than the "
-                    "span's record)")
+    source: Literal["declared", "samples", "calibration", "input_range"] = Field(
+        description="declared: the input's operating_range setting; samples: the span of the samples' inputs (those "
+                    "not held back as out of range, within [min, max]); calibration: no sample yet, the span of the "
+                    "last calibration's points (for a channel from before the spans were kept: [min, max]); "
+                    "input_range: the whole declared [min, max], nothing known yet")
 
 
 class DriftStatus(BaseModel):

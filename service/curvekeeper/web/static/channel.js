@@ -3,8 +3,9 @@
 // roll back), bench calibration from pasted CSV, events.
 const RECENT = 400;        // reference samples drawn on the plots
 const GRID = 201;          // points of the curve over the operating range (or the whole input range)
-const SOURCES = { declared: "declared", samples: "the span of the inputs learned from",
-                  input_range: "nothing learned yet: the whole input range" };
+const SOURCES = { declared: "declared", samples: "the span of the samples",
+                  calibration: "no sample yet: the span of the last calibration's points",
+                  input_range: "nothing known yet: the whole input range" };
 const COLOURS = { curve: "#2c4d38", band: "rgba(63,107,79,0.18)", accepted: "#3b7ea1", rejected: "#a33a22",
                   overlay: "#6d3f74" };
 
