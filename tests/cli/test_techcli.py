@@ -380,6 +380,12 @@ def test_load_refuses_bad_rows_and_reports_the_service_message(api: Client, tmp_
     assert api.get_channel(cid)["n_samples"] == 1
     assert main(["samples", "load", "no.channel", str(huge)]) == 1
     assert "404" in capsys.readouterr().err
+    # the calibrate route's reader: comment lines, ';' between fields, a header of other names
+    noted = tmp_path / "noted.csv"
+    noted.write_text("# logger 7\nreading_mV;kPa;t\n3;4;2026-12-01T12:00:00Z\n")
+    assert main(["samples", "load", cid, str(noted)]) == 0
+    assert "1 accepted" in capsys.readouterr().out
+    assert [(s["x"], s["y"], s["t"]) for s in all_samples(api, cid)][-1] == ([3.0], 4.0, "2026-12-01T12:00:00Z")
 
 
 def test_two_input_channel(api: Client, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

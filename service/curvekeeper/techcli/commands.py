@@ -12,7 +12,7 @@ from urllib.parse import urlencode
 from ..client import Client, ClientError
 from ..csvcells import TextSafeWriter
 from .common import CAUTION, EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
-from .csvfiles import read_points
+from .csvfiles import read_samples
 
 
 def channels_list(client: Client, args: argparse.Namespace) -> int:
@@ -275,7 +275,7 @@ def samples_load(client: Client, args: argparse.Namespace) -> int:
     path = Path(args.file)
     source = args.source or f"csv:{path.name}"[:128]
     cfg = client.get_channel(args.channel)
-    rows = read_points(path, len(cfg["inputs"]), with_time=True)
+    rows = read_samples(path, len(cfg["inputs"]), with_time=True)
     accepted = duplicates = rejected = done = 0
     try:
         with tqdm(total=len(rows), unit="sample", desc=args.channel, disable=None, file=sys.stderr) as bar:

@@ -12,7 +12,7 @@ from ..csvpoints import read_points as read_csv_points
 from .common import LocalError
 
 
-def read_points(path: Path, n_inputs: int, *, with_time: bool) -> list[dict[str, Any]]:
+def read_samples(path: Path, n_inputs: int, *, with_time: bool) -> list[dict[str, Any]]:
     """Rows of a CSV file read by the service's reader (``curvekeeper.csvpoints``: comment
     lines, ',' ';' or tab, a header's x / x1 ... xn and y, else the first columns), with a
     ``t`` column (ISO-8601 with a time zone) when ``with_time`` and the header has one.
