@@ -124,6 +124,11 @@ def _kind(key: str, default: str, kinds: tuple[str, ...]) -> BeforeValidator:
 
 
 # inputs and output -------------------------------------------------------------------
+OPERATING_RANGE = ("[lo, hi] where the sensor is used, inside [min, max], input units: the curve is compared "
+                   "(tolerance check, curve changes, snapshot differences) and drawn there; null: the span of the "
+                   "samples' inputs, before any sample that of the last calibration's points, else [min, max]")
+
+
 class InputSpec(Strict):
     """One raw input and its declared range [min, max] in its own unit."""
 
@@ -134,11 +139,21 @@ class InputSpec(Strict):
     max: Finite
     resolution: Positive | None = Field(default=None, description="smallest step the device reports "
                                         "(display digit or ADC step), input units; null: not stated")
+    operating_range: Annotated[list[Finite], Field(min_length=2, max_length=2)] | None = Field(
+        default=None, description=OPERATING_RANGE)
 
     @model_validator(mode="after")
     def _range(self) -> InputSpec:
         if not self.max > self.min:
             raise rule((), f"min must be less than max ({self.min:g} >= {self.max:g})", self.min)
+        if self.operating_range is not None:
+            lo, hi = self.operating_range
+            if not hi > lo:
+                raise rule(("operating_range",), f"must be [lo, hi] with lo < hi ({lo:g} >= {hi:g})",
+                           self.operating_range)
+            if lo < self.min or hi > self.max:
+                raise rule(("operating_range",), f"must lie inside the input range [{self.min:g}, {self.max:g}]",
+                           self.operating_range)
         span = self.max - self.min
         if not (math.isfinite(span) and math.isfinite(2.0 / span)):
             # the scaling to [-1, 1] divides by the span: it and its inverse must be finite numbers

@@ -297,7 +297,8 @@ def test_create_fills_in_the_design_defaults(client: TestClient, keys: Keys) -> 
     assert r.status_code == 201, r.text
     ch = r.json()
     assert ch["id"] == "site-a.p1"
-    assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0, "resolution": None}]
+    assert ch["inputs"] == [{"name": "raw", "unit": "mV", "min": 0.0, "max": 100.0, "resolution": None,
+                             "operating_range": None}]
     # the contract's defaults when a field is left out
     assert ch["basis"]["kind"] == "poly" and ch["basis"]["degree"] == 1
     assert ch["learner"]["kind"] == "sgd"
@@ -331,7 +332,8 @@ def test_create_the_design_example(client: TestClient, keys: Keys) -> None:
     ch = r.json()
     assert ch["id"] == "coldroom2.probe07"
     assert ch["description"] == "thermistor probe, rack 2"
-    assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0, "resolution": 0.1}]
+    assert ch["inputs"] == [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0, "resolution": 0.1,
+                             "operating_range": None}]
     assert ch["reference"] == {"expanded_uncertainty": 0.02, "coverage_factor": 2.0, "distribution": "normal",
                                "instrument": None}
     assert ch["output"] == {"name": "temperature", "unit": "degC", "transform": "reciprocal",

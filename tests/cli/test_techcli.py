@@ -166,17 +166,20 @@ def test_calibrate_curve_snapshots_and_rollback(api: Client, tmp_path: Path, mon
     cap = capsys.readouterr()
     assert "--yes" in cap.err and api.get_channel(cid)["version"] == 0
     assert "does not replace traceable, accredited calibration" in cap.out  # the caution, before acting
-    # a terminal, answered no
+    # a terminal, answered no: the fit report was shown first (a dry run), nothing changed
     monkeypatch.setattr(sys, "stdin", Terminal("n\n"))
     assert main(["calibrate", cid, str(bench)]) == 2
-    assert "not confirmed" in capsys.readouterr().err and api.get_channel(cid)["version"] == 0
+    cap = capsys.readouterr()
+    assert "not confirmed" in cap.err and api.get_channel(cid)["version"] == 0
+    assert "a preview: nothing has changed yet" in cap.out and "rms residual" in cap.out
+    assert cap.out.index("R-squared") < cap.out.index("does not replace traceable")
     # a terminal, answered yes
     monkeypatch.setattr(sys, "stdin", Terminal("y\n"))
     assert main(["calibrate", cid, str(bench), "--label", "bench 1"]) == 0
     cap = capsys.readouterr()
     assert "Calibrate cal.c1 now? [y/N]" in cap.err
     out = cap.out
-    assert "calibrated cal.c1: 6 points" in out and "R-squared      1" in out and "s.d." in out
+    assert "calibrated cal.c1: 6 points" in out and "R-squared             1\n" in out and "s.d." in out
     assert "coefficients of y [degC]" in out and "raw^2" in out
     first = api.get_channel(cid)["version"]
 
@@ -281,17 +284,21 @@ def test_diff_and_rollback_show_the_services_figure(api: Client, tmp_path: Path,
 
 def test_calibrate_refuses_bad_files_and_reports_service_refusals(api: Client, tmp_path: Path,
                                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    """The service reads the file (as it does for the page): its message, one line, exit 1."""
     cid = "cal.bad"
     api.create_channel(poly(cid))
     cases = {
-        "noy.csv": (["x", "z"], [[1, 2]], "no y column"),
-        "text.csv": (["x", "y"], [[1, 2], [2, "warm"]], "line 3: y is not a number: 'warm'"),
-        "two.csv": (["x1", "x2", "y"], [[1, 2, 3]], "2 input column(s), but the channel has 1"),
-        "empty.csv": (["x", "y"], [], "no data rows"),
+        "noy.csv": (["x", "z"], [[1, 2]], ["--y-col", "y"], "[csv]: y column 'y' is not in the header (its "
+                                                            "columns: x, z)"),
+        "text.csv": (["x", "y"], [[1, 2], [2, "warm"]], [], "[csv]: line 3: y is not a number: 'warm'"),
+        "two.csv": (["x1", "x2", "y"], [[1, 2, 3]], [], "names 2 input column(s) (x1, x2), but the channel has 1"),
+        "empty.csv": (["x", "y"], [], [], "no data rows"),
+        "far.csv": (["x", "y"], [[1, 2]], ["--x-col", "4"], "x column 4 does not exist"),
     }
-    for name, (header, rows, message) in cases.items():
-        assert main(["calibrate", cid, str(write_csv(tmp_path / name, header, rows)), "--yes"]) == 2, name
-        assert message in capsys.readouterr().err, name
+    for name, (header, rows, extra, message) in cases.items():
+        assert main(["calibrate", cid, str(write_csv(tmp_path / name, header, rows)), "--yes", *extra]) == 1, name
+        err = capsys.readouterr().err
+        assert message in err and "the service refused the request (422" in err and len(err.splitlines()) == 1, err
     assert main(["calibrate", cid, str(tmp_path / "missing.csv"), "--yes"]) == 2
     assert "missing.csv" in capsys.readouterr().err
     # one point cannot fit a line: the service's 422 message, exit 1
@@ -299,6 +306,44 @@ def test_calibrate_refuses_bad_files_and_reports_service_refusals(api: Client, t
     err = capsys.readouterr().err
     assert "the service refused the request (422" in err and len(err.splitlines()) == 1
     assert api.get_channel(cid)["version"] == 0
+
+
+def test_calibrate_reads_what_the_page_reads(api: Client, tmp_path: Path,
+                                             capsys: pytest.CaptureFixture[str]) -> None:
+    """A comment line, a header of the user's own names, ';' between fields; columns by name
+    or position; the terms named as the service names them; the residual s.d. in degC."""
+    cid = "cal.ntc"
+    api.create_channel({"id": cid, "inputs": [{"name": "raw", "unit": "ohm", "min": 1000.0, "max": 40000.0}],
+                        "output": {"name": "temperature", "unit": "degC", "transform": "reciprocal",
+                                   "offset": 273.15}, "basis": {"kind": "log_poly", "powers": [0, 1, 3]}})
+    r = np.array([28000.0, 19000.0, 12500.0, 8000.0, 5300.0, 3600.0])
+    t = [1.0 / (1.129e-3 + 2.341e-4 * np.log(v) + 8.775e-8 * np.log(v) ** 3) - 273.15 for v in r]  # Steinhart-Hart
+    text = "# bath 3, reference PRT\nstep;resistance_ohm;bath_degC\n" + "".join(
+        f"{i};{a};{b + (0.01 if i % 2 else -0.01)}\n" for i, (a, b) in enumerate(zip(r, t, strict=True)))
+    path = tmp_path / "bath.csv"
+    path.write_text(text)
+    assert main(["calibrate", cid, str(path), "--x-col", "Resistance_Ohm", "--y-col", "3", "--yes"]) == 0
+    out = capsys.readouterr().out
+    assert "read 6 row(s): inputs from resistance_ohm, reference from bath_degC" in out
+    rows = {line.split()[0] for line in out.splitlines() if line.startswith("  ") and len(line.split()) == 3}
+    names = api.request("GET", f"/v1/channels/{cid}/curve?points=2")["raw_term_names"]
+    assert names == ["1", "ln(raw)", "ln(raw)^3"] and set(names) <= rows  # the service's names
+    sd = next(line for line in out.splitlines() if "residual s.d." in line)
+    cal = api.request("GET", f"/v1/channels/{cid}/events?kind=calibration")["items"][-1]["details"]
+    ch = api.get_channel(cid)
+    assert f"{techcli.common._num(ch['residual_sd_output'], 4)} degC (in the fitted space" in sd
+    assert cal["n"] == 6 and [p[0] for p in cal["points"]] == [[v] for v in r.tolist()]
+    assert main(["channels", "show", cid]) == 0
+    out = capsys.readouterr().out
+    assert f"residual s.d.    {techcli.common._num(ch['residual_sd_output'], 4)} degC (in the fitted space " in out
+    assert "operating range  raw [3600, 28000] (calibration)" in out
+    assert main(["curve", cid, "--points", "2"]) == 0
+    assert f"residual s.d. {techcli.common._num(ch['residual_sd_output'], 4)} degC" in capsys.readouterr().out
+    # no header at all: the first column the input, the second the reference
+    plain = tmp_path / "plain.csv"
+    plain.write_text("".join(f"{a},{b}\n" for a, b in zip(r, t, strict=True)))
+    assert main(["calibrate", cid, str(plain), "--yes"]) == 0
+    assert "inputs from column 1, reference from column 2" in capsys.readouterr().out
 
 
 # samples --------------------------------------------------------------------------------
@@ -358,6 +403,12 @@ def test_load_refuses_bad_rows_and_reports_the_service_message(api: Client, tmp_
     assert api.get_channel(cid)["n_samples"] == 1
     assert main(["samples", "load", "no.channel", str(huge)]) == 1
     assert "404" in capsys.readouterr().err
+    # the calibrate route's reader: comment lines, ';' between fields, a header of other names
+    noted = tmp_path / "noted.csv"
+    noted.write_text("# logger 7\nreading_mV;kPa;t\n3;4;2026-12-01T12:00:00Z\n")
+    assert main(["samples", "load", cid, str(noted)]) == 0
+    assert "1 accepted" in capsys.readouterr().out
+    assert [(s["x"], s["y"], s["t"]) for s in all_samples(api, cid)][-1] == ([3.0], 4.0, "2026-12-01T12:00:00Z")
 
 
 def test_two_input_channel(api: Client, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -367,7 +418,12 @@ def test_two_input_channel(api: Client, tmp_path: Path, capsys: pytest.CaptureFi
                         "output": {"name": "p", "unit": "kPa"}, "basis": {"kind": "poly", "degree": 1}})
     pts = [[a, b, 1.0 + 2.0 * a + 0.1 * b] for a in (0.0, 5.0, 10.0) for b in (0.0, 20.0, 40.0)]
     assert main(["calibrate", cid, str(write_csv(tmp_path / "b.csv", ["x1", "x2", "y"], pts)), "--yes"]) == 0
-    assert "R-squared      1" in capsys.readouterr().out
+    assert "R-squared             1\n" in capsys.readouterr().out
+    named = write_csv(tmp_path / "n.csv", ["kPa_ref", "temp_C", "signal_mV"], [[p[2], p[1], p[0]] for p in pts])
+    assert main(["calibrate", cid, str(named), "--x-col", "signal_mV,temp_C", "--y-col", "kPa_ref", "--yes"]) == 0
+    out = capsys.readouterr().out
+    assert "inputs from signal_mV, temp_C, reference from kPa_ref" in out and "raw*tc" not in out
+    assert "R-squared             1\n" in out and "  tc  " in out
     swapped = write_csv(tmp_path / "s.csv", ["x2", "x1", "y"], [[20.0, 5.0, 13.0]])  # columns by name
     assert main(["samples", "load", cid, str(swapped)]) == 0
     assert "1 accepted" in capsys.readouterr().out

@@ -374,7 +374,7 @@ def test_the_state_does_not_carry_the_config() -> None:
     m = model_of(channel(drift={"detector": "cusum", "tolerance": 0.5}))
     m.learn(x, y)
     state = json.loads(json.dumps(m.to_state()))
-    assert "config" not in state and state["format"] == 3
+    assert "config" not in state and state["format"] == 4
     restored = ChannelModel.from_state(m.config, state)
     assert restored.config == m.config and restored.to_state() == m.to_state()
     with pytest.raises(StateError):  # 3 weights for a 4-term basis

@@ -102,6 +102,11 @@ def lifecycle(client: TestClient, admin: dict[str, str]) -> str:
     # on the line: the alarm acknowledged above is not raised again (a replay without the
     # acknowledgement would end in alarm)
     assert feed(client, admin, ch, 30, 500, seed=6)["drift"]["state"] == "ok"
+    before = client.get(base, headers=admin).json()
+    # where curves are compared: the tolerance check runs again over the declared range
+    narrowed = client.patch(base, headers=admin, json={"inputs": [{"operating_range": [10, 30]}]})
+    assert narrowed.status_code == 200
+    assert narrowed.json()["drift"]["max_curve_change"] != before["drift"]["max_curve_change"]
     return ch
 
 
@@ -114,8 +119,8 @@ def test_replay_check_reproduces_every_lifecycle_change(client: TestClient, admi
         assert kind in kinds
     assert main(["replay", lifecycle, "--check", "--quiet", "--db", database_url]) == 0
     out = capsys.readouterr().out
-    # 2 calibrations, 3 service changes, 1 acknowledgement, 1 settings change, 2 rollbacks
-    assert "bit for bit" in out and "replayed 210 samples and 9 state changes" in out
+    # 2 calibrations, 3 service changes, 1 acknowledgement, 2 settings changes, 2 rollbacks
+    assert "bit for bit" in out and "replayed 210 samples and 10 state changes" in out
     # from every snapshot of the channel's state at its version (periodic ones, those before a
     # calibration or rollback, one taken out of service); an alarm's snapshot holds an earlier curve
     snaps = client.get(f"/v1/channels/{lifecycle}/snapshots", params={"limit": 1000}, headers=admin).json()["items"]

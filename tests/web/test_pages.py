@@ -344,6 +344,15 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     report = page.text_content("#calibrate-report")
     assert f"{len(cal['details']['points'])}" in report and "degC" in report and "R²" in report
     assert served.api.get(f"/v1/channels/{cid}").json()["version"] == before["version"]
+    # the service read the text: the header's names, the terms as the API names them, the
+    # residual s.d. in degC with the fitted-space figure beside it
+    preview = served.api.post(f"/v1/channels/{cid}/calibrate", json={"csv": csv_file.read_text(),
+                                                                     "dry_run": True}).json()
+    assert "from raw_ohm, reference from reference_degC" in report
+    terms = page.locator("#calibrate-report li[data-term]")
+    assert [terms.nth(i).get_attribute("data-term") for i in range(terms.count())] == preview["raw_term_names"]
+    sd = page.text_content("#calibrate-report dt:text-is('residual s.d.') + dd") or ""
+    assert sd.startswith(f"{preview['residual_sd_output']:.3g} degC") and "fitted reciprocal space" in sd
     assert "does not replace" in page.text_content("#calibrate-caution")  # beside the button that acts
     page.click("#calibrate-apply")
     page.wait_for_selector("#calibrate-message.done")
@@ -355,10 +364,27 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     assert events[-1]["details"]["n"] == len(cal["details"]["points"])
     shot(page, "calibrate.png")
 
+    # a header of the user's own names, ';' between fields, columns named on the page
+    named = ["step;reference_degC;resistance_ohm", "# bath, day 0"] + [
+        f"{i};{y};{x[0]}" for i, (x, y) in enumerate(cal["details"]["points"])]
+    page.fill("#calibrate-csv", "\n".join(named))
+    page.fill("#calibrate-xcols", "Resistance_Ohm")
+    page.fill("#calibrate-ycol", "2")
+    page.click("#calibrate-button")
+    page.wait_for_selector("#calibrate-message.preview")
+    assert "from resistance_ohm, reference from reference_degC" in page.text_content("#calibrate-report")
+    assert served.api.get(f"/v1/channels/{cid}").json()["version"] == after["version"]
+    page.fill("#calibrate-xcols", "")
+    page.fill("#calibrate-ycol", "")
+
     page.fill("#calibrate-csv", "1000,2\n2000,abc")
     page.click("#calibrate-button")
     page.wait_for_selector("#calibrate-message.error")
     assert "line 2" in page.text_content("#calibrate-message")
+    # the service refused the text (422): the browser logs that answer, and nothing else
+    assert tab.problems == ["Failed to load resource: the server responded with a status of 422 "
+                            "(Unprocessable Entity)"]
+    tab.problems.clear()
     assert served.api.get(f"/v1/channels/{cid}").json()["version"] == after["version"]
 
 
@@ -416,6 +442,42 @@ def test_calibration_history_shows_as_found_as_left_and_verdicts(tab: Tab, serve
     assert f"{record['interval_suggestion']['days']} days suggested" in box
     assert "does not replace" in page.text_content("p.caution")  # the caution stays in view
     shot(page, "calibration-record.png")
+
+
+def test_the_curve_is_drawn_over_the_operating_range_with_switches(tab: Tab, served: Served) -> None:
+    page = tab.page
+    sign_in(tab, served)
+    cid = "coldstore.dock.p1"
+    ch = open_channel(tab, served, cid)
+    op, inp = ch["operating_range"][0], ch["inputs"][0]
+    assert (op["min"], op["max"]) != (inp["min"], inp["max"])  # the samples cover part of the range
+
+    def drawn() -> tuple[float, float]:
+        xs = page.evaluate("document.getElementById('curve-plot').data[2].x")
+        return xs[0], xs[-1]
+
+    assert page.get_attribute("#curve-plot", "data-over") == "operating"
+    assert drawn() == (op["min"], op["max"])  # the service's operating range, as GET answers it
+    lo, hi = page.evaluate("document.getElementById('curve-plot').layout.xaxis.range")
+    assert lo < op["min"] and hi > op["max"] and hi - lo < 1.1 * (op["max"] - op["min"])
+    caption = page.text_content("#curve-caption")
+    assert "the operating range" in caption and "the span of the samples" in caption
+    assert op["source"] == "samples"
+    facts = page.text_content("#channel-facts")
+    assert "operating range" in facts and f"{ch['residual_sd_output']:.3g} degC" in facts
+    assert "fitted reciprocal space" in facts
+
+    page.check("#curve-whole")
+    page.wait_for_selector("#curve-plot[data-over='input']")
+    assert drawn() == (inp["min"], inp["max"])
+    assert "the whole input range" in page.text_content("#curve-caption")
+    page.check("#curve-logx")
+    page.wait_for_selector("#curve-plot[data-xaxis='log']")
+    assert page.evaluate("document.getElementById('curve-plot').layout.xaxis.type") == "log"
+    shot(page, "channel-whole-log.png")
+    page.uncheck("#curve-whole")
+    page.wait_for_selector("#curve-plot[data-over='operating']")
+    assert drawn() == (op["min"], op["max"])
 
 
 def test_a_page_without_a_key_goes_to_sign_in(tab: Tab, served: Served) -> None:

@@ -91,6 +91,8 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel, forecast: dict[str,
         "n_rejected": st.n_rejected,
         "rmse": s["rmse"],
         "residual_sd": s["residual_sd"],
+        "residual_sd_output": s["residual_sd_output"],
+        "operating_range": s["operating_range"],
         "drift": {**ch.config["drift"], **s["drift"]},
         "version": st.version,
         "service_state": model.service,
@@ -202,14 +204,37 @@ def merge(config: dict[str, Any], changes: dict[str, Any]) -> dict[str, Any]:
     return merged
 
 
+def merge_inputs(stored: list[dict[str, Any]], given: list[Any] | None) -> list[dict[str, Any]]:
+    """The inputs after a PATCH: one object per stored input, in order, of which only
+    ``operating_range`` may differ; raises ``ImmutableField`` for any other change."""
+    if given is None or len(given) != len(stored):
+        raise ImmutableField(f"the channel has {len(stored)} input(s): inputs cannot be added or removed; "
+                             "give one object per input", details={"fields": ["inputs"]})
+    out = []
+    for i, (old, new) in enumerate(zip(stored, given, strict=True)):
+        if not isinstance(new, dict):
+            raise InvalidRequest(f"inputs[{i}] must be an object (e.g. {{\"operating_range\": [lo, hi]}})",
+                                 details={"field": f"inputs.{i}"})
+        fixed = sorted(k for k in new if k != "operating_range" and new[k] != old.get(k))
+        if fixed:
+            names = [f"inputs.{i}.{k}" for k in fixed]
+            raise ImmutableField(f"{', '.join(names)} cannot change after creation (of an input, only "
+                                 "operating_range can); create a new channel", details={"fields": names})
+        out.append({**old, **{k: v for k, v in new.items() if k == "operating_range"}})
+    return out
+
+
 def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> dict[str, Any]:
+    """The channel after changing its ``MUTABLE`` settings and its inputs' operating ranges."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=True)
-    fixed = sorted(set(changes) - MUTABLE)
+    fixed = sorted(set(changes) - MUTABLE - {"inputs"})
     if fixed:
         raise ImmutableField(f"{', '.join(fixed)} cannot change after creation; create a new channel",
                              details={"fields": fixed})
     model = unit.write_model(st)
+    if "inputs" in changes:
+        changes = {**changes, "inputs": merge_inputs(model.config["inputs"], changes["inputs"])}
     config = validated(merge(model.config, changes))
     try:
         updated = model.with_settings(config)

@@ -9,6 +9,8 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel, FitError, InputError
+from ..core.scaling import box_grid
+from ..csvpoints import CsvProblem, Points, read_points
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
 from . import calibrations
 from .channels import load, refresh_due, refuse_archived
@@ -89,10 +91,9 @@ def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> 
     return out
 
 
-def grid_points(model: ChannelModel, points: int) -> list[dict[str, Any]]:
-    """The curve on ``points`` grid points per input over the declared ranges: x, y, u, U, k,
-    and y -/+ U (null where y or U is)."""
-    grid = model.scaler.grid(points)
+def grid_points(model: ChannelModel, grid: np.ndarray) -> list[dict[str, Any]]:
+    """The curve at the rows of ``grid`` ((n, d) input units): x, y, u, U, k, and y -/+ U
+    (null where y or U is)."""
     v = _values(model, grid)
     single = grid.shape[1] == 1
     pts = []
@@ -104,20 +105,47 @@ def grid_points(model: ChannelModel, points: int) -> list[dict[str, Any]]:
     return pts
 
 
-def curve(unit: Unit, channel_id: str, points: int) -> dict[str, Any]:
+def curve(unit: Unit, channel_id: str, points: int, over: str = "input") -> dict[str, Any]:
+    """The curve at ``points`` points (per input, see ``box_grid``) over the declared input
+    range (``over="input"``) or the operating range (``"operating"``), with its summary."""
     repo = unit.repo
     ch, st = load(repo, channel_id)
     model = unit.read_model(st)
-    pts = grid_points(model, points)
+    if over == "operating":
+        lo, hi, _ = model.operating_range()
+        grid = box_grid(lo, hi, points)
+    else:
+        grid = model.scaler.grid(points)
+    pts = grid_points(model, grid)
     summary = model.summary()
     out: dict[str, Any] = {
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
-        "weights": model.weights.tolist(), "points": pts,
-        "n_samples": st.n_samples, "rmse": summary["rmse"], "drift": summary["drift"], "quality": quality(model),
+        "weights": model.weights.tolist(), "over": over, "points": pts, "operating_range": summary["operating_range"],
+        "n_samples": st.n_samples, "rmse": summary["rmse"], "residual_sd": summary["residual_sd"],
+        "residual_sd_output": summary["residual_sd_output"], "drift": summary["drift"], "quality": quality(model),
         "version": st.version,
     }
     out.update(model.raw_coefficients())
     return out
+
+
+def _csv_points(csv: str | None, points: list[tuple[list[float], float]], d: int,
+                x_columns: list[str | int] | None, y_column: str | int | None, max_points: int) -> Points | None:
+    """The points of the csv text (None without one); ``InvalidRequest`` naming the line."""
+    if csv is None:
+        if x_columns is not None or y_column is not None:
+            raise InvalidRequest("x_columns and y_column choose columns of csv: give csv too",
+                                 details={"field": "x_columns" if x_columns is not None else "y_column"})
+        return None
+    if points:
+        raise InvalidRequest("give the points either as points or as csv, not both", details={"field": "csv"})
+    try:
+        read = read_points(csv, d, x_columns, y_column)
+    except CsvProblem as exc:
+        raise InvalidRequest(exc.message, details={"field": "csv", "line": exc.line}) from exc
+    if len(read.y) > max_points:
+        raise PayloadTooLarge(f"at most {max_points} points in one calibration; the csv holds {len(read.y)}")
+    return read
 
 
 def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], float]],
@@ -125,13 +153,16 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
               label: str | None, key_id: str | None, dry_run: bool = False,
               reason: str | None = None, reference: str | None = None,
               allow_overdue_reference: bool = False, at: datetime | None = None, supersedes: int | None = None,
-              conditions: dict[str, Any] | None = None, max_clock_skew_s: float = 300.0) -> dict[str, Any]:
-    """Fit the points (and/or stored history), make the fit the channel's curve and store
-    its calibration record (``record``; done ``at``, default now; correcting the record
-    ``supersedes`` names); with ``dry_run``, only report what the fit and the record would
-    be, changing nothing. ``reason`` (why, in a person's words) goes into the event for the
-    audit trail; replay does not read it. ``reference`` names the reference instrument
-    (checked as ``reference_for_use`` does, against the calibration's date); the channel's
+              conditions: dict[str, Any] | None = None, max_clock_skew_s: float = 300.0, csv: str | None = None,
+              x_columns: list[str | int] | None = None, y_column: str | int | None = None,
+              max_points: int = HISTORY_LIMIT) -> dict[str, Any]:
+    """Fit the points (given, or read from ``csv`` text by ``csvpoints``, and/or stored
+    history), make the fit the channel's curve and store its calibration record
+    (``record``; done ``at``, default now; correcting the record ``supersedes`` names);
+    with ``dry_run``, only report what the fit and the record would be, changing nothing.
+    ``reason`` (why, in a person's words) goes into the event for the audit trail; replay
+    does not read it. ``reference`` names the reference instrument (checked as
+    ``reference_for_use`` does, against the calibration's date); the channel's
     ``reference`` setting then takes its U and k, and the record's budget counts them."""
     repo = unit.repo
     ch, st = load(repo, channel_id, lock=not dry_run)
@@ -143,6 +174,9 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
     model = unit.write_model(st)
     before_model = model.copy()
     d = len(model.config["inputs"])
+    read = _csv_points(csv, points, d, x_columns, y_column, max_points)
+    if read is not None:
+        points = [(x, y) for x, y in zip(read.x, read.y, strict=True)]
     xs: list[list[float]] = []
     ys: list[float] = []
     for i, (x, y) in enumerate(points):
@@ -172,6 +206,8 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
         report = model.fit_closed_form(np.array(xs, dtype=np.float64).reshape(len(xs), d), np.array(ys))
     except (FitError, InputError) as exc:
         raise InvalidRequest(exc.message, details=exc.details) from exc
+    report["csv"] = None if read is None else {"x_columns": read.x_columns, "y_column": read.y_column,
+                                               "rows": len(read.y)}
     facts = None if use is None else use.facts()
     report["reference"] = facts
     if config is not ch.config:
@@ -205,7 +241,9 @@ def calibrate(unit: Unit, channel_id: str, *, points: list[tuple[list[float], fl
                          "details": {"label": label, **({"reason": reason} if reason else {}), **used,
                                      "points": [[x, y] for x, y in points],
                                      "history": history, "n": report["n"],
-                                     "residual_sd": report["residual_sd"], "r_squared": report["r_squared"],
+                                     "residual_sd": report["residual_sd"],
+                                     "residual_sd_output": report["residual_sd_output"],
+                                     "r_squared": report["r_squared"],
                                      "max_curve_change": report["max_curve_change"],
                                      "snapshot_before": before.pk, "snapshot_after": after.pk,
                                      "record": stored["id"], "at": when.isoformat(), "verdict": record["verdict"],

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel
-from ..core.model import MUTABLE
+from ..core.config import adopt_settings
 from ..errors import InvalidRequest, SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Sample
@@ -158,7 +158,7 @@ def _apply(repo: Repository, channel_pk: int, model: ChannelModel, kind: str, de
         return model
     if kind == "settings_changed":
         cfg = details["config"]
-        return model.with_settings({**model.config, **{k: cfg[k] for k in MUTABLE if k in cfg}})
+        return model.with_settings(adopt_settings(model.config, cfg))
     if kind == "rollback":
         snap = repo.get_snapshot(channel_pk, details["snapshot"])
         if snap is None:

@@ -34,5 +34,5 @@ def calibration_report(unit: Unit, channel_id: str, record_id: int) -> tuple[byt
     snap = unit.repo.calibration_snapshot(ch.pk, record["version"])
     if snap is not None and len(channel["inputs"]) == 1:
         model = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
-        points = [{"x": p["x"], "y": p["y"], "U": p["U"]} for p in grid_points(model, CURVE_POINTS)]
+        points = [{"x": p["x"], "y": p["y"], "U": p["U"]} for p in grid_points(model, model.scaler.grid(CURVE_POINTS))]
     return render_report(record, channel, curve=points), filename(channel_id, record)

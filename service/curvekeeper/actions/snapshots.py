@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 
 from ..core import ChannelModel
-from ..core.config import MUTABLE
+from ..core.config import adopt_settings
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
@@ -38,16 +38,18 @@ def list_(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) 
                 encode_cursor(rows[limit - 1].pk) if len(rows) > limit else None)
 
 
-def difference(reference: ChannelModel, other: ChannelModel) -> dict[str, Any]:
-    """The largest difference between two curves over the reference's standard grid
-    (``ChannelModel.curve_difference``): ``max`` in output units, ``at`` the raw inputs
-    where it is (a number for one input, a list for several), ``grid_points``, and
-    ``left_out``, the points where either curve is not finite. ``max`` and ``at`` are
-    None when the curves cannot be compared (no common finite point, another basis)."""
-    grid_points = len(reference.curve_values(reference.weights))
-    if other.weights.shape != reference.weights.shape:
+def difference(current: ChannelModel, other: ChannelModel, base: ChannelModel | None = None) -> dict[str, Any]:
+    """The largest difference between ``other``'s curve and the current one (or ``base``'s)
+    over the channel's operating range now (``ChannelModel.curve_difference``): ``max`` in
+    output units, ``at`` the raw inputs where it is (a number for one input, a list for
+    several), ``grid_points``, and ``left_out``, the points where either curve is not
+    finite. ``max`` and ``at`` are None when the curves cannot be compared (no common
+    finite point, another basis)."""
+    grid_points = len(current.curve_values(current.weights))
+    against = current if base is None else base
+    if other.weights.shape != current.weights.shape or against.weights.shape != current.weights.shape:
         return {"max": None, "at": None, "grid_points": grid_points, "left_out": grid_points}
-    largest, at, left_out = reference.curve_difference(np.asarray(other.weights))
+    largest, at, left_out = current.curve_difference(np.asarray(other.weights), np.asarray(against.weights))
     where = None if at is None else (float(at[0]) if at.size == 1 else at.tolist())
     return {"max": largest, "at": where, "grid_points": grid_points, "left_out": left_out}
 
@@ -74,9 +76,8 @@ def get(unit: Unit, channel_id: str, snapshot_id: int, against: int | None = Non
         "drift": summary["drift"], "config": old.config,
         "max_difference_from_current": from_current["max"],
         "curve_difference": {"against": against, **(
-            from_current if against is None else difference(restore(snaps[against].config, snaps[against].model_state,
-                                                                   f"snapshot {against}"),
-                                                            old))},
+            from_current if against is None else difference(current, old, restore(
+                snaps[against].config, snaps[against].model_state, f"snapshot {against}")))},
     })
     out.update(old.raw_coefficients())
     return out
@@ -87,7 +88,7 @@ def roll_back(current: ChannelModel, restored: ChannelModel, *, set_reference: b
     curve, drift watch and alarm, service state, counts), and under the settings the
     snapshot was taken under; with ``set_reference`` the restored curve becomes the
     reference. The replay of a rollback event calls this too."""
-    settings = {**current.config, **{k: restored.config[k] for k in MUTABLE if k in restored.config}}
+    settings = adopt_settings(current.config, restored.config)
     if settings != current.config:  # the watch fits the snapshot's detector, as a PATCH would leave it
         current = current.with_settings(settings)
     return current.take_curve(restored, set_reference=set_reference)

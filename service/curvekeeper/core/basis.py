@@ -48,6 +48,16 @@ class Basis(ABC):
         return []
 
 
+def term_name(term: Any, names: list[str]) -> str:
+    """A raw term as people write it, from ``raw_terms``: an exponent list per input
+    (``1``, ``raw``, ``raw^2``, ``current*temperature``) or a power of ln x for log_poly
+    (an int: ``1``, ``ln(raw)``, ``ln(raw)^3``); ``names`` the inputs' names in order."""
+    if isinstance(term, list):
+        parts = [n if e == 1 else f"{n}^{e}" for n, e in zip(names, term, strict=True) if e]
+        return "*".join(parts) or "1"
+    return "1" if term == 0 else f"ln({names[0]})" if term == 1 else f"ln({names[0]})^{term}"
+
+
 def _chebyshev_columns(s: Array, degree: int) -> list[Array]:
     """T_0(s) ... T_degree(s) by the three-term recurrence, each (n,)."""
     cols = [np.ones_like(s)]

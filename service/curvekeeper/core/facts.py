@@ -3,7 +3,7 @@ quality, summary. Read only; part of ``ChannelModel``."""
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -38,6 +38,10 @@ class ModelParts:
 
 class ModelFacts(ModelParts):
     """Read-only answers of ``ChannelModel`` about its learned state."""
+
+    if TYPE_CHECKING:  # given by the other parts of ChannelModel
+        def residual_sd_output(self) -> float | None: ...
+        def operating_range(self) -> tuple[Array, Array, list[str]]: ...
 
     def residual_sd_dof(self) -> tuple[float | None, float]:
         """(s, dof): the residual s.d. in the fitted space, the last fit's residual variance
@@ -96,7 +100,7 @@ class ModelFacts(ModelParts):
 
     @property
     def max_curve_change(self) -> float | None:
-        """Largest |f_now - f_ref| over the input range at the last check, output units."""
+        """Largest |f_now - f_ref| over the operating range at the last check, output units."""
         return self.s.max_curve_change
 
     @property
@@ -127,14 +131,24 @@ class ModelFacts(ModelParts):
                 "tolerance": self.tolerance_state or "ok", "service": self.s.service,
                 "warming_up": not self.warmed_up}
 
+    def operating_ranges(self) -> list[dict[str, Any]]:
+        """Per input: ``name``, ``min``, ``max`` (input units) and ``source`` of its operating
+        range (see ``CurveComparison.operating_range``)."""
+        lo, hi, source = self.operating_range()
+        return [{"name": spec["name"], "min": float(a), "max": float(b), "source": src}
+                for spec, a, b, src in zip(self.config["inputs"], lo, hi, source, strict=True)]
+
     def summary(self) -> dict[str, Any]:
-        """Counts, rmse (output units) and drift state for ``GET /v1/channels/{id}``."""
+        """Counts, rmse and residual s.d. (output units; ``residual_sd`` in the fitted space),
+        drift state and the operating range for ``GET /v1/channels/{id}``."""
         return {
             "n_samples": self.n_samples,
             "n_accepted": self.n_accepted,
             "n_rejected": self.n_rejected,
             "rmse": self.rmse,
             "residual_sd": self.residual_sd(),
+            "residual_sd_output": self.residual_sd_output(),
+            "operating_range": self.operating_ranges(),
             "drift": {
                 "state": self.drift_state,
                 "statistic": self.drift_statistic,

@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .basis import PolyBasis
+from .basis import PolyBasis, term_name
 from .drift import DS_N
 from .errors import ConfigError
 from .facts import ModelParts
@@ -49,6 +49,8 @@ class Lifecycle(ModelParts):
         def _samples(self, X: Any, y: Any) -> tuple[Array, Array]: ...
         def _bound_trace(self) -> None: ...
         def _check_tolerance(self) -> None: ...
+        def _widened(self, X: Array, span: Array | None) -> Array | None: ...
+        def output_sd(self, sd: float | None) -> float | None: ...
 
     def fit_closed_form(self, X: Any, y: Any) -> dict[str, Any]:
         """Least-squares calibration on points X (n, d), y (n,); replaces the weights,
@@ -60,6 +62,7 @@ class Lifecycle(ModelParts):
         fit = fit_least_squares(Phi, z, has_intercept=self.basis.has_intercept)
         old = self.s.w.copy()
         s = self.s
+        s.cal_span = self._widened(Xa, None)
         s.w = fit.weights.copy()
         s.w_ref = fit.weights.copy()
         s.cov = fit.cov_unscaled.copy()
@@ -90,6 +93,7 @@ class Lifecycle(ModelParts):
             "weights": fit.weights.tolist(),
             "weight_sd": _nan_to_none(fit.weight_sd),
             "residual_sd": _float_or_none(fit.residual_sd),
+            "residual_sd_output": self.output_sd(_float_or_none(fit.residual_sd)),
             "rmse_output": float(np.sqrt(np.mean(out_resid**2))),
             "r_squared": _float_or_none(fit.r_squared),
             "n": fit.n,
@@ -100,7 +104,8 @@ class Lifecycle(ModelParts):
 
     def raw_coefficients(self, residual_sd: float | None = None) -> dict[str, Any]:
         """Coefficients in raw units where the basis has such a form (with s.d. when a
-        covariance and residual s.d. are known). ``poly_coefficients`` for one-input poly."""
+        covariance and residual s.d. are known), each term named as people write it
+        (``raw_term_names``: ``1``, ``raw^2``, ``ln(raw)``). ``poly_coefficients`` for one-input poly."""
         T = self.basis.raw_map()
         if T is None:
             return {}
@@ -110,7 +115,10 @@ class Lifecycle(ModelParts):
             csd = _nan_to_none(sd * np.sqrt(np.maximum(np.diag(T @ self.s.cov @ T.T), 0.0)))
         else:
             csd = None
-        out: dict[str, Any] = {"raw_terms": self.basis.raw_terms(), "raw_coefficients": c.tolist(),
+        terms = self.basis.raw_terms()
+        names = [str(i["name"]) for i in self.config["inputs"]]
+        out: dict[str, Any] = {"raw_terms": terms, "raw_term_names": [term_name(t, names) for t in terms],
+                               "raw_coefficients": c.tolist(),
                                "raw_coefficient_sd": csd}
         if isinstance(self.basis, PolyBasis) and self.scaler.d == 1:
             out["poly_coefficients"] = c.tolist()
@@ -157,6 +165,9 @@ class Lifecycle(ModelParts):
         s = self.s
         state.n_samples = s.n_samples
         state.service = s.service
+        # where the channel was used, and its last calibration's points, stay known
+        state.span = None if s.span is None else s.span.copy()
+        state.cal_span = None if s.cal_span is None else s.cal_span.copy()
         state.ds, state.change_w = s.ds.copy(), np.stack([state.w, state.w])
         for k in (ST_EN, ST_EMEAN, ST_EVAR, ST_FVAR, ST_FDOF, ST_ACC, ST_REJ, ST_GUARD, ST_HELD):
             state.st[k] = s.st[k]

@@ -20,7 +20,7 @@ from numpy.typing import NDArray
 
 from .basis import Basis, make_basis
 from .comparison import CURVE_GRID, CurveComparison
-from .config import MUTABLE, Config
+from .config import MUTABLE, Config, curve_form
 from .drift import DS_STATE, STATES, detector_params
 from .errors import ConfigError, InputError, StateError
 from .facts import RESIDUAL_WINDOW, WARMUP, ModelFacts
@@ -99,7 +99,8 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
         out = config["output"]
         self.transform = OutputTransform(out["transform"], out["offset"])
         self.s = state
-        self._grid_x: Array | None = None  # the standard grid, (g, d) raw inputs
+        self._grid_key: tuple[float, ...] | None = None  # the operating range the grid is on
+        self._grid_x: Array | None = None  # the comparison grid, (g, d) raw inputs
         self._grid_phi: Array | None = None
         self._compile_params()
 
@@ -139,6 +140,10 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
             raise StateError("an rls state needs its covariance")
         if config["learner"]["kind"] == "rls" and model.s.st[ST_TRMAX] == 0.0:
             model._bound_trace()  # a state from before the bound
+        if state.get("format", 0) < 4 and model.calibrated:
+            # a state from before the spans were kept: until samples come, the curve is
+            # compared where it was before, over the whole declared range
+            model.s.cal_span = np.stack([model.scaler.lo, model.scaler.hi])
         return model
 
     def copy(self) -> ChannelModel:
@@ -154,13 +159,13 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
 
     def with_settings(self, config: Config) -> ChannelModel:
         """A copy under a new validated configuration that differs only in ``MUTABLE``
-        settings (learner, drift, guards), with the same learned state; the drift watch
-        restarts when the drift settings change.
+        settings (learner, drift, guards) and the inputs' operating ranges, with the same
+        learned state; the drift watch restarts when the drift settings change.
 
         Raises ``ConfigError`` with field ``immutable`` when another setting differs.
         """
-        fixed = sorted(k for k in set(config) | set(self.config)
-                       if k not in MUTABLE and config.get(k) != self.config.get(k))
+        new_form, old_form = curve_form(config), curve_form(self.config)
+        fixed = sorted(k for k in set(new_form) | set(old_form) if new_form.get(k) != old_form.get(k))
         if fixed:
             raise ConfigError(
                 f"{', '.join(fixed)} cannot change after creation; create a new channel",
@@ -175,7 +180,8 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
                 model._start_rls()  # no covariance of a fit to go on
             elif config["learner"] != self.config["learner"]:
                 model._bound_trace()
-        if config["drift"]["tolerance"] != self.config["drift"]["tolerance"]:
+        if (config["drift"]["tolerance"] != self.config["drift"]["tolerance"]
+                or config["inputs"] != self.config["inputs"]):  # the operating range moved
             model._check_tolerance()
         return model
 
@@ -272,16 +278,21 @@ class ChannelModel(ModelFacts, CurveComparison, Lifecycle):
                 s.cov = cov
             if s.info_b is not None and s.st[ST_INIT] == 0.0:
                 s.info_b = None  # the RLS has its first solution
+        seen = (hold != OUT_OF_RANGE) & (hold != NOT_FINITE)  # inputs the operating range spans
         before_alarm = None
         if alarm_at >= 0:
             snap = ModelState(w, None if s.w_ref is None else s.w_ref.copy(), None if s.cov is None else P, st, ds,
                               before_n + alarm_at, before_tol, s.max_curve_change, np.stack([w, w]),
-                              None, s.service)
+                              None, s.service, s.span, s.cal_span)
             if alarm_at > 0:  # the state as learning the samples before the alarm alone leaves it
+                span, s.span = s.span, self._widened(Xa[:alarm_at][seen[:alarm_at]], s.span)
+                snap.span = s.span
                 snap.tolerance_state, mcc = self._tolerance(w)
                 if snap.tolerance_state is not None:
                     snap.max_curve_change = mcc
+                s.span = span
             before_alarm = snap.to_dict()
+        s.span = self._widened(Xa[seen], s.span)
         s.n_samples += n
         events: list[dict[str, Any]] = []
         prev = before_state

@@ -70,11 +70,18 @@ class InputScaler:
         return flags
 
     def grid(self, points: int) -> Array:
-        """A grid over the declared ranges, (g, d): ``points`` per input for one input,
-        fewer per axis for several so the grid stays near ``points**1`` ... 4096 points."""
-        if self.d == 1:
-            return np.linspace(self.lo[0], self.hi[0], points).reshape(-1, 1)
-        per_axis = max(3, int(round(min(points, 4096) ** (1.0 / self.d))))
-        axes = [np.linspace(lo, hi, per_axis) for lo, hi in zip(self.lo, self.hi, strict=True)]
-        mesh = np.meshgrid(*axes, indexing="ij")
-        return np.stack([m.ravel() for m in mesh], axis=1)
+        """A grid over the declared ranges, (g, d); see ``box_grid``."""
+        return box_grid(self.lo, self.hi, points)
+
+
+def box_grid(lo: Array, hi: Array, points: int) -> Array:
+    """A grid over the box [lo, hi] (each (d,), raw units), (g, d): ``points`` per input for
+    one input, fewer per axis for several so the grid stays near ``points`` ... 4096 points.
+    An input with lo == hi gives that one value on its axis."""
+    d = lo.shape[0]
+    if d == 1:
+        return np.linspace(lo[0], hi[0], points).reshape(-1, 1)
+    per_axis = max(3, int(round(min(points, 4096) ** (1.0 / d))))
+    axes = [np.linspace(a, b, per_axis) for a, b in zip(lo, hi, strict=True)]
+    mesh = np.meshgrid(*axes, indexing="ij")
+    return np.stack([m.ravel() for m in mesh], axis=1)

@@ -20,8 +20,8 @@ from .learners import ST_SCALE, ST_SIZE
 
 Array = NDArray[np.float64]
 
-STATE_FORMAT = 3  # 1 carried the channel's config as well; 2 had no reference residuals
-READS = (2, 3)  # formats read: a format-2 state gets the new fields' starting values
+STATE_FORMAT = 4  # 1 carried the channel's config as well; 2 had no reference residuals; 3 no input span
+READS = (2, 3, 4)  # formats read: an older state gets the new fields' starting values
 RUNNING_NAMES = (
     "t", "step_scale", "residual_n", "residual_var", "output_n", "output_ms",
     "n_accepted", "n_outliers", "n_guarded", "fit_var", "fit_dof",
@@ -39,7 +39,10 @@ class ModelState:
     cov (M, M) unscaled parameter covariance or None (an RLS learner still initialising
     keeps its information matrix there, and ``info_b`` (M,)); st running statistics; ds
     detector state; change_w (2, M) the weights at the detector's last upward / downward
-    restart; ``service`` in or out of service."""
+    restart; ``service`` in or out of service; span (2, d) the lowest and highest input
+    values of the samples (those not held back as out of range or not finite), inside the
+    declared ranges, or None before any; cal_span (2, d) the same of the last calibration's
+    points, or None (in a state from before format 4: the declared ranges, if calibrated)."""
 
     w: Array
     w_ref: Array | None
@@ -52,6 +55,8 @@ class ModelState:
     change_w: Array
     info_b: Array | None = None
     service: str = "in_service"
+    span: Array | None = None
+    cal_span: Array | None = None
 
     @classmethod
     def fresh(cls, size: int) -> ModelState:
@@ -63,7 +68,9 @@ class ModelState:
         return ModelState(self.w.copy(), None if self.w_ref is None else self.w_ref.copy(),
                           None if self.cov is None else self.cov.copy(), self.st.copy(), self.ds.copy(),
                           self.n_samples, self.tolerance_state, self.max_curve_change, self.change_w.copy(),
-                          None if self.info_b is None else self.info_b.copy(), self.service)
+                          None if self.info_b is None else self.info_b.copy(), self.service,
+                          None if self.span is None else self.span.copy(),
+                          None if self.cal_span is None else self.cal_span.copy())
 
     def w_ref_or_zero(self) -> Array:
         return self.w_ref if self.w_ref is not None else np.zeros_like(self.w)
@@ -82,7 +89,8 @@ class ModelState:
     def to_dict(self) -> dict[str, Any]:
         """The JSON form; raises ``StateError`` rather than write a non-finite number."""
         for name, a in (("weights", self.w), ("ref_weights", self.w_ref), ("cov", self.cov), ("running", self.st),
-                        ("detector", self.ds), ("change_weights", self.change_w), ("info_b", self.info_b)):
+                        ("detector", self.ds), ("change_weights", self.change_w), ("info_b", self.info_b),
+                        ("input_span", self.span), ("calibration_span", self.cal_span)):
             if a is not None and not np.isfinite(a).all():
                 raise StateError(f"refusing to store a non-finite number in {name}")
         return {
@@ -98,6 +106,8 @@ class ModelState:
             "change_weights": self.change_w.tolist(),
             "info_b": None if self.info_b is None else self.info_b.tolist(),
             "service": self.service,
+            "input_span": None if self.span is None else self.span.tolist(),
+            "calibration_span": None if self.cal_span is None else self.cal_span.tolist(),
         }
 
     @classmethod
@@ -138,9 +148,21 @@ class ModelState:
             b = None if d["info_b"] is None else _vector(d["info_b"], "info_b", M)
             if d["service"] not in SERVICE_STATES:
                 raise StateError("bad service state")
+            span = _span(d, "input_span")
+            cal_span = _span(d, "calibration_span")
         except (KeyError, TypeError, ValueError) as exc:
             raise StateError(f"damaged model state: {exc}") from exc
-        return cls(w, w_ref, cov, st, ds, n, tol, mcc, cw, b, d["service"])
+        return cls(w, w_ref, cov, st, ds, n, tol, mcc, cw, b, d["service"], span, cal_span)
+
+
+def _span(d: dict[str, Any], name: str) -> Array | None:
+    """A (2, d) span of input values (None before format 4, or when none is known)."""
+    if d["format"] < 4 or d[name] is None:
+        return None
+    span = np.array(d[name], dtype=np.float64)
+    if span.ndim != 2 or span.shape[0] != 2 or not np.isfinite(span).all() or (span[0] > span[1]).any():
+        raise StateError(f"{name} must be two finite rows, lowest then highest input values")
+    return span
 
 
 def _vector(v: Any, name: str, size: int | None = None) -> Array:

@@ -105,7 +105,7 @@ def add_commands(sub: Any) -> None:
     st.add_argument("--label", help="what the snapshot is for (kept with it)")
     st.set_defaults(func=_runner(snapshots_take))
     sd = sn_sub.add_parser("diff", parents=common,
-                           help="largest difference between two snapshots' curves over the input range")
+                           help="largest difference between two snapshots' curves over the operating range")
     sd.add_argument("channel", help="the channel's id")
     sd.add_argument("a", type=int, metavar="SID_A", help="the first snapshot's id")
     sd.add_argument("b", type=int, metavar="SID_B", help="the second snapshot's id")
@@ -122,9 +122,18 @@ def add_commands(sub: Any) -> None:
     rb.set_defaults(func=_runner(rollback))
 
     cal = sub.add_parser("calibrate", parents=common,
-                         help="least-squares fit on bench points from a CSV file (x,y or x1,...,xn,y)")
+                         help="least-squares fit on bench points from a CSV file: shows the fit, then asks")
     cal.add_argument("channel", help="the channel's id")
-    cal.add_argument("file", metavar="FILE.csv", help="bench points: a header line, then x (or x1,...,xn) and y")
+    cal.add_argument("file", metavar="FILE.csv",
+                     help="bench points, read by the service as the page reads them: lines starting with # "
+                          "skipped; ',', ';' or tab between fields; an optional header line; by default the header's "
+                          "x (x1 ... xn) and y, else the first columns: the input(s), then the reference value")
+    cal.add_argument("--x-col", action="append", metavar="COLUMN",
+                     help="an input column by header name or position (1 = first); once per input, in the "
+                          "channel's input order, or comma-separated (default: the first columns)")
+    cal.add_argument("--y-col", metavar="COLUMN",
+                     help="the reference value's column by header name or position (default: the column after "
+                          "the inputs)")
     cal.add_argument("--label", help="what the calibration was (kept with its snapshots and event)")
     cal.add_argument("--reason", help="why (kept in the audit trail and the calibration event)")
     cal.add_argument("--yes", action="store_true", help="do not ask (needed without a terminal)")

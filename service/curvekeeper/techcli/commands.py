@@ -13,7 +13,7 @@ from .. import display
 from ..client import Client, ClientError
 from ..csvcells import TextSafeWriter
 from .common import CAUTION, EXPORT_FIELDS, LocalError, _confirm, _difference, _json, _num, _pages, _table, _unit
-from .csvfiles import read_points
+from .csvfiles import read_samples
 
 
 def report(client: Client, args: argparse.Namespace) -> int:
@@ -78,6 +78,9 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
         ("learner", json.dumps(ch.get("learner"), sort_keys=True)),
         ("samples", f"{ch.get('n_samples', 0)} ({ch.get('n_rejected', 0)} held back)"),
         ("rmse", "-" if ch.get("rmse") is None else f"{_num(ch['rmse'], 4)} {_unit(ch)}"),
+        ("residual s.d.", _residual_sd(ch)),
+        ("operating range", "; ".join(f"{r['name']} [{_num(r['min'])}, {_num(r['max'])}] ({r['source']})"
+                                      for r in ch.get("operating_range") or [])),
         ("drift", f"{drift.get('state', '-')} ({drift.get('detector', '-')}, statistic "
                   f"{_num(drift.get('statistic'), 4)})"),
         ("tolerance", "-" if drift.get("tolerance") is None else
@@ -97,22 +100,20 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
 
 
 # curve ----------------------------------------------------------------------------------
-def _term_name(term: Any, basis: dict[str, Any], names: list[str]) -> str:
-    kind = basis.get("kind")
-    if kind == "log_poly":
-        return "1" if term == 0 else f"ln({names[0]})" if term == 1 else f"ln({names[0]})^{term}"
-    if isinstance(term, list):
-        parts = [n if e == 1 else f"{n}^{e}" for n, e in zip(names, term, strict=False) if e]
-        return "*".join(parts) or "1"
-    return str(term)
+def _residual_sd(ch: dict[str, Any]) -> str:
+    """The residual s.d. in output units, with the fitted-space figure where it differs."""
+    if ch.get("residual_sd_output") is None:
+        return "-"
+    text = f"{_num(ch['residual_sd_output'], 4)} {_unit(ch)}".rstrip()
+    if (ch.get("output", {}).get("transform") or "none") != "none":
+        text += f" (in the fitted space {_num(ch.get('residual_sd'), 4)} of {_space(ch)})"
+    return text
 
 
 def _coefficients(report: dict[str, Any], cfg: dict[str, Any]) -> list[list[str]]:
-    names = [i["name"] for i in cfg.get("inputs", [])]
-    basis = report.get("basis") or cfg.get("basis") or {}
-    if report.get("raw_coefficients") is not None:
-        terms, coef, sd = report.get("raw_terms") or [], report["raw_coefficients"], report.get("raw_coefficient_sd")
-        labels = [_term_name(t, basis, names) for t in terms] or [str(i) for i in range(len(coef))]
+    if report.get("raw_coefficients") is not None:  # the terms as the service names them
+        coef, sd = report["raw_coefficients"], report.get("raw_coefficient_sd")
+        labels = report.get("raw_term_names") or [str(i) for i in range(len(coef))]
     else:
         coef, sd = report.get("weights") or [], report.get("weight_sd")
         labels = [f"w{i}" for i in range(len(coef))]
@@ -146,7 +147,8 @@ def curve(client: Client, args: argparse.Namespace) -> int:
                                              _num(p.get("k"), 3)])
     _table(heads, rows)
     print(f"\nU = k u; {c.get('n_samples')} samples, rmse "
-          f"{_num(c.get('rmse'), 4)} {unit}; drift {c.get('drift', {}).get('state')}; version {c.get('version')}")
+          f"{_num(c.get('rmse'), 4)} {unit}, residual s.d. {_residual_sd(c)}; drift {c.get('drift', {}).get('state')}; "
+          f"version {c.get('version')}")
     coef = _coefficients(c, c)
     if coef:
         kind = "power series" if c.get("poly_coefficients") is not None else str(c["basis"].get("kind"))
@@ -206,49 +208,74 @@ def _as_found(record: dict[str, Any], unit: str) -> None:
              _num(p["tolerance"], 4), p["verdict"]] for p in record["as_found"]])
     print(f"verdict as found: {record['as_found_verdict']}, as left: {record['verdict']} ({unit or 'output units'}); "
           f"next interval suggested {record['interval_suggestion']['days']} days")
+def _columns(values: list[str] | None) -> list[str] | None:
+    """--x-col given once per column or as a comma-separated list."""
+    if not values:
+        return None
+    return [c.strip() for v in values for c in v.split(",") if c.strip()]
+
+
+def _fit_report(r: dict[str, Any], cfg: dict[str, Any]) -> None:
+    """The fit report as the service gives it; every figure in its unit."""
+    unit = _unit(cfg)
+    cols = r.get("csv")
+    if cols:
+        print(f"  read {cols['rows']} row(s): inputs from {', '.join(cols['x_columns'])}, reference from "
+              f"{cols['y_column']}")
+    coef = _coefficients(r, cfg)
+    if coef:
+        print(f"  coefficients of {_space(cfg)} (raw input units):")
+        _table(["term", "coefficient", "s.d."], [["  " + row[0], *row[1:]] for row in coef])
+    transformed = (cfg.get("output", {}).get("transform") or "none") != "none"
+    print(f"  rms residual          {_num(r.get('rmse_output'), 4)} {unit}")
+    print(f"  residual s.d.         {_num(r.get('residual_sd_output'), 4)} {unit}" +
+          (f" (in the fitted space {_num(r.get('residual_sd'), 4)} of {_space(cfg)})" if transformed else ""))
+    print(f"  R-squared             {_num(r.get('r_squared'), 8)}")
+    change = r.get("max_curve_change")
+    print(f"  largest curve change  {_num(change, 4)} {unit} over the operating range" if change is not None else
+          "  largest curve change  - (no earlier curve to compare)")
 
 
 def calibrate(client: Client, args: argparse.Namespace) -> int:
+    """Preview the fit (a dry run: nothing changes), show it with the caution, ask, apply."""
     cfg = client.get_channel(args.channel)
     path = Path(args.file)
-    points = read_points(path, len(cfg["inputs"]), with_time=False)
-    print(f"{args.channel}: fit {len(points)} point(s) from {path} by least squares; this replaces the "
-          f"current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples learned)")
-    print("  the current state is kept as a snapshot, so the calibration can be rolled back")
-    body: dict[str, Any] = {"points": [{"x": p["x"], "y": p["y"]} for p in points]}
+    body: dict[str, Any] = {"csv": path.read_text(encoding="utf-8-sig")}
+    x_cols, y_col = _columns(args.x_col), args.y_col
+    if x_cols is not None:
+        body["x_columns"] = x_cols
+    if y_col is not None:
+        body["y_column"] = y_col
     if args.label is not None:
         body["label"] = args.label
     if args.reason is not None:
         body["reason"] = args.reason
     if args.reference is not None:
         body.update(reference=args.reference, allow_overdue_reference=args.allow_overdue_reference)
-    unit = _unit(cfg)
-    preview = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json={**body, "dry_run": True})
-    _as_found(preview["record"], unit)
+    url = f"/v1/channels/{args.channel}/calibrate"
+    preview = client.request("POST", url, json={**body, "dry_run": True}, idempotent=True)
+    print(f"{args.channel}: least-squares fit of {preview.get('n')} point(s) from {path} (a preview: nothing "
+          f"has changed yet)")
+    _fit_report(preview, cfg)
+    _as_found(preview["record"], _unit(cfg))
+    print(f"applying it replaces the current curve (version {cfg.get('version')}, {cfg.get('n_samples')} samples "
+          "learned); the current state is kept as a snapshot, so the calibration can be rolled back")
     print(f"  {CAUTION}")
     if args.dry_run:
         print("dry run: nothing applied")
         return 0
     _confirm(f"Calibrate {args.channel} now?", args.yes)
-    r = client.request("POST", f"/v1/channels/{args.channel}/calibrate", json=body, idempotent=False)
+    r = client.request("POST", url, json=body, idempotent=False)
     print(f"calibrated {args.channel}: {r.get('n')} points, version {r.get('version')}; record "
-          f"{r.get('calibration')}, as left {r['record']['verdict']}")
+          f"{r.get('calibration')}, as left {r['record']['verdict']}; snapshots before {r.get('snapshot_before')}, "
+          f"after {r.get('snapshot_after')}")
     if r.get("reference"):
         ref = r["reference"]
         print(f"against reference {ref['id']} ({ref['certificate']}, due {ref['due_on']}"
               f"{', OVERDUE: allowed' if ref['overdue'] else ''})")
-    coef = _coefficients(r, cfg)
-    if coef:
-        print(f"coefficients of {_space(cfg)} (raw input units):")
-        _table(["term", "coefficient", "s.d."], coef)
-    transformed = (cfg.get("output", {}).get("transform") or "none") != "none"
-    print(f"residual s.d.  {_num(r.get('residual_sd'), 4)}{' (fitted space)' if transformed else ' ' + unit}")
-    if r.get("rmse_output") is not None:
-        print(f"rms residual   {_num(r['rmse_output'], 4)} {unit}")
-    print(f"R-squared      {_num(r.get('r_squared'), 8)}")
-    change = r.get("max_curve_change")
-    print(f"largest curve change  {_num(change, 4)} {unit}" if change is not None else
-          "largest curve change  - (no earlier curve to compare)")
+    if r.get("max_curve_change") != preview.get("max_curve_change"):  # the curve moved meanwhile
+        print(f"  largest curve change  {_num(r.get('max_curve_change'), 4)} {_unit(cfg)} (the curve changed "
+              "since the preview)")
     print(f"undo with: curvekeeper rollback {args.channel} {r.get('snapshot_before')}")
     return 0
 
@@ -297,7 +324,7 @@ def samples_load(client: Client, args: argparse.Namespace) -> int:
     path = Path(args.file)
     source = args.source or f"csv:{path.name}"[:128]
     cfg = client.get_channel(args.channel)
-    rows = read_points(path, len(cfg["inputs"]), with_time=True)
+    rows = read_samples(path, len(cfg["inputs"]), with_time=True)
     accepted = duplicates = rejected = done = 0
     try:
         with tqdm(total=len(rows), unit="sample", desc=args.channel, disable=None, file=sys.stderr) as bar:

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from contextlib import nullcontext
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Query
 
@@ -54,12 +54,15 @@ async def predict(channel_id: ChannelPath, raw: RawPredictIn, ctx: Ctx, who: Who
 
 @router.get("/curve", summary="Coefficients and the curve sampled over the input range")
 def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
-          points: Annotated[int, Query(ge=2)] = 101) -> CurveAnswer:
+          points: Annotated[int, Query(ge=2)] = 101,
+          over: Annotated[Literal["input", "operating"], Query(
+              description="input: over each input's declared [min, max]; operating: over the operating range")]
+          = "input") -> CurveAnswer:
     who.require_channel(channel_id, "technician")
     if points > ctx.settings.max_curve_points:
         raise PayloadTooLarge(f"at most {ctx.settings.max_curve_points} points")
     with ctx.work.unit(write=False) as unit:
-        out = curves.curve(unit, channel_id, points)
+        out = curves.curve(unit, channel_id, points, over)
     return CurveAnswer.model_validate(out)
 
 
@@ -82,5 +85,6 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
                                allow_overdue_reference=body.allow_overdue_reference, at=body.at,
                                supersedes=body.supersedes,
                                conditions=body.conditions.model_dump() if body.conditions else None,
-                               max_clock_skew_s=ctx.settings.max_clock_skew_s)
+                               max_clock_skew_s=ctx.settings.max_clock_skew_s, csv=body.csv,
+                               x_columns=body.x_columns, y_column=body.y_column, max_points=MAX_POINTS)
     return CalibrationAnswer.model_validate(out)

@@ -16,6 +16,7 @@ from ...channel_config import (
     DECISION_RULE,
     DUE_SOON,
     INTERVAL,
+    OPERATING_RANGE,
     RANGE_MARGIN,
     REFERENCE,
     REQUIRE_REFERENCE,
@@ -48,7 +49,8 @@ class ChannelUpdate(BaseModel):
     means in the channel body (``coverage_factor``: k from Student's t again; ``reference``:
     not counted; ``outlier_sd``, ``snapshot_every``: off; ``learner``, ``drift``,
     ``description``: the default). ``learner`` of the same kind (``drift`` with the same
-    detector) is merged field by field; another kind replaces it. ``inputs`` (with their
+    detector) is merged field by field; another kind replaces it. Of ``inputs`` only each
+    input's ``operating_range`` may change; the rest of the inputs (name, unit, range,
     resolution), ``output`` and ``basis`` fix the curve's form and are refused with 409."""
 
     model_config = ConfigDict(extra="forbid", json_schema_extra={
@@ -68,13 +70,38 @@ class ChannelUpdate(BaseModel):
     decision_rule: DecisionRule | MISSING = Field(MISSING, description=DECISION_RULE)
     recalibration_interval_days: IntervalDays | MISSING = Field(MISSING, description=INTERVAL)
     due_soon_days: DueSoonDays | MISSING = Field(MISSING, description=DUE_SOON)
-    inputs: Any | MISSING = Field(MISSING, description="cannot change: 409")
+    inputs: list[Any] | None | MISSING = Field(MISSING, description=(
+        "one object per input, in order, e.g. [{\"operating_range\": [5000, 20000]}]: only operating_range may "
+        "change (" + OPERATING_RANGE + "); any other field given must equal the stored one, else 409; null: 409"))
     output: Any | MISSING = Field(MISSING, description="cannot change: 409")
     basis: Any | MISSING = Field(MISSING, description="cannot change: 409")
 
     def changes(self) -> dict[str, Any]:
         """The fields given (null included); a NaN stays a NaN, for the declaration to refuse."""
         return self.model_dump()
+
+
+RESIDUAL_SD = ("residual standard deviation in the fitted space: 1/(y + offset) units for a reciprocal output, "
+               "ln units for a log one, output units when untransformed; see residual_sd_output")
+RESIDUAL_SD_OUTPUT = ("the residual standard deviation in output units: residual_sd times |dy/dz| (first-order "
+                      "propagation, GUM 5.1.2), at its largest over the operating range; equal to residual_sd when "
+                      "the output is not transformed; null before there is one")
+OPERATING_RANGES = ("per input, the operating range in force: where the sensor is used, so where the curve is "
+                    "compared (the tolerance check, max_curve_change, a calibration's curve change, snapshot "
+                    "differences) and drawn by default")
+
+
+class OperatingRange(BaseModel):
+    """One input's operating range in force."""
+
+    name: str = Field(description="the input's name")
+    min: float = Field(description="input units")
+    max: float = Field(description="input units")
+    source: Literal["declared", "samples", "calibration", "input_range"] = Field(
+        description="declared: the input's operating_range setting; samples: the span of the samples' inputs (those "
+                    "not held back as out of range, within [min, max]); calibration: no sample yet, the span of the "
+                    "last calibration's points (for a channel from before the spans were kept: [min, max]); "
+                    "input_range: the whole declared [min, max], nothing known yet")
 
 
 class DriftStatus(BaseModel):
@@ -84,7 +111,8 @@ class DriftStatus(BaseModel):
     statistic: float = Field(description="the detector's statistic now (compare with warning and alarm)")
     tolerance_state: Literal["ok", "out_of_tolerance"] | None = Field(
         description="the curve against its reference; null: no tolerance check")
-    max_curve_change: float | None = Field(description="largest change from the reference curve at the last "
+    max_curve_change: float | None = Field(description="largest |f_now(x) - f_ref(x)| from the reference curve "
+                                                       "over the operating range (see operating_range) at the last "
                                                        "check, output units")
 
 
@@ -132,7 +160,9 @@ class ChannelPublic(ChannelConfig):
     n_samples: int = Field(description="samples stored")
     n_rejected: int = Field(description="samples stored but not learned")
     rmse: float | None = Field(description="running root mean square residual of learned samples, output units")
-    residual_sd: float | None = Field(description="residual standard deviation in the fitted space")
+    residual_sd: float | None = Field(description=RESIDUAL_SD)
+    residual_sd_output: float | None = Field(description=RESIDUAL_SD_OUTPUT)
+    operating_range: list[OperatingRange] = Field(description=OPERATING_RANGES)
     version: int = Field(description="counts every change of the channel's state")
     service_state: ServiceState = Field(description="out_of_service: samples are stored, not learned nor watched")
     calibrated: bool = Field(description="the channel has a curve (a calibration, or what it has learnt); without "

@@ -8,6 +8,7 @@ from pydantic import MISSING, BaseModel, ConfigDict, Field
 
 from ...channel_config import Basis, InputSpec, OutputSpec, Reason, ReferenceId
 from .calibrations import ConditionsIn, RecordBody
+from .channels import OPERATING_RANGES, RESIDUAL_SD, RESIDUAL_SD_OUTPUT, OperatingRange
 from .common import Answer, DriftState, Label, Number, SnapshotId, ToleranceState, When
 from .references import ReferenceUsed
 
@@ -36,6 +37,16 @@ class CalibrateIn(BaseModel):
          "include_history": False, "label": "bench check", "reason": "yearly check against the reference bath"}]})
 
     points: list[PointIn] = Field(default_factory=list, max_length=100_000)
+    csv: str | None = Field(None, min_length=1, description=(
+        "the points as CSV text instead of points (a file's contents, as the page and the command line send it): "
+        "lines starting with # are skipped; fields separated by ',', ';' or a tab; a first row that is not all "
+        "numbers is a header; columns by x_columns and y_column, by default the header's x (x1 ... xn) and y, "
+        "else the first columns in order, the inputs then the reference value"))
+    x_columns: list[str | int] | None = Field(None, min_length=1, max_length=8, description=(
+        "with csv: the input columns, one per input in the channel's order, by header name or position (1 = the "
+        "first column)"))
+    y_column: str | int | None = Field(None, description="with csv: the reference value's column, by header name "
+                                                         "or position")
     include_history: bool = False
     since: When | None = Field(None, description="with include_history: samples measured at or after")
     until: When | None = Field(None, description="with include_history: samples measured at or before")
@@ -108,7 +119,8 @@ class DriftSummary(Answer):
     alarm: float = Field(description="the statistic's alarm threshold")
     tolerance_state: ToleranceState
     max_curve_change: float | None = Field(
-        description="largest |f_now(x) - f_ref(x)| over the input range, output units; null: not checked")
+        description="largest |f_now(x) - f_ref(x)| over the operating range (see operating_range), output units; "
+                    "null: not checked")
 
 
 class RawCoefficients(Answer):
@@ -118,6 +130,9 @@ class RawCoefficients(Answer):
 
     raw_terms: list[int] | list[list[int]] | MISSING = Field(
         MISSING, description="each coefficient's exponent (of ln x for log_poly; per input for several inputs)")
+    raw_term_names: list[str] | MISSING = Field(
+        MISSING, description="each coefficient's term as written in reports, the page and the command line: 1, raw, "
+                             "raw^2, current*temperature, ln(raw)^3 (input names from the channel)")
     raw_coefficients: list[float] | MISSING = MISSING
     raw_coefficient_sd: list[float] | None | MISSING = Field(
         MISSING, description="standard deviations; null without a covariance or residual estimate")
@@ -142,16 +157,22 @@ class CurveBody(Answer):
     inputs: list[InputSpec] = Field(description="the channel's inputs")
     output: OutputSpec = Field(description="the channel's output setting")
     weights: list[float] = Field(description="basis weights (on scaled inputs)")
+    over: Literal["input", "operating"] = Field(description="the points span the input range [min, max] or the "
+                                                            "operating range")
     points: list[CurvePoint]
+    operating_range: list[OperatingRange] = Field(description=OPERATING_RANGES)
     n_samples: int
     rmse: float | None = Field(description="output units; null before any fit or sample")
+    residual_sd: float | None = Field(description=RESIDUAL_SD)
+    residual_sd_output: float | None = Field(description=RESIDUAL_SD_OUTPUT)
     drift: DriftSummary
     quality: Quality
     version: int
 
 
 class CurveAnswer(RawCoefficients, CurveBody):
-    """The channel's current curve: coefficients and the curve sampled over the input range."""
+    """The channel's current curve: coefficients and the curve sampled over the input range
+    or the operating range."""
 
 
 class FitReport(Answer):
@@ -159,11 +180,25 @@ class FitReport(Answer):
 
     weights: list[float]
     weight_sd: list[float] | None = Field(description="null where the fit leaves them undetermined")
-    residual_sd: float | None = Field(description="in the fitted (transformed) space")
+    residual_sd: float | None = Field(description="the fit's residual s.d. in the fitted (transformed) space; see "
+                                                  "residual_sd_output")
+    residual_sd_output: float | None = Field(description="the fit's residual s.d. in output units: residual_sd times "
+                                                         "|dy/dz| (first order, GUM 5.1.2), at its largest over the "
+                                                         "operating range; equal to residual_sd when untransformed")
     rmse_output: float = Field(description="output units")
     r_squared: float | None
     n: int = Field(description="points fitted")
-    max_curve_change: float | None = Field(description="largest change of the curve over the range, output units")
+    max_curve_change: float | None = Field(description="largest |f_new(x) - f_before(x)| over the operating range "
+                                                       "(after the fit: its points count in the span of inputs), "
+                                                       "output units; null where a curve has no finite value")
+
+
+class CsvColumns(Answer):
+    """What was read from the csv text."""
+
+    x_columns: list[str] = Field(description="the input columns, by header name (or 'column N' without a header)")
+    y_column: str = Field(description="the reference value's column")
+    rows: int = Field(description="data rows read")
 
 
 class CalibrationAnswer(RawCoefficients, FitReport):
@@ -171,6 +206,7 @@ class CalibrationAnswer(RawCoefficients, FitReport):
 
     reference: ReferenceUsed | None = Field(description="the reference instrument named; null: none")
 
+    csv: CsvColumns | None = Field(description="the columns read from the csv text; null: no csv was given")
     snapshot_before: int | None = Field(description="snapshot of the state before the fit; null on a dry run")
     snapshot_after: int | None = Field(description="snapshot of the fitted state; null on a dry run")
     version: int

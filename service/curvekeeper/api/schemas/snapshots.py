@@ -58,18 +58,19 @@ class SnapshotCurve(SnapshotPublic):
     drift: DriftSummary
     config: ChannelConfig = Field(description="the channel's full configuration then")
     max_difference_from_current: float | None = Field(
-        description="largest |f_snapshot(x) - f_now(x)| over the input range, output units; "
-                    "null when the bases differ")
+        description="largest |f_snapshot(x) - f_now(x)| over the channel's operating range (see the channel's "
+                    "operating_range), output units; null when the bases differ")
 
 
 class CurveDifference(BaseModel):
-    """The largest difference between two curves over the standard grid of the input range."""
+    """The largest difference between two curves over a grid of the channel's operating range now
+    (where the sensor is used: see the channel's ``operating_range``)."""
 
     against: int | None = Field(description="the other snapshot; null: the current curve")
     max: float | None = Field(description="largest |f_a(x) - f_b(x)|, output units; null when the curves cannot be "
                                           "compared (another basis, no common finite point)")
     at: float | list[float] | None = Field(description="the raw input(s) where it is largest")
-    grid_points: int = Field(description="points of the grid over the input range")
+    grid_points: int = Field(description="points of the grid over the operating range")
     left_out: int = Field(description="grid points where either curve is not finite")
 
 

@@ -2,7 +2,10 @@
 // One channel: curve with its k·u band and recent samples, residuals, snapshots (overlay,
 // roll back), bench calibration from pasted CSV, events.
 const RECENT = 400;        // reference samples drawn on the plots
-const GRID = 201;          // points of the curve over the input range
+const GRID = 201;          // points of the curve over the operating range (or the whole input range)
+const SOURCES = { declared: "declared", samples: "the span of the samples",
+                  calibration: "no sample yet: the span of the last calibration's points",
+                  input_range: "nothing known yet: the whole input range" };
 const COLOURS = { curve: "#2c4d38", band: "rgba(63,107,79,0.18)", accepted: "#3b7ea1", rejected: "#a33a22",
                   overlay: "#6d3f74" };
 
@@ -60,6 +63,10 @@ function renderFacts() {
   fact(dl, "forecast", CK.forecastText(ch.forecast, outUnit(), true));
   fact(dl, "samples", `${ch.n_samples} stored, ${ch.n_rejected} held back as outliers`);
   fact(dl, "rmse", num(ch.rmse, outUnit(), 3));
+  fact(dl, "residual s.d.", residualSd(ch.residual_sd_output, ch.residual_sd));
+  (ch.operating_range || []).forEach((r) => fact(dl, `operating range${ch.inputs.length > 1 ? ` of ${r.name}` : ""}`,
+    `${num(r.min, unitOf(r.name))} to ${num(r.max, unitOf(r.name))} (${SOURCES[r.source] || r.source}); ` +
+    "curve changes and the tolerance check are taken over it"));
   fact(dl, "coverage factor", ch.coverage_factor === null || ch.coverage_factor === undefined
     ? `k from Student's t at ${num(100 * ch.coverage, "%", 4)} coverage`
     : `k = ${num(ch.coverage_factor, "", 3)}`);
@@ -70,6 +77,21 @@ function renderFacts() {
   fact(dl, "version", String(ch.version));
   fact(dl, "last sample (UTC)", CK.when(ch.last_sample_at));
 }
+
+const unitOf = (name) => (page.ch.inputs.find((i) => i.name === name) || {}).unit || "";
+const fitted = () => page.ch.output.transform && page.ch.output.transform !== "none";
+
+// the residual s.d. in output units (the service's figure), the fitted-space one beside it
+function residualSd(output, inFittedSpace) {
+  const { num } = CK;
+  if (output === null || output === undefined) return "–";
+  return num(output, outUnit(), 3) + (fitted()
+    ? ` (${num(inFittedSpace, "", 3)} in the fitted ${page.ch.output.transform} space)` : "");
+}
+
+const curveView = () => ({ whole: document.getElementById("curve-whole").checked,
+                           log: document.getElementById("curve-logx").checked });
+const curvePath = () => path(`/curve?points=${GRID}&over=${curveView().whole ? "input" : "operating"}`);
 
 function curveTraces() {
   const pts = page.curve.points.filter((p) => p.y !== null);
@@ -105,13 +127,39 @@ const PLOT_CONFIG = { displaylogo: false, responsive: true, modeBarButtonsToRemo
 function renderCurve() {
   const inp = page.ch.inputs[0];
   const o = page.ch.output;
+  const view = curveView();
+  const op = page.curve.operating_range[0];
+  const [lo, hi] = view.whole ? [inp.min, inp.max] : [op.min, op.max];
+  const logBox = document.getElementById("curve-logx");
+  logBox.disabled = !(lo > 0);  // a log axis needs inputs above zero
+  const log = view.log && lo > 0;
   const several = page.ch.inputs.length > 1 ? " (drawn against the first input; the others at the middle of their range)" : "";
+  const over = view.whole ? `the whole input range ${CK.num(inp.min, inp.unit)} to ${CK.num(inp.max, inp.unit)}`
+    : `the operating range ${CK.num(op.min, inp.unit)} to ${CK.num(op.max, inp.unit)} (${SOURCES[op.source] || op.source})`;
   document.getElementById("curve-caption").textContent =
-    `${o.name} (${o.unit}) against ${inp.name} (${inp.unit}) over ${CK.num(inp.min, inp.unit)} to ` +
-    `${CK.num(inp.max, inp.unit)}${several}; the band is ± U, the expanded uncertainty k·u at each point. ` +
-    `Last ${page.samples.length} reference samples shown.`;
-  return Plotly.react("curve-plot", curveTraces(), plotLayout(`${inp.name} (${inp.unit})`, `${o.name} (${o.unit})`),
-                      PLOT_CONFIG);
+    `${o.name} (${o.unit}) against ${inp.name} (${inp.unit}) over ${over}${several}${log ? ", log x axis" : ""}; ` +
+    `the band is ± U, the expanded uncertainty k·u at each point. Last ${page.samples.length} reference samples shown.`;
+  const layout = plotLayout(`${inp.name} (${inp.unit})`, `${o.name} (${o.unit})`);
+  const pad = lo < hi ? 0.02 * (log ? Math.log10(hi / lo) : hi - lo) : 0;
+  layout.xaxis.type = log ? "log" : "linear";
+  if (lo < hi) {
+    layout.xaxis.range = log ? [Math.log10(lo) - pad, Math.log10(hi) + pad] : [lo - pad, hi + pad];
+  }
+  const plot = document.getElementById("curve-plot");
+  plot.dataset.over = view.whole ? "input" : "operating";
+  plot.dataset.xaxis = layout.xaxis.type;
+  return Plotly.react("curve-plot", curveTraces(), layout, PLOT_CONFIG);
+}
+
+async function changeCurveView() {
+  const msg = document.getElementById("page-message");
+  try {
+    page.curve = await CK.api("GET", curvePath());
+    if (page.overlay) await overlaySnapshot(page.overlay.snapshot, true);
+    await renderCurve();
+  } catch (e) {
+    CK.say(msg, `Could not draw the curve: ${e.message}`, "error");
+  }
 }
 
 function renderResiduals() {
@@ -167,9 +215,8 @@ function eventSummary(ev) {
     if (k === "config") { parts.push("configuration"); continue; }
     if (k === "measured_at") continue;  // shown as the event's time
     if (v === null || v === undefined) continue;
-    const fitted = page.ch.output.transform && page.ch.output.transform !== "none";
-    const unit = ["max_curve_change", "rmse_output", "tolerance"].includes(k) ? outUnit()
-      : k === "residual_sd" ? (fitted ? "(fitted space)" : outUnit()) : "";
+    const unit = ["max_curve_change", "rmse_output", "tolerance", "residual_sd_output"].includes(k) ? outUnit()
+      : k === "residual_sd" ? (fitted() ? "(fitted space)" : outUnit()) : "";
     let text = typeof v === "number" ? CK.num(v, unit, 4)
       : typeof v === "object" ? JSON.stringify(v) : String(v);
     if (text.length > 80) text = text.slice(0, 77) + "…";
@@ -198,7 +245,7 @@ async function loadAll() {
   try {
     page.ch = await CK.api("GET", path());
     const [curve, samples, snapshots, events] = await Promise.all([
-      CK.api("GET", path(`/curve?points=${GRID}`)), loadRecentSamples(page.ch),
+      CK.api("GET", curvePath()), loadRecentSamples(page.ch),
       CK.all(path("/snapshots"), 1000, 20), CK.all(path("/events"), 1000, 10)]);
     Object.assign(page, { curve, samples, snapshots, events });
   } catch (e) {
@@ -266,7 +313,7 @@ async function askRollback(snapshot) {
        ` (${snapshot.reason}${snapshot.label ? `, “${snapshot.label}”` : ""}, version ${snapshot.version}, ` +
        `${snapshot.n_samples} samples, taken ${CK.when(snapshot.created_at)} UTC).`),
     el("ul", {},
-      el("li", { text: `Its curve changes by ${diff} over the input range.` }),
+      el("li", { text: `Its curve changes by ${diff} over the operating range.` }),
       el("li", { text: `The current state (version ${ch.version}) is first kept as a new snapshot, so this can be undone; ` +
                        `the channel's version becomes ${ch.version + 1}.` }),
       el("li", { text: "The restored curve becomes the reference for the tolerance check and the drift watch starts again." }),
@@ -296,29 +343,6 @@ async function doRollback() {
   }
 }
 
-function parsePoints(textValue, nInputs) {
-  const points = [];
-  const lines = textValue.split(/\r?\n/);
-  let seenData = false;
-  for (let i = 0; i < lines.length; i++) {
-    const line = lines[i].trim();
-    if (!line || line.startsWith("#")) continue;
-    const fields = line.split(/[,;\t]/).map((f) => f.trim());
-    const values = fields.map((f) => (f === "" ? NaN : Number(f)));
-    if (values.some((v) => !Number.isFinite(v))) {
-      if (!seenData && points.length === 0) { seenData = true; continue; }  // a header line
-      throw new Error(`line ${i + 1}: “${line.slice(0, 40)}” is not a row of numbers`);
-    }
-    seenData = true;
-    if (values.length !== nInputs + 1) {
-      throw new Error(`line ${i + 1}: expected ${nInputs + 1} values (${nInputs} input${nInputs > 1 ? "s" : ""} and the reference), found ${values.length}`);
-    }
-    const y = values[nInputs];
-    points.push({ x: nInputs === 1 ? values[0] : values.slice(0, nInputs), y });
-  }
-  return points;
-}
-
 let pendingFit = null;
 
 function showReport(report, rep) {
@@ -326,16 +350,22 @@ function showReport(report, rep) {
   const { num } = CK;
   report.replaceChildren();
   fact(report, "points fitted", String(rep.n));
+  if (rep.csv) {
+    fact(report, "read", `${rep.csv.rows} row${rep.csv.rows === 1 ? "" : "s"}: input${rep.csv.x_columns.length > 1 ? "s" : ""} ` +
+      `from ${rep.csv.x_columns.join(", ")}, reference from ${rep.csv.y_column}`);
+  }
   fact(report, "rms residual", num(rep.rmse_output, u, 3));
-  fact(report, "residual s.d.", page.ch.output.transform && page.ch.output.transform !== "none"
-    ? `${num(rep.residual_sd, "", 3)} (in the fitted ${page.ch.output.transform} space)` : num(rep.residual_sd, u, 3));
+  fact(report, "residual s.d.", residualSd(rep.residual_sd_output, rep.residual_sd));
   fact(report, "R²", `${rep.r_squared === null ? "–" : rep.r_squared.toFixed(6)} (dimensionless)`);
-  fact(report, "largest curve change", num(rep.max_curve_change, u, 3));
-  if (rep.raw_terms) {
+  fact(report, "largest curve change", rep.max_curve_change === null ? "– (no finite earlier curve to compare)"
+    : `${num(rep.max_curve_change, u, 3)} over the operating range`);
+  if (rep.raw_term_names) {  // the terms as the service names them (the command line shows the same)
     const sd = rep.raw_coefficient_sd || [];
-    fact(report, "coefficients", rep.raw_coefficients.map((c, i) =>
-      `${JSON.stringify(rep.raw_terms[i])}: ${num(c, "", 6)}${sd[i] != null ? ` ± ${num(sd[i], "", 2)}` : ""}`).join("; ") +
-      " (per raw term, fitted space)");
+    const terms = CK.el("ul", { class: "terms" }, ...rep.raw_coefficients.map((c, i) => CK.el("li", {
+      "data-term": rep.raw_term_names[i],
+      text: `${rep.raw_term_names[i]}: ${num(c, "", 6)}${sd[i] != null ? ` ± ${num(sd[i], "", 2)}` : ""}` })));
+    fact(report, "coefficients", terms, fitted() ? `per raw term, of the fitted ${page.ch.output.transform} space`
+                                                 : "per raw term");
   }
   if (rep.applied) {
     fact(report, "snapshots", `before ${rep.snapshot_before}, after ${rep.snapshot_after}`);
@@ -351,20 +381,21 @@ async function submitCalibration(ev) {
   const history = document.getElementById("calibrate-history").checked;
   apply.hidden = true;
   pendingFit = null;
-  let points;
-  try {
-    points = parsePoints(document.getElementById("calibrate-csv").value, page.ch.inputs.length);
-  } catch (e) {
-    CK.say(msg, e.message, "error");
-    return;
-  }
-  if (!points.length && !history) { CK.say(msg, "Paste at least one point, or fit the stored samples.", "error"); return; }
+  const text = document.getElementById("calibrate-csv").value;
+  const hasText = text.split(/\r?\n/).some((l) => l.trim() && !l.trim().startsWith("#"));
+  if (!hasText && !history) { CK.say(msg, "Paste at least one point, or fit the stored samples.", "error"); return; }
   const label = document.getElementById("calibrate-label").value.trim();
+  const xcols = document.getElementById("calibrate-xcols").value.split(",").map((c) => c.trim()).filter((c) => c);
+  const ycol = document.getElementById("calibrate-ycol").value.trim();
   const button = document.getElementById("calibrate-button");
   button.disabled = true;
-  CK.say(msg, `Fitting ${points.length} point${points.length === 1 ? "" : "s"} …`);
+  CK.say(msg, "Fitting …");
   try {
-    const body = { points, include_history: history };
+    // the service reads the CSV text (the command line sends the same), so both take the same files
+    const body = { include_history: history };
+    if (hasText) body.csv = text;
+    if (hasText && xcols.length) body.x_columns = xcols;
+    if (hasText && ycol) body.y_column = ycol;
     if (label) body.label = label;
     const rep = await CK.api("POST", path("/calibrate"), { ...body, dry_run: true });
     showReport(report, rep);
@@ -404,6 +435,8 @@ document.addEventListener("DOMContentLoaded", () => {
   document.getElementById("rollback-confirm").addEventListener("click", doRollback);
   document.getElementById("calibrate-form").addEventListener("submit", submitCalibration);
   document.getElementById("calibrate-apply").addEventListener("click", applyCalibration);
+  document.getElementById("curve-whole").addEventListener("change", changeCurveView);
+  document.getElementById("curve-logx").addEventListener("change", changeCurveView);
   document.getElementById("calibrate-file").addEventListener("change", async (ev) => {
     const file = ev.target.files && ev.target.files[0];
     if (file) document.getElementById("calibrate-csv").value = await file.text();
