@@ -151,7 +151,8 @@ NEW_IN_3 = ("reference_n", "reference_mean", "reference_var", "trace_bound", "in
 def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
     """A format-3 state as format 2 wrote it (no reference residuals, change points, RLS
     information vector, service state)."""
-    out = {k: v for k, v in state.items() if k not in ("change_weights", "info_b", "service")}
+    out = {k: v for k, v in state.items()
+           if k not in ("change_weights", "info_b", "service", "input_span", "calibration_span")}  # format 4's
     out["format"] = 2
     out["running"] = {k: v for k, v in state["running"].items() if k not in NEW_IN_3}
     out["detector"] = dict(state["detector"])
