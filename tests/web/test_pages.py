@@ -302,6 +302,7 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
 
     page.click(f"#snapshot-table button.rollback[data-snapshot='{day0['id']}']")
     dialog.wait_for(state="visible")
+    page.fill("#rollback-reason", "faulty probe: back to the day-0 curve")
     page.click("#rollback-confirm")
     page.wait_for_selector("#page-message.done")
     page.wait_for_selector(f"body[data-loaded='{before['version'] + 1}']")
@@ -310,6 +311,8 @@ def test_channel_page_draws_the_curve_overlays_a_snapshot_and_rolls_back(tab: Ta
     assert after["drift"]["tolerance_state"] == "ok"
     events = served.api.get(f"/v1/channels/{cid}/events?kind=rollback").json()["items"]
     assert events[-1]["details"]["snapshot"] == day0["id"] and events[-1]["version"] == after["version"]
+    assert events[-1]["details"]["reason"] == "faulty probe: back to the day-0 curve"  # the audit trail says why
+    assert events[-1]["details"]["set_reference"] is False  # the box was left unticked: the reference stays
     assert page.locator("#event-table tbody tr").first.get_attribute("data-kind") == "rollback"
     shot(page, "channel-after-rollback.png")
 
@@ -326,7 +329,12 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     page = tab.page
     sign_in(tab, served)
     cid = "coldstore.chill.p2"
+    ref = {"id": "bath.page-ref", "unit": "degC", "expanded_uncertainty": 0.04, "certificate": "PAGE-REF-1",
+           "calibrated_on": "2026-01-10", "due_on": "2031-01-10"}
+    made = served.api.post("/v1/references", json=ref)
+    assert made.status_code in (201, 409), made.text
     before = open_channel(tab, served, cid)
+    page.wait_for_selector("#calibrate-reference option[value='bath.page-ref']", state="attached")
     # bench points: the calibration event of day 0 holds the bath readings
     cal = served.api.get(f"/v1/channels/{cid}/events?kind=calibration").json()["items"][0]
     rows = ["raw_ohm,reference_degC", "# bath, day 0"] + [f"{x[0]},{y}" for x, y in cal["details"]["points"]]
@@ -338,6 +346,9 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
         page.wait_for_timeout(50)
     assert "reference_degC" in page.input_value("#calibrate-csv")
     page.fill("#calibrate-label", "bench check from the page")
+    page.select_option("#calibrate-reference", "bath.page-ref")
+    page.fill("#calibrate-conditions", "bath stirred, ambient 21 degC")
+    page.fill("#calibrate-reason", "yearly check")
     page.click("#calibrate-button")
     # first a preview: the report is shown and nothing has changed
     page.wait_for_selector("#calibrate-message.preview")
@@ -361,6 +372,10 @@ def test_calibrate_from_pasted_csv(tab: Tab, served: Served) -> None:
     assert after["version"] == before["version"] + 1
     events = served.api.get(f"/v1/channels/{cid}/events?kind=calibration").json()["items"]
     assert events[-1]["details"]["label"] == "bench check from the page"
+    assert events[-1]["details"]["reason"] == "yearly check"
+    record = served.api.get(f"/v1/channels/{cid}/calibrations/{events[-1]['details']['record']}").json()
+    assert [r["certificate"] for r in record["references"]] == ["PAGE-REF-1"]
+    assert record["conditions"]["note"] == "bath stirred, ambient 21 degC"
     assert events[-1]["details"]["n"] == len(cal["details"]["points"])
     shot(page, "calibrate.png")
 

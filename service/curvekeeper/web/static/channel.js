@@ -316,8 +316,10 @@ async function askRollback(snapshot) {
       el("li", { text: `Its curve changes by ${diff} over the operating range.` }),
       el("li", { text: `The current state (version ${ch.version}) is first kept as a new snapshot, so this can be undone; ` +
                        `the channel's version becomes ${ch.version + 1}.` }),
-      el("li", { text: "The restored curve becomes the reference for the tolerance check and the drift watch starts again." }),
+      el("li", { text: "The reference curve (of the last calibration) stays, unless you tick the box below." }),
       el("li", { text: "Stored samples stay stored; they are not learned again." })));
+  document.getElementById("rollback-reason").value = "";
+  document.getElementById("rollback-set-reference").checked = false;
   dialog.showModal();
 }
 
@@ -328,7 +330,11 @@ async function doRollback() {
   const button = document.getElementById("rollback-confirm");
   button.disabled = true;
   try {
-    const res = await CK.api("POST", path("/rollback"), { snapshot: snapshot.id });
+    const body = { snapshot: snapshot.id };
+    const reason = document.getElementById("rollback-reason").value.trim();
+    if (reason) body.reason = reason;
+    if (document.getElementById("rollback-set-reference").checked) body.set_reference = true;
+    const res = await CK.api("POST", path("/rollback"), body);
     dialog.close();
     page.overlay = null;
     document.getElementById("overlay-result").textContent = "";
@@ -397,6 +403,15 @@ async function submitCalibration(ev) {
     if (hasText && xcols.length) body.x_columns = xcols;
     if (hasText && ycol) body.y_column = ycol;
     if (label) body.label = label;
+    const reason = document.getElementById("calibrate-reason").value.trim();
+    if (reason) body.reason = reason;
+    const reference = document.getElementById("calibrate-reference").value;
+    if (reference) {
+      body.reference = reference;
+      body.allow_overdue_reference = document.getElementById("calibrate-allow-overdue").checked;
+    }
+    const note = document.getElementById("calibrate-conditions").value.trim();
+    if (note) body.conditions = { values: {}, note };
     const rep = await CK.api("POST", path("/calibrate"), { ...body, dry_run: true });
     showReport(report, rep);
     pendingFit = body;
@@ -429,6 +444,17 @@ async function applyCalibration() {
   }
 }
 
+async function loadReferences() {
+  // the reference instruments a calibration may name: not retired, overdue ones marked
+  const select = document.getElementById("calibrate-reference");
+  try {
+    const refs = await CK.all("/v1/references?retired=false");
+    select.replaceChildren(CK.el("option", { value: "", text: "none named" }), ...refs.map((r) =>
+      CK.el("option", { value: r.id, text: `${r.id} (certificate ${r.certificate}, due ${r.due_on}` +
+                                             `${r.due_state === "overdue" ? ", OVERDUE" : ""})` })));
+  } catch (_) { /* a key that may not list them calibrates without naming one */ }
+}
+
 document.addEventListener("DOMContentLoaded", () => {
   if (!CK.key()) { location.assign("/ui/"); return; }
   document.getElementById("rollback-cancel").addEventListener("click", () => document.getElementById("rollback-dialog").close());
@@ -442,4 +468,5 @@ document.addEventListener("DOMContentLoaded", () => {
     if (file) document.getElementById("calibrate-csv").value = await file.text();
   });
   loadAll();
+  loadReferences();
 });
