@@ -1,9 +1,11 @@
-"""``curvekeeper demo``: the cold store's sixty days, told in about a minute.
+"""``curvekeeper demo``: the cold store's sixty days, told in about 20 seconds.
 
-Starts the service on a SQLite file, creates a channel per probe, calibrates each on the
-bench, streams the scenario through a simulated fleet in accelerated time, then tells
-which probe drifted, when its alarm fired, and rolls that probe back to the snapshot
-the alarm took. The service then keeps running until Ctrl-C.
+Starts the service on a SQLite file, creates the reference thermometer and a channel per
+probe, calibrates each on the bench against that reference (a record each), streams the
+scenario through a simulated fleet in accelerated time, then tells which probe drifted,
+when its alarm fired, rolls that probe back to the snapshot the alarm took, and reads the
+forecast of the probe expected to leave tolerance before its due date. The service then
+keeps running until Ctrl-C.
 """
 
 from __future__ import annotations
