@@ -73,6 +73,8 @@ def _the_records_and_the_forecast(db: Path, result: DemoResult, text: str) -> No
     assert result.leaves_tolerance_on == ch["forecast"]["leaves_tolerance_on"]
     assert (f"it is expected to leave tolerance on {result.leaves_tolerance_on[:10]}" in text
             and f"before its recalibration is due on {result.due_on}" in text)
+    assert (f"{scenario.FORECAST} (forecast to leave tolerance on {result.leaves_tolerance_on[:10]}, due on "
+            f"{result.due_on})") in text
     # the closing text points at the records and the report
     assert f"--reference {rid} --dry-run" in text and "/ui/references" in text
     assert f"/ui/channels/{scenario.FORECAST}" in text and f"curvekeeper report {scenario.FORECAST} --out" in text

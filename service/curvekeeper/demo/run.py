@@ -101,8 +101,9 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         say("  curvekeeper channels list")
         say(f"Admin commands on the demo's store take --db sqlite:///{db}, e.g. "
             f"curvekeeper keys create --role technician --db sqlite:///{db}")
+        when = (result.leaves_tolerance_on or "not within a year")[:10]
         say(f"Look at {scenario.FAULTY} (the alarm and the rollback), {scenario.AGEING} (out of tolerance) and "
-            f"{scenario.FORECAST} (leaves tolerance before its due date).")
+            f"{scenario.FORECAST} (forecast to leave tolerance on {when}, due on {result.due_on}).")
         _tell_records(db, url, seed, say)
         # the alarm was acknowledged, so the probe is no longer in alarm: show its alarm event
         auth = f"curl -s -H 'Authorization: Bearer {key}'"
