@@ -1,4 +1,4 @@
-"""``curvekeeper demo``: the cold store's sixty days, told in about 20 seconds.
+"""``curvekeeper demo``: the cold store's sixty days, told in about 15 seconds.
 
 Starts the service on a SQLite file, creates the reference thermometer and a channel per
 probe, calibrates each on the bench against that reference (a record each), streams the
