@@ -117,7 +117,7 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--access-log", action="store_true", help="log every request")
     serve.set_defaults(func=cmd_serve)
 
-    demo = sub.add_parser("demo", help="run the service with the cold-store demo (about a minute), then serve")
+    demo = sub.add_parser("demo", help="run the service with the cold-store demo (about 15 s), then serve")
     demo.add_argument("--db-file", default="curvekeeper-demo.db", help="SQLite file of the demo (replaced)")
     demo.add_argument("--host", default="127.0.0.1", help="address to serve on (default 127.0.0.1: this machine only)")
     demo.add_argument("--port", type=int, default=8000, help="port to serve on (default 8000)")

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from curvekeeper.demo import scenario
-from curvekeeper.demo.run import run_demo
+from curvekeeper.demo.run import DemoResult, run_demo
 
 
 def free_port() -> int:
@@ -22,8 +22,11 @@ def test_the_demo_flags_the_faulty_probe_only_and_its_rollback_restores_the_snap
     lines: list[str] = []
     result = run_demo(db=tmp_path / "demo.db", port=free_port(), fast=True, say=lines.append, keep_running=False)
     # the faulty probe's step and the fast-ageing probe raise the drift alarm, the ordinary
-    # ageing of the others (0.002 % a day) does not
-    assert sorted(result.alarms) == sorted([scenario.FAULTY, scenario.AGEING])
+    # ageing of the others (0.0002 % a day) does not; the forecast probe's (0.01 % a day) may,
+    # with a reading every 2 hours, and the story then tells it
+    assert set(result.alarms) - {scenario.FORECAST} == {scenario.FAULTY, scenario.AGEING}
+    if scenario.FORECAST in result.alarms:
+        assert "  Its drift alarm came on day" in "\n".join(lines).split("Forecast:")[1]
     assert result.alarm_day is not None and scenario.FAULT_DAY <= result.alarm_day < scenario.FAULT_DAY + 1
     # the ageing probe also leaves tolerance; the rest are healthy
     assert result.out_of_tolerance == [scenario.AGEING]
@@ -37,6 +40,44 @@ def test_the_demo_flags_the_faulty_probe_only_and_its_rollback_restores_the_snap
     assert f"export CURVEKEEPER_URL={result.url}" in text and f"export CURVEKEEPER_KEY={result.key}" in text
     assert f"--db sqlite:///{tmp_path / 'demo.db'}" in text
     assert "does not replace traceable, accredited calibration" in text  # the closing caution
+    _the_records_and_the_forecast(tmp_path / "demo.db", result, text)
+
+
+def _the_records_and_the_forecast(db: Path, result: DemoResult, text: str) -> None:
+    """The reference with its certificate, a day-0 record naming it on every probe, and the
+    forecast probe expected to leave tolerance before its due date, read back from the store."""
+    from curvekeeper.api import create_app
+    from curvekeeper.config import Settings
+    from fastapi.testclient import TestClient
+
+    secret = "ck_demo-test-readback-0123456789"
+    rid = scenario.REFERENCE["id"]
+    with TestClient(create_app(Settings(database_url=f"sqlite:///{db}", admin_key=secret))) as api:
+        api.headers["Authorization"] = f"Bearer {secret}"
+        ref = api.get(f"/v1/references/{rid}").json()
+        assert (ref["certificate"], ref["calibrated_on"], ref["due_on"]) == ("CS-TH-2026-0917", "2026-09-14",
+                                                                            "2027-09-14")
+        assert ref["standard_uncertainty"] == pytest.approx(0.01)  # U 0.02 at k 2 (GUM 4.3.3: u = U / k)
+        for p in scenario.PROBES:
+            cid = scenario.channel_id(p)
+            records = api.get(f"/v1/channels/{cid}/calibrations").json()["items"]
+            day0 = [r for r in records if r["at"] == "2026-10-01T00:00:00Z"]
+            assert [r["id"] for r in day0] == [result.records[cid]], cid
+            assert [r["id"] for r in day0[0]["references"]] == [rid]
+            assert len(day0[0]["as_found"]) == len(day0[0]["as_left"]) == 30 and day0[0]["verdict"] == "pass"
+        ch = api.get(f"/v1/channels/{scenario.FORECAST}").json()
+    # within tolerance at the end, expected to leave it before its due date (day 0 + 365 days)
+    assert ch["drift"]["max_curve_change"] < ch["drift"]["tolerance"] and ch["due_on"] == "2027-10-01"
+    assert ch["forecast"]["leaves_tolerance_on"] is not None
+    assert ch["forecast"]["leaves_tolerance_on"][:10] < ch["due_on"] == result.due_on
+    assert result.leaves_tolerance_on == ch["forecast"]["leaves_tolerance_on"]
+    assert (f"it is expected to leave tolerance on {result.leaves_tolerance_on[:10]}" in text
+            and f"before its recalibration is due on {result.due_on}" in text)
+    assert (f"{scenario.FORECAST} (forecast to leave tolerance on {result.leaves_tolerance_on[:10]}, due on "
+            f"{result.due_on})") in text
+    # the closing text points at the records and the report
+    assert f"--reference {rid} --dry-run" in text and "/ui/references" in text
+    assert f"/ui/channels/{scenario.FORECAST}" in text and f"curvekeeper report {scenario.FORECAST} --out" in text
 
 
 def test_the_demo_tells_its_progress_without_a_terminal() -> None:

@@ -1,9 +1,11 @@
-"""``curvekeeper demo``: the cold store's sixty days, told in about a minute.
+"""``curvekeeper demo``: the cold store's sixty days, told in about 15 seconds.
 
-Starts the service on a SQLite file, creates a channel per probe, calibrates each on the
-bench, streams the scenario through a simulated fleet in accelerated time, then tells
-which probe drifted, when its alarm fired, and rolls that probe back to the snapshot
-the alarm took. The service then keeps running until Ctrl-C.
+Starts the service on a SQLite file, creates the reference thermometer and a channel per
+probe, calibrates each on the bench against that reference (a record each), streams the
+scenario through a simulated fleet in accelerated time, then tells which probe drifted,
+when its alarm fired, rolls that probe back to the snapshot the alarm took, and reads the
+forecast of the probe expected to leave tolerance before its due date. The service then
+keeps running until Ctrl-C.
 """
 
 from __future__ import annotations
@@ -29,6 +31,9 @@ from .simulator import simulate
 
 T0 = datetime(2026, 10, 1, tzinfo=UTC)
 GATEWAY_ROOMS = ("chill", "produce")
+#: time steps per request: every device posts half a day of readings at once (at a reading
+#: every 30 minutes), the gateway half a day of its probes'; fewer, larger requests
+BATCH_STEPS = 24
 
 
 @dataclass
@@ -42,6 +47,11 @@ class DemoResult:
     rollback_restores: bool = False
     #: the faulty probe after the technician's steps: its service state and drift state
     faulty_after: tuple[str, str] | None = None
+    #: the day-0 calibration record's id per probe
+    records: dict[str, int] = field(default_factory=dict)
+    #: the forecast probe at the end: when it is expected to leave tolerance, and its due date
+    leaves_tolerance_on: str | None = None
+    due_on: str | None = None
     samples: int = 0
     seconds: float = 0.0
 
@@ -91,7 +101,10 @@ def run_demo(*, db: Path, host: str = "127.0.0.1", port: int = 8000, fast: bool 
         say("  curvekeeper channels list")
         say(f"Admin commands on the demo's store take --db sqlite:///{db}, e.g. "
             f"curvekeeper keys create --role technician --db sqlite:///{db}")
-        say(f"Look at {scenario.FAULTY} (the alarm and the rollback) and {scenario.AGEING} (out of tolerance).")
+        when = (result.leaves_tolerance_on or "not within a year")[:10]
+        say(f"Look at {scenario.FAULTY} (the alarm and the rollback), {scenario.AGEING} (out of tolerance) and "
+            f"{scenario.FORECAST} (forecast to leave tolerance on {when}, due on {result.due_on}).")
+        _tell_records(db, url, seed, say)
         # the alarm was acknowledged, so the probe is no longer in alarm: show its alarm event
         auth = f"curl -s -H 'Authorization: Bearer {key}'"
         say(f"Try: {auth} '{url}/v1/channels/{scenario.FAULTY}/events?kind=drift_alarm'")
@@ -121,16 +134,24 @@ def _story(c: Client, result: DemoResult, *, fast: bool, seed: int, say: Callabl
         f"thermometer: 60 days of readings every {step:.0f} minutes.")
     for p in scenario.PROBES:
         c.create_channel(scenario.channel_config(p))
-    say("Day 0: each probe is calibrated in a bath against the reference (Steinhart-Hart fit).")
+    ref = c.request("POST", "/v1/references", json=scenario.REFERENCE, idempotent=False)
+    say(f"The reference thermometer {ref['id']}: certificate {ref['certificate']}, U = {ref['expanded_uncertainty']} "
+        f"degC (k = {ref['coverage_factor']}), calibrated {ref['calibrated_on']}, due {ref['due_on']}.")
+    say("Day 0: each probe is calibrated in a bath against it (Steinhart-Hart fit); each calibration is recorded.")
     for cid in probes:
-        rep = c.request("POST", f"/v1/channels/{cid}/calibrate",
-                        json={"points": scenario.bench_points(seed, cid), "label": "day-0 bath calibration"})
-        say(f"  {cid:24} residual {rep['rmse_output'] * 1000:5.1f} mdegC over {rep['n']} points")
+        rep = c.request("POST", f"/v1/channels/{cid}/calibrate", idempotent=False, json={
+            "points": scenario.bench_points(seed, cid), "label": "day-0 bath calibration",
+            "reference": ref["id"], "at": T0.isoformat(),
+            "conditions": {"values": {"bath": "stirred ethanol-water bath"}, "note": "10 min soak at each set point"}})
+        result.records[cid] = rep["calibration"]
+        record = rep["record"]
+        say(f"  {cid:24} residual {rep['rmse_output'] * 1000:5.1f} mdegC over {rep['n']} points; record "
+            f"{rep['calibration']}: as found {record['as_found_verdict']}, as left {record['verdict']}")
     gateway = [cid for cid in probes if cid.split(".")[1] in GATEWAY_ROOMS]
     say(f"Streaming {len(stream.channel):,} samples: {', '.join(GATEWAY_ROOMS)} rooms through gateway gw-1, "
         "the other probes as single devices ...")
     total = len(stream.channel)
-    report = simulate(c, stream, t0=T0, gateway=gateway,
+    report = simulate(c, stream, t0=T0, gateway=gateway, gateway_steps=BATCH_STEPS, device_batch=BATCH_STEPS,
                       progress=None if progress is None else (lambda k: progress(k, total)))
     result.samples = report.accepted + report.rejected
     say(f"  {report.requests} requests: {report.accepted:,} samples learned, {report.rejected} held back "
@@ -149,9 +170,39 @@ def _story(c: Client, result: DemoResult, *, fast: bool, seed: int, say: Callabl
             day, _ = _first_alarm(c, ch["id"])
             say(f"  Its drift alarm came on day {day:.1f}, when its readings had moved from the day-0 curve "
                 "faster than a slow ageing would; a recalibration clears it.")
-    for ch in alarm:
-        if ch["id"] not in result.out_of_tolerance:
-            _tell_alarm(c, ch["id"], result, say)
+    if scenario.FAULTY in result.alarms:
+        _tell_alarm(c, scenario.FAULTY, result, say)
+    _tell_forecast(c, result, say)
+
+
+def _tell_forecast(c: Client, result: DemoResult, say: Callable[[str], None]) -> None:
+    """The forecast probe: still within tolerance, expected to leave it before its due date."""
+    ch = c.request("GET", f"/v1/channels/{scenario.FORECAST}")
+    f, d = ch["forecast"] or {}, ch["drift"]
+    result.due_on, result.leaves_tolerance_on = ch["due_on"], f.get("leaves_tolerance_on")
+    when = "not within a year" if result.leaves_tolerance_on is None else result.leaves_tolerance_on[:10]
+    say(f"Forecast: {scenario.FORECAST} is within tolerance (its curve moved {d['max_curve_change']:.3f} of "
+        f"{d['tolerance']} degC), but drifts {f.get('rate', 0.0) * 365:.2f} degC a year: it is expected to leave "
+        f"tolerance on {when} (95 % interval {(f.get('low') or '?')[:10]} to {(f.get('high') or '?')[:10]}), "
+        f"before its recalibration is due on {result.due_on}: bring its bench check forward.")
+    if scenario.FORECAST in result.alarms:  # with a reading every 2 hours (--fast) its ageing trips the detector
+        day, _ = _first_alarm(c, scenario.FORECAST)
+        say(f"  Its drift alarm came on day {day:.1f}: its readings moved from the day-0 curve faster than a slow "
+            "ageing would.")
+
+
+def _tell_records(db: Path, url: str, seed: int, say: Callable[[str], None]) -> None:
+    """Where the calibration records are: the CLI's dry run, the pages, the PDF report."""
+    bench = db.parent / f"{db.stem}-{scenario.FORECAST}-day60.csv"
+    points = scenario.bench_points(seed, scenario.FORECAST, day=60.0)
+    bench.write_text("x,y\n" + "".join(f"{p['x']},{p['y']}\n" for p in points))
+    cid, rid = scenario.FORECAST, scenario.REFERENCE["id"]
+    say("The calibration records:")
+    say(f"  curvekeeper calibrate {cid} {bench} --reference {rid} --dry-run")
+    say("    a bench check of that probe on day 60: its as-found table and verdict, nothing applied")
+    say(f"  {url}/ui/channels/{cid}: the calibration history, as found and as left, with the verdicts")
+    say(f"  {url}/ui/references: the reference thermometer, its certificate and due date")
+    say(f"  curvekeeper report {cid} --out report.pdf: the day-0 record as a PDF report")
 
 
 def _first_alarm(c: Client, cid: str) -> tuple[float, dict[str, Any]]:

@@ -12,9 +12,13 @@ Physics (all invented, seeded):
   freezer, a defrost cycle every 8 hours. The probe and its reference see the same air.
 - Reading noise: 0.02 % of the resistance (the logger's ADC); reference thermometer
   noise 0.02 degC (s.d.).
-- Ageing: every probe's resistance creeps by about 0.002 % a day; the dock's first
-  probe, by the door, by 0.03 % a day (about 0.25 degC over 60 days), which the
-  learner follows and the tolerance check reports.
+- Ageing: every probe's resistance creeps by 0.0002 % a day (about 0.015 degC a year,
+  well inside the tolerance of 0.15 degC: the forecast says "not within a year"); the
+  dock's first probe, by the door, by 0.03 % a day (about 0.4 degC over 60 days), which
+  the learner follows and the tolerance check reports; the freezer's second probe,
+  strained by the defrost cycles, by 0.01 % a day (about 0.1 degC over 60 days): still
+  within tolerance at the end, but its forecast leaves tolerance long before its
+  yearly recalibration is due.
 - The produce room's second probe takes in moisture on day 40: its resistance drops
   by 0.6 % at once (about +0.13 degC), a fault the drift detector must flag.
 - One reading in 500 is a contact glitch: the resistance reads 30 % off.
@@ -33,6 +37,18 @@ PROBES = [f"{room}.p{i}" for room in ROOMS for i in (1, 2)]
 SITE = "coldstore"
 FAULTY = f"{SITE}.produce.p2"
 AGEING = f"{SITE}.dock.p1"
+FORECAST = f"{SITE}.freezer.p2"
+#: relative resistance creep per day: the ordinary probes', the dock's first and the freezer's second
+AGEING_PER_DAY = {"": 2e-6, AGEING: 3e-4, FORECAST: 1e-4}
+INTERVAL_DAYS = 365  # every probe's recalibration interval
+#: the invented reference thermometer beside the probes (and in the day-0 bath), with an
+#: invented certificate: U = 0.02 degC at k = 2
+REFERENCE: dict[str, object] = {
+    "id": f"{SITE}.ref-thermometer-1", "unit": "degC",
+    "description": "reference thermometer: platinum resistance probe with its indicator (invented)",
+    "expanded_uncertainty": 0.02, "coverage_factor": 2.0, "certificate": "CS-TH-2026-0917",
+    "calibrated_on": "2026-09-14", "due_on": "2027-09-14",
+    "note": "invented: calibrated by an invented accredited laboratory against the national temperature scale"}
 FAULT_DAY = 40.0
 GLITCH_RATE = 1 / 500
 
@@ -54,6 +70,7 @@ def channel_config(probe: str) -> dict[str, object]:
         "drift": {"detector": "page_hinkley", "tolerance": 0.15},
         "outlier_sd": 6.0,
         "snapshot_every": 500,
+        "recalibration_interval_days": INTERVAL_DAYS,
     }
 
 
@@ -91,7 +108,7 @@ def make_probes(seed: int) -> dict[str, Probe]:
     for p in PROBES:
         cid = channel_id(p)
         probes[cid] = Probe(cid, float(rng.normal(0, 0.005)), float(rng.normal(0, 0.002)),
-                            3e-4 if cid == AGEING else 2e-5, FAULT_DAY if cid == FAULTY else None, -0.006)
+                            AGEING_PER_DAY.get(cid, AGEING_PER_DAY[""]), FAULT_DAY if cid == FAULTY else None, -0.006)
     return probes
 
 
@@ -140,14 +157,16 @@ def stream(seed: int = 7, days: float = 60.0, step_min: float = 30.0) -> Stream:
     return Stream(channels, np.repeat(day, len(parts)), raw, ref)
 
 
-def bench_points(seed: int, probe: str) -> list[dict[str, float]]:
-    """A day-0 bath calibration of one probe: 3 readings at each of 10 set points."""
-    rng = np.random.default_rng([seed, PROBES.index(probe.removeprefix(f"{SITE}."))])
+def bench_points(seed: int, probe: str, day: float = 0.0) -> list[dict[str, float]]:
+    """A bath calibration of one probe on ``day`` (day 0 by default): 3 readings at each of
+    10 set points, x the resistance (ohm), y the reference (degC)."""
+    key = [seed, PROBES.index(probe.removeprefix(f"{SITE}."))]
+    rng = np.random.default_rng(key + [int(day)] if day else key)  # day 0: the same points as ever
     p = make_probes(seed)[probe]
     points = []
     for bath in (-28.0, -20.0, -10.0, -2.0, 2.0, 6.0, 10.0, 16.0, 25.0, 35.0):
         t = bath + rng.normal(0, 0.01, 3)
-        raw = p.resistance(t, np.zeros(3)) * (1 + rng.normal(0, 2e-4, 3))
+        raw = p.resistance(t, np.full(3, day)) * (1 + rng.normal(0, 2e-4, 3))
         ref = t + rng.normal(0, 0.01, 3)
         points += [{"x": round(float(x), 2), "y": round(float(y), 4)} for x, y in zip(raw, ref, strict=True)]
     return points
