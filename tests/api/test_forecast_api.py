@@ -38,9 +38,10 @@ def calibrated(client: TestClient, admin: dict[str, str], cid: str, rng: np.rand
 
 
 def feed(client: TestClient, admin: dict[str, str], cid: str, rng: np.random.Generator, days: int,
-         rate: float, per_day: int = 24) -> None:
-    """One request a day, ``per_day`` samples an hour apart, the reference offset by rate x days."""
-    for day in range(days):
+         rate: float, per_day: int = 24, start_day: int = 0) -> None:
+    """One request a day from ``start_day``, ``per_day`` samples an hour apart, the reference
+    offset by rate x days."""
+    for day in range(start_day, start_day + days):
         hours = day + np.arange(per_day) / per_day
         x = rng.uniform(0, 100, per_day)
         y = truth(x) + rate * hours + SIG * rng.standard_normal(per_day)
@@ -127,9 +128,14 @@ def test_the_trace_starts_afresh_at_a_calibration_and_needs_a_tolerance(client: 
         "points": [{"x": float(a), "y": float(b)} for a, b in zip(xc, truth(xc), strict=True)]}))
     assert trace(client, "cal.p1") == []
     assert ok(client.get("/v1/channels/cal.p1", headers=admin))["forecast"] is None
-    # a rollback that keeps the reference keeps the trace; one that sets it starts afresh
+    # a rollback that keeps the reference keeps the trace up to the snapshot (the restored
+    # curve's history), dropping what later curves recorded; one that sets it starts afresh
     feed(client, admin, "cal.p1", rng, 3, RATE, per_day=2)
     snap = ok(client.post("/v1/channels/cal.p1/snapshots", headers=admin, json={}), 201)["id"]
+    ok(client.post("/v1/channels/cal.p1/rollback", headers=admin, json={"snapshot": snap}))
+    assert len(trace(client, "cal.p1")) == 3
+    feed(client, admin, "cal.p1", rng, 2, RATE, per_day=2, start_day=3)
+    assert len(trace(client, "cal.p1")) == 5
     ok(client.post("/v1/channels/cal.p1/rollback", headers=admin, json={"snapshot": snap}))
     assert len(trace(client, "cal.p1")) == 3
     ok(client.post("/v1/channels/cal.p1/rollback", headers=admin, json={"snapshot": snap, "set_reference": True}))

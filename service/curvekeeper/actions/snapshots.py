@@ -120,6 +120,8 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
                                      "set_reference": set_reference, **({"reason": reason} if reason else {})}}])
     if set_reference:  # a new reference curve: the trace starts afresh, as after a calibration
         repo.clear_trace(ch.pk)
+    else:  # the restored curve's history is the trace up to its snapshot, not the curves after it
+        repo.clear_trace(ch.pk, after_version=snap.version)
     out = view(ch, st, model, of_channel(repo, ch.pk, model.config))
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id

@@ -445,8 +445,13 @@ class Repository:
         self.session.add(CurveTrace(channel_pk=channel_pk, t=t, difference=difference, u=u, version=version))
         self.session.flush()
 
-    def clear_trace(self, channel_pk: int) -> None:
-        self.session.execute(delete(CurveTrace).where(CurveTrace.channel_pk == channel_pk))
+    def clear_trace(self, channel_pk: int, after_version: int | None = None) -> None:
+        """Delete the channel's trace points; with ``after_version``, only those recorded by
+        later versions of its curve."""
+        stmt = delete(CurveTrace).where(CurveTrace.channel_pk == channel_pk)
+        if after_version is not None:
+            stmt = stmt.where(CurveTrace.version > after_version)
+        self.session.execute(stmt)
 
     def traces(self, channel_pks: Sequence[int]) -> dict[int, list[tuple[datetime, float, float | None]]]:
         """Each channel's trace points (t, difference, u), oldest first, in one query."""
