@@ -160,12 +160,14 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
 
 #: the calibration settings 0008 fills in, as it fills them
 NEW_IN_0008 = {"decision_rule": "simple", "recalibration_interval_days": 365, "due_soon_days": 30}
+#: the silence watch's setting 0010 fills in: not watched
+NEW_IN_0010 = {"expected_interval": None}
 
 
 def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
     # require_reference came later still (0007), the calibration settings in 0008
     out = {k: v for k, v in config.items()
-           if k not in ("coverage", "reference", "range_margin", "require_reference", *NEW_IN_0008)}
+           if k not in ("coverage", "reference", "range_margin", "require_reference", *NEW_IN_0008, *NEW_IN_0010)}
     out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
     out["coverage_factor"] = 2.0
     return out
@@ -173,7 +175,7 @@ def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
 
 def _filled(config: dict[str, Any]) -> dict[str, Any]:
     return {"coverage": 0.95, "reference": None, "range_margin": 1.0, "require_reference": False, **NEW_IN_0008,
-            **config,
+            **NEW_IN_0010, **config,
             "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
 
 
@@ -230,7 +232,7 @@ def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_even
     interval and a 30-day due-soon window, and a due date 365 days after its latest
     calibration event; one never calibrated has none. Downgrading removes them again."""
     config = channel_config({"id": "site-c.p3", "inputs": [{"name": "raw", "min": 0, "max": 10}]})
-    old = {k: v for k, v in config.items() if k not in NEW_IN_0008}
+    old = {k: v for k, v in config.items() if k not in {**NEW_IN_0008, **NEW_IN_0010}}
     state = ChannelModel.from_config(config).to_state()
     at = datetime(2026, 3, 1, 9, 30, tzinfo=UTC)
     engine = make_engine(empty_url)
