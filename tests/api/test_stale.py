@@ -9,6 +9,7 @@ Bad input first; every refused request leaves the store as it was (``expect_erro
 from __future__ import annotations
 
 import asyncio
+import threading
 from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
 from typing import Any
@@ -228,3 +229,21 @@ def test_the_service_sweeps_every_interval(client: TestClient, keys: Keys, make_
         asyncio.run(stale.sweep_forever(work(client), 7.5, sleep))
     assert slept == [7.5, 7.5, 7.5]
     assert len(events(client, keys, "stale")) == 1  # two sweeps ran; the event was written once
+
+
+def test_two_sweeps_at_once_write_one_event(client: TestClient, keys: Keys, make_channel: Any, clock: Clock) -> None:
+    """Another sweep (as another process's) starts while this one has marked the channel and
+    not yet committed: it waits for the row, then finds it marked. Whichever order the two
+    end up in, one of them marks it and the other finds nothing."""
+    make_channel(CH, expected_interval=60)
+    clock.at(180)
+    w = work(client)
+    other: list[int] = []
+    with w.unit(write=True) as unit:
+        first = stale.sweep(unit.repo, unit.now())
+        t = threading.Thread(target=lambda: other.append(stale.sweep_all(w)))
+        t.start()
+        t.join(0.2)  # give it the time to reach the row (not needed for the result)
+    t.join()
+    assert (first, other) == (1, [0])
+    assert len(events(client, keys, "stale")) == 1
