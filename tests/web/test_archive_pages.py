@@ -148,3 +148,5 @@ def test_the_pages_and_the_command_line_share_one_display_rule(tab: Tab, served:
                      "y.later", "a-ok", "a.ok", "b.ok", "x.stable", "0.gone", "1.gone"]
     ranks = page.evaluate("(items) => items.map((c) => CK.rank(c))", CHANNELS)
     assert ranks == [display.rank(c) for c in CHANNELS]
+    assert page.evaluate("() => [CK.badge('stale').textContent, CK.badge('stale').className]") == \
+        ["stale", "state state-stale"]
