@@ -214,6 +214,20 @@ def test_an_archived_channel_is_not_watched_and_unarchiving_restarts_the_watch(c
     assert sweep(client) == 1
 
 
+def test_a_rollback_that_brings_back_the_interval_brings_back_the_watch(client: TestClient, keys: Keys,
+                                                                       make_channel: Any, clock: Clock) -> None:
+    make_channel(CH, expected_interval=60)
+    tech = keys["technician"]
+    snap = ok(client.post(f"{BASE}/snapshots", json={"label": "watched"}, headers=tech), 201)
+    ok(client.patch(BASE, json={"expected_interval": None}, headers=tech))
+    clock.at(500)
+    assert channel(client, keys)["stale"] is False and sweep(client) == 0
+    ch = ok(client.post(f"{BASE}/rollback", json={"snapshot": snap["id"]}, headers=tech))
+    assert ch["expected_interval"] == 60 and ch["stale"] is True  # silent since its creation: T0 + 180 s
+    assert ch["stale_since"] == "2026-11-02T08:03:00Z"
+    assert sweep(client) == 1
+
+
 def test_the_service_sweeps_every_interval(client: TestClient, keys: Keys, make_channel: Any, clock: Clock) -> None:
     """The lifespan's loop, with its sleep replaced: it sleeps, then sweeps, again and again."""
     make_channel(CH, expected_interval=1)
