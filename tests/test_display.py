@@ -33,6 +33,8 @@ def test_channels_come_attention_first_then_by_id_archived_last() -> None:
         {"id": "al", "drift": {"state": "alarm"}, "service_state": "out_of_service"},
         {"id": "dm", "state": "damaged"},
         {"id": "od", "drift": {"state": "ok"}, "due_state": "overdue"},
+        # silent for 3 expected intervals: above a drift warning (nothing checks its curve), below out of tolerance
+        {"id": "q", "drift": {"state": "warning"}, "stale": True, "due_state": "overdue"},
         # the soonest forecast to leave tolerance first within a rank; none foreseen last
         {"id": "f2", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": "2027-05-01", "low": "2027-03-01",
                                                             "not_within_days": None}},
@@ -42,6 +44,6 @@ def test_channels_come_attention_first_then_by_id_archived_last() -> None:
                                                             "not_within_days": 365}},
     ]
     assert [c["id"] for c in display.fleet_order(chans)] == [
-        "dm", "al", "s", "t", "w", "od", "f1", "f2", "a-1", "a_2", "f0", "z.ok", "gone"]
-    assert [display.rank(c) for c in display.fleet_order(chans)] == [0, 1, 2, 3, 4, 5, 6, 6, 6, 6, 6, 6, 7]
-    assert sum(display.rank(c) < display.ATTENTION for c in chans) == 6
+        "dm", "al", "s", "t", "q", "w", "od", "f1", "f2", "a-1", "a_2", "f0", "z.ok", "gone"]
+    assert [display.rank(c) for c in display.fleet_order(chans)] == [0, 1, 2, 3, 4, 5, 6, 7, 7, 7, 7, 7, 7, 8]
+    assert sum(display.rank(c) < display.ATTENTION for c in chans) == 7

@@ -386,6 +386,11 @@ DECISION_RULE = ("how a calibration states conformity with drift.tolerance (ILAC
                  "|error| > tolerance + U, otherwise conditional)")
 INTERVAL = (f"days from a calibration to the next one due (default {DEFAULT_INTERVAL_DAYS}: yearly, common "
             "practice); each calibration record suggests a new one, applied only by a PATCH")
+#: at most ten years between samples, seconds
+MAX_EXPECTED_INTERVAL = 10 * 366 * 86400.0
+ExpectedInterval = Annotated[Positive, Field(le=MAX_EXPECTED_INTERVAL)]
+EXPECTED_INTERVAL = ("seconds between the channel's samples; with no sample received for 3 times this, the channel is "
+                     "stale; null: not watched")
 DUE_SOON = (f"days before the due date from which the channel is due_soon (default {DEFAULT_DUE_SOON_DAYS}, "
             "common practice)")
 
@@ -434,6 +439,7 @@ class ChannelSettings(Strict):
     decision_rule: DecisionRule = Field(default="simple", description=DECISION_RULE)
     recalibration_interval_days: IntervalDays = Field(default=DEFAULT_INTERVAL_DAYS, description=INTERVAL)
     due_soon_days: DueSoonDays = Field(default=DEFAULT_DUE_SOON_DAYS, description=DUE_SOON)
+    expected_interval: ExpectedInterval | None = Field(default=None, description=EXPECTED_INTERVAL)
 
     @model_validator(mode="wrap")
     @classmethod

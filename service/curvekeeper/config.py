@@ -55,6 +55,11 @@ class Settings:
     max_clock_skew_s: float = 300.0
     #: a reference instrument due within this many days (its due date included) is due_soon
     reference_due_soon_days: int = 30
+    #: seconds between sweeps that write the ``stale`` event of channels gone silent (0: no sweep;
+    #: answers and lists still show ``stale`` at once, and the next sample writes the event)
+    stale_sweep_s: float = 60.0
+    #: seconds /metrics keeps the channel counts by state before counting again
+    metrics_cache_s: float = 5.0
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

@@ -8,9 +8,10 @@ no zone letter: the headings say UTC). A value that is no time is shown as it ca
 Channel order: attention first; within a rank the soonest forecast to leave tolerance
 first (``forecast_key``), then by id (plain character order, as the ids are lower-case
 letters, digits, ``.``, ``_`` and ``-``). Ranks: 0 a stored state that cannot be
-restored, 1 drift alarm, 2 out of service, 3 out of tolerance, 4 drift warning, 5 a
-calibration overdue, 6 the rest, 7 archived (listed only when asked, after the live
-ones). Ranks below 6 need attention.
+restored, 1 drift alarm, 2 out of service, 3 out of tolerance, 4 stale (no sample for 3
+expected intervals: nothing checks the curve), 5 drift warning, 6 a calibration overdue,
+7 the rest, 8 archived (listed only when asked, after the live ones). Ranks below 7 need
+attention.
 """
 
 from __future__ import annotations
@@ -21,8 +22,8 @@ from datetime import UTC, datetime
 from typing import Any
 
 #: ranks below this need attention
-ATTENTION = 6
-ARCHIVED = 7
+ATTENTION = 7
+ARCHIVED = 8
 
 
 def when(value: str | datetime | None, missing: str = "-") -> str:
@@ -55,10 +56,12 @@ def rank(channel: Mapping[str, Any]) -> int:
         return 2
     if drift.get("tolerance_state") == "out_of_tolerance":
         return 3
-    if drift.get("state") == "warning":
+    if channel.get("stale"):
         return 4
-    if channel.get("due_state") == "overdue":
+    if drift.get("state") == "warning":
         return 5
+    if channel.get("due_state") == "overdue":
+        return 6
     return ATTENTION
 
 

@@ -1,10 +1,24 @@
-"""Prometheus metrics, one registry per app (so tests can run several apps)."""
+"""Prometheus metrics, one registry per app (so tests can run several apps).
+
+Two kinds: counters and histograms this process updates as it works (requests, samples),
+and gauges read from the store at scrape (``StoreGauges``: one query, cached for a few
+seconds, so a scraper every second costs one query per ``ttl``). Every label value comes
+from a fixed set, never from a request or a channel id. A new family of either kind (e.g.
+messages in over a broker, webhook deliveries, an outbox's depth) goes beside these: a
+counter on ``Metrics``, or a reading added to ``StoreGauges``.
+"""
 
 from __future__ import annotations
 
+import logging
+import time
+from collections.abc import Callable, Iterator, Mapping
 from http import HTTPStatus
+from threading import Lock
 
 from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
+from prometheus_client.core import GaugeMetricFamily, Metric
+from prometheus_client.registry import Collector
 
 from .core.jit import specializations
 
@@ -14,6 +28,12 @@ METHODS = ("GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS")
 _METHODS = frozenset(METHODS)
 _STATUSES = frozenset(int(s) for s in HTTPStatus)
 UNMATCHED = "unmatched"
+#: the ``state`` label of ``curvekeeper_channels``: live channels count under each state that
+#: applies (drift ok / warning / alarm, ...); archived ones only under ``archived``
+CHANNEL_STATES = ("ok", "warning", "alarm", "out_of_tolerance", "out_of_service", "stale", "archived", "damaged",
+                  "overdue")
+
+log = logging.getLogger("curvekeeper.metrics")
 
 
 def method_label(method: str) -> str:
@@ -24,6 +44,42 @@ def method_label(method: str) -> str:
 def status_label(status: int) -> str:
     """The status code as a label: a registered HTTP status, else its class (``5xx``)."""
     return str(status) if status in _STATUSES else f"{min(max(status // 100, 1), 5)}xx"
+
+
+class StoreGauges(Collector):
+    """Gauges read from the store when scraped: ``read()`` gives the channel counts by
+    state (a name in ``CHANNEL_STATES`` to a count), kept for ``ttl`` seconds. A store
+    that cannot answer leaves the family out of that scrape (logged), never fails it."""
+
+    def __init__(self, read: Callable[[], Mapping[str, int]], ttl: float,
+                 clock: Callable[[], float] = time.monotonic) -> None:
+        self.read = read
+        self.ttl = ttl
+        self.clock = clock
+        self._lock = Lock()
+        self._counts: Mapping[str, int] | None = None
+        self._until = -float("inf")
+
+    def counts(self) -> Mapping[str, int] | None:
+        with self._lock:  # one scrape counts; one arriving meanwhile takes its result
+            if self._counts is None or self.clock() >= self._until:
+                try:
+                    self._counts = self.read()
+                except Exception as exc:  # a busy or lost store: this scrape goes without them
+                    log.warning("channel counts not read: %s", exc)
+                    return None
+                self._until = self.clock() + self.ttl
+            return self._counts
+
+    def collect(self) -> Iterator[Metric]:
+        counts = self.counts()
+        if counts is None:
+            return
+        family = GaugeMetricFamily("curvekeeper_channels", "Channels by state: live ones under each state that "
+                                   "applies, archived ones under archived only", labels=["state"])
+        for state in CHANNEL_STATES:
+            family.add_metric([state], counts.get(state, 0))
+        yield family
 
 
 class Metrics:
@@ -55,6 +111,13 @@ class Metrics:
         self.samples.labels("duplicate").inc(duplicates)
         if alarms:
             self.drift_alarms.inc(alarms)
+
+    def watch_store(self, gauges: StoreGauges) -> None:
+        """Serve the store's gauges from now on (the app's lifespan calls it once the store is open)."""
+        self.registry.register(gauges)
+
+    def unwatch_store(self, gauges: StoreGauges) -> None:
+        self.registry.unregister(gauges)
 
     def render(self) -> bytes:
         return generate_latest(self.registry)

@@ -147,6 +147,11 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     assert capsys.readouterr().out.splitlines()[1:] == []
     assert main(["channels", "list", "--prefix", "list.c2"]) == 0
     assert capsys.readouterr().out.splitlines()[1].endswith(" -")
+    # silent since its creation for far more than 3 x 1 microsecond: stale
+    api.request("PATCH", "/v1/channels/list.c4", json={"expected_interval": 1e-6})
+    assert main(["channels", "list", "--prefix", "list.", "--state", "stale"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert [line.split()[0] for line in out[1:]] == ["list.c4"] and out[1].split()[1] == "ok,stale"
 
     assert main(["channels", "show", "list.c3"]) == 0
     out = capsys.readouterr().out

@@ -161,12 +161,14 @@ def _as_format_2(state: dict[str, Any]) -> dict[str, Any]:
 
 #: the calibration settings 0008 fills in, as it fills them
 NEW_IN_0008 = {"decision_rule": "simple", "recalibration_interval_days": 365, "due_soon_days": 30}
+#: the silence watch's setting 0010 fills in: not watched
+NEW_IN_0010 = {"expected_interval": None}
 
 
 def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
     # require_reference came later still (0007), the calibration settings in 0008
     out = {k: v for k, v in config.items()
-           if k not in ("coverage", "reference", "range_margin", "require_reference", *NEW_IN_0008)}
+           if k not in ("coverage", "reference", "range_margin", "require_reference", *NEW_IN_0008, *NEW_IN_0010)}
     out["inputs"] = [{k: v for k, v in i.items() if k != "resolution"} for i in config["inputs"]]
     out["coverage_factor"] = 2.0
     return out
@@ -174,7 +176,7 @@ def _as_before_0005(config: dict[str, Any]) -> dict[str, Any]:
 
 def _filled(config: dict[str, Any]) -> dict[str, Any]:
     return {"coverage": 0.95, "reference": None, "range_margin": 1.0, "require_reference": False, **NEW_IN_0008,
-            **config,
+            **NEW_IN_0010, **config,
             "inputs": [{"resolution": None, **i} for i in config["inputs"]]}
 
 
@@ -231,7 +233,7 @@ def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_even
     interval and a 30-day due-soon window, and a due date 365 days after its latest
     calibration event; one never calibrated has none. Downgrading removes them again."""
     config = channel_config({"id": "site-c.p3", "inputs": [{"name": "raw", "min": 0, "max": 10}]})
-    old = {k: v for k, v in config.items() if k not in NEW_IN_0008}
+    old = {k: v for k, v in config.items() if k not in {**NEW_IN_0008, **NEW_IN_0010}}
     state = ChannelModel.from_config(config).to_state()
     at = datetime(2026, 3, 1, 9, 30, tzinfo=UTC)
     engine = make_engine(empty_url)
@@ -261,6 +263,50 @@ def test_0008_fills_the_calibration_settings_and_due_dates_from_calibration_even
         assert tuple(rows[0][1:]) == (at, date(2027, 3, 1), date(2027, 1, 30))
         assert tuple(rows[1][1:]) == (None, None, None)
         _downgrade(engine, "0007")
+        with engine.connect() as conn:
+            assert conn.execute(select(Channel.config).where(Channel.pk == 1)).scalar_one() == old
+    finally:
+        engine.dispose()
+
+
+def test_0010_watches_no_channel_and_takes_the_service_state_and_last_receipt(empty_url: str) -> None:
+    """Before 0010 a channel had no expected_interval: after it, every channel and snapshot
+    has it null (not watched, never stale), each state row has its model state's service
+    state, and silent_since is the latest sample's receipt (else the channel's creation).
+    Downgrading removes the field again."""
+    config = channel_config({"id": "site-d.p1", "inputs": [{"name": "raw", "min": 0, "max": 10}]})
+    old = {k: v for k, v in config.items() if k not in NEW_IN_0010}
+    state = ChannelModel.from_config(config).to_state()
+    created = datetime(2026, 5, 1, 12, 0, tzinfo=UTC)
+    received = datetime(2026, 6, 1, 7, 30, tzinfo=UTC)
+    engine = make_engine(empty_url)
+    try:
+        migrate.upgrade(engine, "0009")
+        state_0009 = table("channel_state", column("channel_pk"), column("model_state", JSON), column("version"),
+                           column("n_samples"), column("n_rejected"), column("drift_state"),
+                           column("updated_at", UTCDateTime))
+        sample_0009 = table("sample", column("channel_pk"), column("seq"), column("version"), column("t", UTCDateTime),
+                            column("received_at", UTCDateTime), column("x", JSON), column("y"), column("accepted"))
+        with engine.begin() as conn:
+            for pk, cid, service, n in ((1, "site-d.p1", "in_service", 2), (2, "site-d.p2", "out_of_service", 0)):
+                conn.execute(insert(Channel.__table__).values(pk=pk, id=cid, config={**old, "id": cid},
+                                                              created_at=created))
+                conn.execute(insert(state_0009).values(channel_pk=pk, model_state={**state, "service": service},
+                                                       version=n, n_samples=n, n_rejected=0, drift_state="ok",
+                                                       updated_at=created))
+            for seq, at in ((1, received - timedelta(hours=1)), (2, received)):
+                conn.execute(insert(sample_0009).values(channel_pk=1, seq=seq, version=seq, t=at, received_at=at,
+                                                        x=[1.0], y=2.0, accepted=True))
+        migrate.upgrade(engine)
+        with engine.connect() as conn:
+            rows = conn.execute(select(Channel.config, ChannelState.service_state, ChannelState.silent_since,
+                                       ChannelState.stale_after, ChannelState.stale_since)
+                                .join_from(Channel, ChannelState, Channel.pk == ChannelState.channel_pk)
+                                .order_by(Channel.pk)).all()
+        assert rows[0][0] == config and rows[1][0] == {**config, "id": "site-d.p2"}
+        assert tuple(rows[0][1:]) == ("in_service", received, None, None)
+        assert tuple(rows[1][1:]) == ("out_of_service", created, None, None)
+        _downgrade(engine, "0009")
         with engine.connect() as conn:
             assert conn.execute(select(Channel.config).where(Channel.pk == 1)).scalar_one() == old
     finally:

@@ -121,6 +121,8 @@ CHANNELS: list[dict[str, Any]] = [
     {"id": "0.gone", "drift": {"state": "alarm"}, "service_state": "in_service", "archived": True},
     {"id": "1.gone", "drift": {"state": "ok"}, "service_state": "in_service", "archived": True},
     {"id": "h.overdue", "drift": {"state": "ok"}, "service_state": "in_service", "due_state": "overdue"},
+    {"id": "i.silent", "drift": {"state": "warning", "tolerance_state": "ok"}, "service_state": "in_service",
+     "stale": True},
     {"id": "z.soon", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": "2027-04-30", "low": "2027-04-01",
                                                            "not_within_days": None}},
     {"id": "y.later", "drift": {"state": "ok"}, "forecast": {"leaves_tolerance_on": None, "low": "2027-06-01",
@@ -142,7 +144,9 @@ def test_the_pages_and_the_command_line_share_one_display_rule(tab: Tab, served:
     assert shown[7] == "not a time"
     order = page.evaluate("(items) => items.slice().sort(CK.byRank).map((c) => c.id)", CHANNELS)
     assert order == [c["id"] for c in display.fleet_order(CHANNELS)]
-    assert order == ["g.damaged", "f.alarm", "e.oos", "d.tol", "c.warn", "h.overdue", "z.soon", "y.later", "a-ok",
-                     "a.ok", "b.ok", "x.stable", "0.gone", "1.gone"]
+    assert order == ["g.damaged", "f.alarm", "e.oos", "d.tol", "i.silent", "c.warn", "h.overdue", "z.soon",
+                     "y.later", "a-ok", "a.ok", "b.ok", "x.stable", "0.gone", "1.gone"]
     ranks = page.evaluate("(items) => items.map((c) => CK.rank(c))", CHANNELS)
     assert ranks == [display.rank(c) for c in CHANNELS]
+    assert page.evaluate("() => [CK.badge('stale').textContent, CK.badge('stale').className]") == \
+        ["stale", "state state-stale"]

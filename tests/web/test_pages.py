@@ -198,7 +198,7 @@ def test_fleet_lists_channels_needing_attention_first_and_filters(tab: Tab, serv
     ids = [rows.nth(i).get_attribute("data-channel") for i in range(rows.count())]
     attention = [c["id"] for c in channels
                  if c["drift"]["state"] in ("alarm", "warning") or c["drift"]["tolerance_state"] == "out_of_tolerance"
-                 or c["service_state"] == "out_of_service" or c["due_state"] == "overdue"]
+                 or c["service_state"] == "out_of_service" or c["due_state"] == "overdue" or c["stale"]]
     # the story leaves coldstore.dock.p1 in alarm and out of tolerance, and the faulty probe
     # out of service after its rollback (the rollback test, later in this module, changes them)
     assert "coldstore.produce.p2" in attention and "coldstore.dock.p1" in attention

@@ -24,14 +24,16 @@ from ..errors import (
     StateDamaged,
 )
 from ..store import Repository
-from ..store.tables import Channel, ChannelState
+from ..store.tables import Channel, ChannelState, utcnow
+from . import stale
 from .paging import Page, decode_cursor, encode_cursor
 from .trace import of_channel, of_points
 from .unit import Unit, summary_columns
 
-#: the ``state`` filter of the list: the drift watch's states, the tolerance check's, and
-#: ``damaged`` (a stored state that cannot be restored)
-STATES = {"ok", "warning", "alarm", "out_of_tolerance", "damaged"}
+#: the ``state`` filter of the list: the drift watch's states, the tolerance check's,
+#: ``out_of_service``, ``stale`` (silent for 3 expected intervals) and ``damaged`` (a stored
+#: state that cannot be restored)
+STATES = {"ok", "warning", "alarm", "out_of_tolerance", "out_of_service", "stale", "damaged"}
 DAMAGED = "damaged"
 #: the ``archived`` filter of the list: live channels only (the default), all, or archived only
 ARCHIVED = ("exclude", "include", "only")
@@ -80,9 +82,10 @@ def due(config: dict[str, Any], st: ChannelState, today: date | None = None) -> 
             "last_calibrated_at": st.last_calibrated_at}
 
 
-def view(ch: Channel, st: ChannelState, model: ChannelModel, forecast: dict[str, Any] | None) -> dict[str, Any]:
+def view(ch: Channel, st: ChannelState, model: ChannelModel, forecast: dict[str, Any] | None,
+         now: datetime | None = None) -> dict[str, Any]:
     """Config plus summary, as ``GET /v1/channels/{id}`` answers it, with the ``forecast``
-    of when it leaves tolerance (``trace.of_channel``)."""
+    of when it leaves tolerance (``trace.of_channel``); stale or not at ``now``."""
     s = model.summary()
     out = dict(ch.config)
     out.update({
@@ -103,6 +106,7 @@ def view(ch: Channel, st: ChannelState, model: ChannelModel, forecast: dict[str,
         "archived_at": ch.archived_at,
         "forecast": forecast,
     })
+    out.update(stale.status(st, now or utcnow()))
     out.update(due(ch.config, st))
     return out
 
@@ -119,27 +123,31 @@ def validated(body: ChannelConfig | dict[str, Any], model: type[ChannelConfig] =
         raise InvalidConfig.from_errors(exc.errors()) from exc
 
 
-def create(repo: Repository, body: NewChannel | dict[str, Any], key_id: str) -> dict[str, Any]:
+def create(repo: Repository, body: NewChannel | dict[str, Any], key_id: str, now: datetime | None = None
+           ) -> dict[str, Any]:
     """The new channel as ``GET`` answers it, with ``warnings``: what its settings allow but
-    a person should know (e.g. a polynomial degree above 7)."""
+    a person should know (e.g. a polynomial degree above 7). Its silence watch starts ``now``."""
+    now = now or utcnow()
     config = validated(body, NewChannel)
     model = ChannelModel.from_config(config)
     channel_id = config["id"]
     if repo.get_channel(channel_id) is not None:
         raise ChannelExists(f"channel {channel_id!r} exists already")
     try:
-        ch, st = repo.create_channel(channel_id, config, model.to_state(), summary_columns(model))
+        ch, st = repo.create_channel(channel_id, config, model.to_state(),
+                                     {**summary_columns(model), "silent_since": now,
+                                      "stale_after": stale.deadline(config, now)})
     except IntegrityError as exc:  # a concurrent create of the same id
         raise ChannelExists(f"channel {channel_id!r} exists already") from exc
     repo.insert_events([{"channel_pk": ch.pk, "kind": "channel_created", "version": 0, "key_id": key_id,
                          "details": {"config": config}}])
-    return {**view(ch, st, model, None), "warnings": warnings_for(config)}
+    return {**view(ch, st, model, None, now), "warnings": warnings_for(config)}
 
 
 def get(unit: Unit, channel_id: str) -> dict[str, Any]:
     repo = unit.repo
     ch, st = load(repo, channel_id)
-    return view(ch, st, unit.read_model(st), of_channel(repo, ch.pk, ch.config))
+    return view(ch, st, unit.read_model(st), of_channel(repo, ch.pk, ch.config), unit.now())
 
 
 def damaged_item(ch: Channel, st: ChannelState, error: StateDamaged) -> dict[str, Any]:
@@ -167,18 +175,19 @@ def list_(unit: Unit, *, prefix: str | None, state: str | None, cursor: str | No
     if due_state is not None and due_state not in DUE_STATES:
         raise InvalidRequest(f"due_state must be one of {', '.join(sorted(DUE_STATES))}",
                              details={"field": "due_state"})
-    today = datetime.now(UTC).date()
+    now = unit.now()
+    today = now.date()
     after = decode_cursor(cursor)
     items: list[dict[str, Any]] = []
     while True:
         rows = repo.list_channels(prefix=prefix, state=None if state == DAMAGED else state, after_pk=after,
-                                  limit=limit + 1, archived=archived, due_state=due_state, today=today)
+                                  limit=limit + 1, archived=archived, due_state=due_state, today=today, now=now)
         traces = repo.traces([ch.pk for ch, _ in rows])
         for ch, st in rows:
             if len(items) == limit and state is None:  # every row is listed: this one opens the next page
                 return Page(items, None if after is None else encode_cursor(after))
             try:
-                item = view(ch, st, unit.read_model(st), of_points(traces[ch.pk], ch.config))
+                item = view(ch, st, unit.read_model(st), of_points(traces[ch.pk], ch.config), now)
             except StateDamaged as exc:
                 item = damaged_item(ch, st, exc)
             if state is None or (item.get("state") == DAMAGED) == (state == DAMAGED):
@@ -246,14 +255,18 @@ def patch(unit: Unit, channel_id: str, changes: dict[str, Any], key_id: str) -> 
     refresh_due(repo, st, config, st.last_calibrated_at)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "settings_changed", "version": version,
                          "key_id": key_id, "details": {"changes": changes, "config": config}}])
-    return view(ch, st, updated, of_channel(repo, ch.pk, config))
+    now = unit.now()
+    if config.get("expected_interval") != model.config.get("expected_interval"):
+        stale.rewatch(repo, st, config, now, reason="settings_changed", key_id=key_id)
+    return view(ch, st, updated, of_channel(repo, ch.pk, config), now)
 
 
-def set_archived(repo: Repository, channel_id: str, archive: bool, note: str | None, key_id: str | None
-                 ) -> tuple[Channel, ChannelState]:
-    """Archive a live channel (its history stays, it takes no samples nor changes) or
-    unarchive an archived one, with an ``archived`` / ``unarchived`` event. The learned
-    state is not touched, so the version stays. Raises ``AlreadyArchived`` / ``NotArchived``."""
+def set_archived(repo: Repository, channel_id: str, archive: bool, note: str | None, key_id: str | None,
+                 now: datetime | None = None) -> tuple[Channel, ChannelState]:
+    """Archive a live channel (its history stays, it takes no samples nor changes, it is not
+    watched for silence) or unarchive an archived one (watched again from ``now``), with an
+    ``archived`` / ``unarchived`` event. The learned state is not touched, so the version
+    stays. Raises ``AlreadyArchived`` / ``NotArchived``."""
     ch, st = load(repo, channel_id, lock=True, archived_ok=True)
     if archive and ch.archived_at is not None:
         raise AlreadyArchived(f"channel {channel_id!r} is archived already (since {ch.archived_at.isoformat()})",
@@ -263,4 +276,7 @@ def set_archived(repo: Repository, channel_id: str, archive: bool, note: str | N
     repo.set_archived(ch, archive)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "archived" if archive else "unarchived", "version": st.version,
                          "key_id": key_id, "details": {"note": note}}])
+    now = now or utcnow()
+    stale.rewatch(repo, st, ch.config, now, reason="archived" if archive else "unarchived", key_id=key_id,
+                  silent_since=None if archive else now, archived=archive)
     return ch, st

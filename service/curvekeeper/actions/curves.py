@@ -12,7 +12,7 @@ from ..core import ChannelModel, FitError, InputError
 from ..core.scaling import box_grid
 from ..csvpoints import CsvProblem, Points, read_points
 from ..errors import ChannelNotFound, InvalidRequest, NotCalibrated, PayloadTooLarge, SnapshotNotFound
-from . import calibrations
+from . import calibrations, stale
 from .channels import load, refresh_due, refuse_archived
 from .references import reference_for_use, use_on_channel
 from .unit import Unit, item_cost, restore
@@ -28,17 +28,20 @@ def _floats(a: np.ndarray) -> list[float | None]:
     return out
 
 
-def _model_for(unit: Unit, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int]:
+def _model_for(unit: Unit, channel_id: str, snapshot: int | None) -> tuple[ChannelModel, int, bool]:
+    """The model (the channel's, or a snapshot's), its version, and whether the channel is
+    stale now (a snapshot's values come from the same silent channel)."""
     repo = unit.repo
     st = repo.learning_state(channel_id, lock=False)  # a plain row: the cached model holds the rest
     if st is None:
         raise ChannelNotFound(f"no channel {channel_id!r}")
+    silent = st.archived_at is None and stale.is_stale(st.stale_after, unit.now())
     if snapshot is None:
-        return unit.read_model(st), st.version
+        return unit.read_model(st), st.version, silent
     snap = repo.get_snapshot(st.channel_pk, snapshot)
     if snap is None:
         raise SnapshotNotFound(f"channel {channel_id!r} has no snapshot {snapshot}")
-    return restore(snap.config, snap.model_state, f"snapshot {snap.pk}"), snap.version
+    return restore(snap.config, snap.model_state, f"snapshot {snap.pk}"), snap.version, silent
 
 
 def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
@@ -55,10 +58,10 @@ def _inputs(model: ChannelModel, x: list[Any]) -> np.ndarray:
     raise InvalidRequest(f"x must be {shape}", details={"field": "x"})
 
 
-def quality(model: ChannelModel) -> dict[str, Any]:
+def quality(model: ChannelModel, silent: bool) -> dict[str, Any]:
     """What a data user should know about every value the model gives: the core's quality
-    flags and ``stale`` (not yet watched: always false)."""
-    return {**model.quality(), "stale": False}
+    flags and ``stale`` (``silent``: no sample received for 3 expected intervals)."""
+    return {**model.quality(), "stale": silent}
 
 
 def _values(model: ChannelModel, X: np.ndarray) -> dict[str, Any]:
@@ -79,7 +82,7 @@ def _values(model: ChannelModel, X: np.ndarray) -> dict[str, Any]:
 def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> dict[str, Any]:
     """Calibrated values with their uncertainty from the channel's curve (or a snapshot's);
     raises ``NotCalibrated`` while that model has no curve."""
-    model, version = _model_for(unit, channel_id, snapshot)
+    model, version, silent = _model_for(unit, channel_id, snapshot)
     X = _inputs(model, x)  # a malformed request is refused before the channel's state is
     if not model.calibrated:
         what = f"snapshot {snapshot} of channel {channel_id!r}" if snapshot is not None else f"channel {channel_id!r}"
@@ -87,7 +90,7 @@ def predict(unit: Unit, channel_id: str, x: list[Any], snapshot: int | None) -> 
                             "/calibrate) or let it learn from samples first", details={"snapshot": snapshot})
     unit.spend(len(x) * item_cost(model) / 10)  # a prediction costs about a tenth of an update
     out = _values(model, X)
-    out.update({"quality": quality(model), "version": version, "unit": model.config["output"]["unit"]})
+    out.update({"quality": quality(model, silent), "version": version, "unit": model.config["output"]["unit"]})
     return out
 
 
@@ -122,7 +125,8 @@ def curve(unit: Unit, channel_id: str, points: int, over: str = "input") -> dict
         "basis": model.config["basis"], "inputs": model.config["inputs"], "output": model.config["output"],
         "weights": model.weights.tolist(), "over": over, "points": pts, "operating_range": summary["operating_range"],
         "n_samples": st.n_samples, "rmse": summary["rmse"], "residual_sd": summary["residual_sd"],
-        "residual_sd_output": summary["residual_sd_output"], "drift": summary["drift"], "quality": quality(model),
+        "residual_sd_output": summary["residual_sd_output"], "drift": summary["drift"],
+        "quality": quality(model, ch.archived_at is None and stale.is_stale(st.stale_after, unit.now())),
         "version": st.version,
     }
     out.update(model.raw_coefficients())

@@ -29,7 +29,7 @@ def acknowledge(unit: Unit, channel_id: str, note: str, key_id: str | None) -> d
     repo.insert_events([{"channel_pk": ch.pk, "kind": "acknowledged", "version": version, "key_id": key_id,
                          "details": {"note": note, "drift_state": state,
                                      "statistic": statistic if math.isfinite(statistic) else None}}])
-    return view(ch, st, model, of_channel(repo, ch.pk, ch.config))
+    return view(ch, st, model, of_channel(repo, ch.pk, ch.config), unit.now())
 
 
 def set_service(unit: Unit, channel_id: str, state: str, note: str, key_id: str | None) -> dict[str, Any]:
@@ -47,10 +47,10 @@ def set_service(unit: Unit, channel_id: str, state: str, note: str, key_id: str 
     unit.save_model(st, model, version)
     repo.insert_events([{"channel_pk": ch.pk, "kind": "service_changed", "version": version, "key_id": key_id,
                          "details": {"from": was, "to": state, "note": note}}])
-    return view(ch, st, model, of_channel(repo, ch.pk, ch.config))
+    return view(ch, st, model, of_channel(repo, ch.pk, ch.config), unit.now())
 
 
 def archive(unit: Unit, channel_id: str, archived: bool, note: str | None, key_id: str | None) -> dict[str, Any]:
     """Archive the channel (``archived``) or unarchive it; the channel as ``GET`` answers it."""
-    ch, st = set_archived(unit.repo, channel_id, archived, note, key_id)
-    return view(ch, st, unit.read_model(st), of_channel(unit.repo, ch.pk, ch.config))
+    ch, st = set_archived(unit.repo, channel_id, archived, note, key_id, unit.now())
+    return view(ch, st, unit.read_model(st), of_channel(unit.repo, ch.pk, ch.config), unit.now())

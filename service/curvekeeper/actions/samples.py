@@ -15,7 +15,7 @@ from ..core import InputError, LearnResult
 from ..errors import ChannelArchived, ChannelNotFound, InvalidRequest, ReferenceRequired
 from ..store import Repository
 from ..store.repository import LearningState, SampleRows
-from ..store.tables import utcnow
+from . import stale
 from .channels import load
 from .paging import Page, decode_cursor, encode_cursor
 from .references import check_named
@@ -91,7 +91,7 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
     """Learn ``samples`` (in order) on a locked channel and write everything for it;
     ``reference`` is the reference instrument of the samples that name none."""
     repo = unit.repo
-    now = utcnow()
+    now = unit.now()
     model = unit.write_model(st)
     unit.spend(len(samples) * item_cost(model))
     d = len(model.config["inputs"])
@@ -174,11 +174,16 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike],
         # when it happened is the sample's measurement time (the event's own time is its receipt)
         event_rows.append({"channel_pk": st.channel_pk, "kind": kind, "version": v0 + k + 1, "key_id": key_id,
                            "details": {"sample_seq": n0 + k + 1, "measured_at": times[k].isoformat(), **e}})
-    repo.insert_events(event_rows)
     n_kept = len(keep)
+    watch: dict[str, Any] = {}
+    if n_kept:  # samples stored: the channel is not silent (duplicates alone store nothing)
+        watch, stale_events = stale.on_samples(st, model.config, now, sample_seq=n0 + 1, measured_at=times[0],
+                                               version=v0 + 1, key_id=key_id)
+        event_rows[:0] = stale_events
+    repo.insert_events(event_rows)
     rejected = [{"index": i, "reason": status[k]} for k, i in enumerate(keep) if status[k] != "accepted"]
     summary = model.summary()
-    values: dict[str, Any] = {"n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected)}
+    values: dict[str, Any] = {"n_samples": n0 + n_kept, "n_rejected": st.n_rejected + len(rejected), **watch}
     if times:
         latest = max(times)
         values["last_sample_at"] = latest if st.last_sample_at is None else max(latest, st.last_sample_at)

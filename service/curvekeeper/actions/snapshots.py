@@ -11,6 +11,7 @@ from ..core.config import adopt_settings
 from ..errors import SnapshotNotFound
 from ..store import Repository
 from ..store.tables import Snapshot
+from . import stale
 from .channels import load, refresh_due, view
 from .paging import Page, decode_cursor, encode_cursor
 from .trace import of_channel
@@ -111,6 +112,7 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
     restored = restore(snap.config, snap.model_state, f"snapshot {snap.pk}")
     model = roll_back(unit.read_model(st), restored, set_reference=set_reference)
     version = st.version + 1
+    interval = ch.config.get("expected_interval")
     if model.config != ch.config:  # the settings it was taken under come back with it
         repo.save_config(ch, model.config)
     unit.save_model(st, model, version)
@@ -122,7 +124,9 @@ def rollback(unit: Unit, channel_id: str, snapshot_id: int, key_id: str | None, 
         repo.clear_trace(ch.pk)
     else:  # the restored curve's history is the trace up to its snapshot, not the curves after it
         repo.clear_trace(ch.pk, after_version=snap.version)
-    out = view(ch, st, model, of_channel(repo, ch.pk, model.config))
+    if model.config.get("expected_interval") != interval:
+        stale.rewatch(repo, st, model.config, unit.now(), reason="rollback", key_id=key_id)
+    out = view(ch, st, model, of_channel(repo, ch.pk, model.config), unit.now())
     out["snapshot_before"] = before.pk
     out["restored_snapshot"] = snapshot_id
     out["reference_curve"] = "restored_snapshot" if set_reference else "kept"

@@ -14,6 +14,7 @@ import math
 from collections import OrderedDict
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from datetime import datetime
 from threading import Lock
 from typing import Any
 
@@ -21,7 +22,7 @@ from ..core import ChannelModel, StateError
 from ..errors import StateDamaged
 from ..store import Repository, Store
 from ..store.repository import LearningState
-from ..store.tables import ChannelState
+from ..store.tables import ChannelState, utcnow
 
 #: decoded models a process keeps (about 5 KB each)
 CACHE_SIZE = 4096
@@ -38,6 +39,8 @@ class ModelCache:
         self.size = size
         self._items: OrderedDict[int, tuple[int, ChannelModel]] = OrderedDict()
         self._lock = Lock()
+        #: channels whose stored state this process could not restore, with that state's version
+        self.damaged: dict[int, int] = {}
 
     def get(self, channel_pk: int, version: int) -> ChannelModel | None:
         with self._lock:
@@ -52,6 +55,8 @@ class ModelCache:
             old = self._items.get(channel_pk)
             if old is not None and old[0] > version:
                 return
+            if self.damaged.get(channel_pk, version) < version:
+                del self.damaged[channel_pk]  # a newer state replaced the damaged one
             self._items[channel_pk] = (version, model)
             self._items.move_to_end(channel_pk)
             while len(self._items) > self.size:
@@ -63,8 +68,9 @@ class ModelCache:
 
 
 def summary_columns(model: ChannelModel) -> dict[str, Any]:
-    """The denormalised summary the list filters use, from a model."""
-    return {"drift_state": model.drift_state, "tolerance_state": model.tolerance_state, "rmse": model.rmse}
+    """The denormalised summary the list filters and the counts by state use, from a model."""
+    return {"drift_state": model.drift_state, "tolerance_state": model.tolerance_state, "rmse": model.rmse,
+            "service_state": model.service}
 
 
 def restore(config: dict[str, Any], state: dict[str, Any], what: str) -> ChannelModel:
@@ -105,10 +111,13 @@ class Unit:
     once the transaction has committed (never if it rolls back). ``budget``: the cost the
     unit may still ``spend`` (units of ``item_cost``), finite for work on the event loop."""
 
-    def __init__(self, repo: Repository, models: ModelCache, budget: float = math.inf) -> None:
+    def __init__(self, repo: Repository, models: ModelCache, budget: float = math.inf,
+                 clock: Callable[[], datetime] = utcnow) -> None:
         self.repo = repo
         self.models = models
         self.budget = budget
+        #: the time now (aware UTC): the receipt of samples, the silence watch
+        self.now = clock
         self._after: list[Callable[[], None]] = []
 
     def spend(self, cost: float) -> None:
@@ -128,6 +137,7 @@ class Unit:
             try:
                 model = ChannelModel.from_state(config, state)
             except StateError as exc:
+                self.models.damaged[st.channel_pk] = st.version
                 # named by its id, looked up only now that it is needed
                 channel_id = self.repo.channel_id(st.channel_pk)
                 raise damaged(exc, f"channel {channel_id!r}", rollback_hint(channel_id)) from exc
@@ -151,9 +161,12 @@ class Unit:
 class Work:
     """The process's way into the store: opens units of work over one model cache."""
 
-    def __init__(self, store: Store, models: ModelCache | None = None) -> None:
+    def __init__(self, store: Store, models: ModelCache | None = None,
+                 clock: Callable[[], datetime] = utcnow) -> None:
         self.store = store
         self.models = models if models is not None else ModelCache()
+        #: aware UTC time now (tests pass a clock they move)
+        self.clock = clock
 
     @contextmanager
     def unit(self, *, write: bool, wait: bool = True, budget: float = math.inf,
@@ -161,7 +174,7 @@ class Work:
         """One transaction (see ``Store.transaction``): committed when the block ends
         without an error, rolled back otherwise; the unit's after-commit steps then run."""
         with self.store.transaction(write=write, wait=wait, deadline=deadline) as repo:
-            unit = Unit(repo, self.models, budget)
+            unit = Unit(repo, self.models, budget, self.clock)
             yield unit
         for step in unit._after:
             step()

@@ -2,22 +2,26 @@
 
 from __future__ import annotations
 
+import asyncio
 import logging
-from collections.abc import AsyncIterator
-from contextlib import asynccontextmanager
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager, suppress
+from datetime import datetime
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 from threadpoolctl import threadpool_limits
 
 from .. import __version__
+from ..actions import counts, stale
 from ..actions import keys as keys_actions
 from ..actions.unit import Work
 from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
-from ..metrics import Metrics
+from ..metrics import Metrics, StoreGauges
 from ..ratelimit import RateLimiter
 from ..store import Store
+from ..store.tables import utcnow
 from ..web import routes as web
 from . import docs, errors
 from .deps import AppContext, KeyCache
@@ -30,9 +34,11 @@ readings arrive. Send `Authorization: Bearer <api key>` on every route except
 accredited calibration and the rules that apply where the sensors are used."""
 
 
-def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None) -> FastAPI:
+def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None,
+               clock: Callable[[], datetime] = utcnow) -> FastAPI:
     """The service app. ``kernels``: the build of the compiled kernels that ``/readyz``
-    waits for (default: the process's own, started by the lifespan)."""
+    waits for (default: the process's own, started by the lifespan); ``clock``: aware UTC
+    time now, for the receipt of samples and the silence watch (tests move their own)."""
     settings = settings or Settings.from_env()
     build = kernels or PROCESS
     logging.getLogger("curvekeeper").setLevel(settings.log_level.upper())
@@ -53,10 +59,20 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         except BaseException:
             store.dispose()
             raise
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, Work(store))
+        work = Work(store, clock=clock)
+        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, work)
+        gauges = StoreGauges(lambda: counts.by_state(work), settings.metrics_cache_s)
+        metrics.watch_store(gauges)
+        sweeper = (asyncio.create_task(stale.sweep_forever(work, settings.stale_sweep_s))
+                   if settings.stale_sweep_s > 0 else None)
         try:
             yield
         finally:
+            if sweeper is not None:
+                sweeper.cancel()
+                with suppress(asyncio.CancelledError):
+                    await sweeper
+            metrics.unwatch_store(gauges)
             store.dispose()
 
     # docs_url/redoc_url off: FastAPI's pages load their scripts from a CDN; ours are local

@@ -10,7 +10,8 @@ thresholds, ``tolerance``), ``outlier_sd``, ``snapshot_every``, ``coverage``,
 ``expanded_uncertainty``, ``coverage_factor`` and ``distribution``, the ``instrument`` they
 were taken from, or null), ``range_margin``, ``require_reference`` (the service's rule that
 samples name their reference instrument; the core does not read it),
-``decision_rule`` (``simple`` | ``guarded``), ``recalibration_interval_days``, ``due_soon_days``.
+``decision_rule`` (``simple`` | ``guarded``), ``recalibration_interval_days``, ``due_soon_days``,
+``expected_interval`` (seconds between samples; the service's silence watch, the core does not read it).
 The core reads it and never changes it.
 """
 
@@ -25,7 +26,7 @@ Config = dict[str, Any]
 #: output, basis) fix the curve's form
 MUTABLE = frozenset({"description", "learner", "drift", "outlier_sd", "snapshot_every", "coverage",
                      "coverage_factor", "reference", "range_margin", "require_reference", "decision_rule",
-                     "recalibration_interval_days", "due_soon_days"})
+                     "recalibration_interval_days", "due_soon_days", "expected_interval"})
 
 
 def curve_form(config: Config) -> Config:

@@ -12,7 +12,7 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, bindparam, delete, func, insert, select, update
+from sqlalchemy import Table, and_, bindparam, case, delete, func, insert, literal, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, aliased, defer
 from sqlalchemy.orm.attributes import set_committed_value
@@ -50,6 +50,8 @@ class LearningState:
     n_rejected: int
     last_sample_at: datetime | None
     archived_at: datetime | None = None  # the channel's: an archived channel learns nothing
+    stale_after: datetime | None = None  # the silence watch (``ChannelState``)
+    stale_since: datetime | None = None
 
 
 @dataclass(frozen=True)
@@ -97,7 +99,8 @@ _STATE_UPDATES: dict[tuple[tuple[str, ...], bool], str] = {}
 CHANNEL_T = cast(Table, Channel.__table__)
 # what learning needs of the state row, as a plain row: cheaper than two ORM objects
 _LEARNING = (select(STATE_T.c.channel_pk, STATE_T.c.version, STATE_T.c.n_samples, STATE_T.c.n_rejected,
-                    STATE_T.c.last_sample_at, CHANNEL_T.c.archived_at)
+                    STATE_T.c.last_sample_at, CHANNEL_T.c.archived_at, STATE_T.c.stale_after,
+                    STATE_T.c.stale_since)
              .join_from(STATE_T, CHANNEL_T, CHANNEL_T.c.pk == STATE_T.c.channel_pk)
              .where(CHANNEL_T.c.id == bindparam("cid")))
 _LEARNING_FOR_UPDATE = _LEARNING.with_for_update(of=STATE_T)
@@ -163,9 +166,9 @@ class Repository:
 
     def list_channels(self, *, prefix: str | None, state: str | None, after_pk: int | None,
                       limit: int, archived: str = "exclude", due_state: str | None = None,
-                      today: date | None = None) -> list[tuple[Channel, ChannelState]]:
+                      today: date | None = None, now: datetime | None = None) -> list[tuple[Channel, ChannelState]]:
         """Channels by creation order; ``archived``: "exclude" (live only), "include", "only";
-        ``due_state``: "due_soon" or "overdue" on ``today``."""
+        ``due_state``: "due_soon" or "overdue" on ``today``; ``state`` "stale": stale at ``now``."""
         stmt = (select(Channel, ChannelState)
                 .join(ChannelState, ChannelState.channel_pk == Channel.pk)
                 .options(defer(ChannelState.model_state, raiseload=True))
@@ -174,6 +177,10 @@ class Repository:
             stmt = stmt.where(Channel.id.startswith(prefix, autoescape=True))
         if state == "out_of_tolerance":
             stmt = stmt.where(ChannelState.tolerance_state == "out_of_tolerance")
+        elif state == "stale":
+            stmt = stmt.where(ChannelState.stale_after <= (now or utcnow()))
+        elif state == "out_of_service":
+            stmt = stmt.where(ChannelState.service_state == state)
         elif state:
             stmt = stmt.where(ChannelState.drift_state == state)
         if archived == "exclude":
@@ -224,12 +231,63 @@ class Repository:
         ch.config = config
         self.session.flush()
 
-    def save_due(self, st: ChannelState, **values: datetime | date | None) -> None:
+    def save_due(self, st: ChannelState | LearningState, **values: datetime | date | None) -> None:
         """The state row's due-date columns (``last_calibrated_at``, ``due_on``,
-        ``due_soon_on``); ``st`` shows them afterwards."""
+        ``due_soon_on``), or its silence watch's (``silent_since``, ``stale_after``,
+        ``stale_since``); ``st`` shows them afterwards."""
         self.session.execute(update(ChannelState).where(ChannelState.channel_pk == st.channel_pk).values(**values))
         for name, value in values.items():
-            set_committed_value(st, name, value)
+            if isinstance(st, LearningState):
+                setattr(st, name, value)
+            else:
+                set_committed_value(st, name, value)
+
+    def mark_stale(self, now: datetime, limit: int) -> list[tuple[int, datetime | None, int, datetime | None]]:
+        """Set ``stale_since`` on up to ``limit`` channels stale at ``now`` whose ``stale``
+        event is not written yet; (channel_pk, stale_after, version, silent_since) of each row
+        this call changed. One conditional UPDATE: of two processes sweeping at once on
+        PostgreSQL, the second waits for the first's row locks, then finds ``stale_since``
+        set and changes nothing, so each silence is marked once."""
+        due = (select(ChannelState.channel_pk).where(ChannelState.stale_after <= now,
+                                                     ChannelState.stale_since.is_(None))
+               .order_by(ChannelState.channel_pk).limit(limit).scalar_subquery())
+        stmt = (update(ChannelState).where(ChannelState.channel_pk.in_(due), ChannelState.stale_after <= now,
+                                           ChannelState.stale_since.is_(None))
+                .values(stale_since=ChannelState.stale_after)
+                .returning(ChannelState.channel_pk, ChannelState.stale_after, ChannelState.version,
+                           ChannelState.silent_since)
+                .execution_options(synchronize_session=False))
+        return [(r[0], r[1], r[2], r[3]) for r in self.session.execute(stmt)]
+
+    def count_states(self, now: datetime, today: date, damaged: Collection[int] = ()) -> dict[str, int]:
+        """Channels by state in one query: live ones under each state that applies (drift
+        ok / warning / alarm, out_of_tolerance, out_of_service, stale at ``now``, overdue on
+        ``today``, and ``damaged`` among the given pks), archived ones under archived only."""
+        live = Channel.archived_at.is_(None)
+
+        def n(*when: Any) -> Any:
+            return func.coalesce(func.sum(case((and_(*when), 1), else_=0)), 0)
+
+        cols = {"ok": n(live, ChannelState.drift_state == "ok"),
+                "warning": n(live, ChannelState.drift_state == "warning"),
+                "alarm": n(live, ChannelState.drift_state == "alarm"),
+                "out_of_tolerance": n(live, ChannelState.tolerance_state == "out_of_tolerance"),
+                "out_of_service": n(live, ChannelState.service_state == "out_of_service"),
+                "stale": n(live, ChannelState.stale_after <= now),
+                "overdue": n(live, ChannelState.due_on < today),
+                "archived": n(Channel.archived_at.is_not(None)),
+                "damaged": n(live, ChannelState.channel_pk.in_(sorted(damaged))) if damaged else literal(0)}
+        row = self.session.execute(select(*cols.values()).select_from(Channel)
+                                   .join(ChannelState, ChannelState.channel_pk == Channel.pk)).one()
+        return {name: int(v or 0) for name, v in zip(cols, row, strict=True)}
+
+    def versions(self, channel_pks: Collection[int]) -> dict[int, int]:
+        """The current version of each of these channels (the missing ones are gone)."""
+        if not channel_pks:
+            return {}
+        rows = self.session.execute(select(ChannelState.channel_pk, ChannelState.version)
+                                    .where(ChannelState.channel_pk.in_(sorted(channel_pks))))
+        return {pk: v for pk, v in rows}
 
     # calibration records --------------------------------------------------------------
     def insert_record(self, record: CalibrationRecord) -> CalibrationRecord:

@@ -99,6 +99,15 @@ class ChannelState(Base):
     last_calibrated_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
     due_on: Mapped[date | None] = mapped_column(Date, nullable=True)
     due_soon_on: Mapped[date | None] = mapped_column(Date, nullable=True)
+    #: ``in_service`` / ``out_of_service`` (the model state's), for counts by state
+    service_state: Mapped[str] = mapped_column(String(16), server_default="in_service")
+    # the silence watch (``actions.stale``): silent since the latest sample's receipt (or the
+    # channel's creation or unarchiving, when later); stale from ``stale_after`` (silent_since +
+    # 3 expected_interval; null: not watched, or archived); ``stale_since`` is set once the
+    # ``stale`` event is written (null again with ``stale_cleared``)
+    silent_since: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    stale_after: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True, index=True)
+    stale_since: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
 
 
 class Sample(Base):

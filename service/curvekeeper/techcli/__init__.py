@@ -56,7 +56,8 @@ def add_commands(sub: Any) -> None:
     ch_sub = ch.add_subparsers(dest="channels_command", required=True)
     ls = ch_sub.add_parser("list", parents=common, help="all channels (every page)")
     ls.add_argument("--prefix", help="only ids starting with this")
-    ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance", "damaged"],
+    ls.add_argument("--state", choices=["ok", "warning", "alarm", "out_of_tolerance", "out_of_service", "stale",
+                                        "damaged"],
                     help="only channels in this state")
     ls.add_argument("--archived", choices=["include", "only"],
                     help="archived channels too (listed last), or only them (default: live channels only)")

@@ -47,6 +47,8 @@ def channels_list(client: Client, args: argparse.Namespace) -> int:
         state = str(ch.get("state") or drift.get("state") or "-")
         if ch.get("service_state") == "out_of_service":
             state += ",out_of_service"
+        if ch.get("stale"):
+            state += ",stale"
         if ch.get("archived"):
             state = f"archived({state})"
         rows.append([ch["id"], state, str(drift.get("tolerance_state") or "-"),

@@ -16,7 +16,8 @@ router = APIRouter(prefix="/v1/channels", tags=["channels"], responses={**COMMON
 
 ChannelPath = Annotated[str, Path(min_length=1, max_length=128, pattern=CHANNEL_ID_PATTERN)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
-STATE_FILTER = "ok, warning, alarm, out_of_tolerance, or damaged (a stored state that cannot be restored)"
+STATE_FILTER = ("ok, warning, alarm, out_of_tolerance, out_of_service, stale (no sample received for 3 times its "
+                "expected_interval), or damaged (a stored state that cannot be restored)")
 ARCHIVED_FILTER = "exclude: live channels only (default); include: archived ones too; only: archived ones only"
 DUE_FILTER = "due_soon (due within the channel's due_soon_days, today included) or overdue (past its due_on)"
 
@@ -25,7 +26,7 @@ DUE_FILTER = "due_soon (due within the channel's due_soon_days, today included) 
 def create_channel(body: ChannelCreate, ctx: Ctx, who: Who) -> dict[str, Any]:
     who.require("technician")
     with ctx.work.unit(write=True) as unit:
-        return channels.create(unit.repo, body, who.key_id)
+        return channels.create(unit.repo, body, who.key_id, unit.now())
 
 
 @router.get("", summary="List channels", response_model=ChannelPage)

@@ -15,6 +15,7 @@ from ...channel_config import (
     COVERAGE_FACTOR,
     DECISION_RULE,
     DUE_SOON,
+    EXPECTED_INTERVAL,
     INTERVAL,
     OPERATING_RANGE,
     RANGE_MARGIN,
@@ -27,6 +28,7 @@ from ...channel_config import (
     DecisionRule,
     DueSoonDays,
     Ewma,
+    ExpectedInterval,
     Integer,
     IntervalDays,
     NewChannel,
@@ -70,6 +72,7 @@ class ChannelUpdate(BaseModel):
     decision_rule: DecisionRule | MISSING = Field(MISSING, description=DECISION_RULE)
     recalibration_interval_days: IntervalDays | MISSING = Field(MISSING, description=INTERVAL)
     due_soon_days: DueSoonDays | MISSING = Field(MISSING, description=DUE_SOON)
+    expected_interval: ExpectedInterval | None | MISSING = Field(MISSING, description=EXPECTED_INTERVAL)
     inputs: list[Any] | None | MISSING = Field(MISSING, description=(
         "one object per input, in order, e.g. [{\"operating_range\": [5000, 20000]}]: only operating_range may "
         "change (" + OPERATING_RANGE + "); any other field given must equal the stored one, else 409; null: 409"))
@@ -178,6 +181,11 @@ class ChannelPublic(ChannelConfig):
     due_state: Literal["ok", "due_soon", "overdue"] | None = Field(
         description="today (UTC) against due_on: overdue after it, due_soon from due_soon_days before it; null: "
                     "never calibrated")
+    stale: bool = Field(description="no sample received for 3 times expected_interval (never while archived or "
+                                    "without expected_interval); the next sample clears it")
+    stale_since: datetime | None = Field(description="when it became stale: the latest sample's receipt (or the "
+                                                     "channel's creation or unarchiving, when later) + 3 "
+                                                     "expected_interval; null: not stale")
     forecast: Forecast | None = Field(description="when the channel is expected to leave tolerance; null: no "
                                                   "tolerance, or fewer than 5 trace points since the last "
                                                   "calibration")

@@ -92,7 +92,8 @@ class Quality(Answer):
     service: Literal["in_service", "out_of_service"] = Field(
         description="out of service: samples are stored, not learned")
     warming_up: bool = Field(description="the residual s.d. rests on too few degrees of freedom for the outlier gate")
-    stale: bool = Field(description="the channel has had no sample for too long (not yet watched: false)")
+    stale: bool = Field(description="the channel has received no sample for 3 times its expected_interval "
+                                    "(false without expected_interval)")
 
 
 class PredictAnswer(Answer):

@@ -88,19 +88,20 @@ const CK = (() => {
   }
 
   // channel order, shared with the command line (curvekeeper/display.py): attention first
-  // (a damaged state, an alarm, out of service, out of tolerance, a warning, a calibration
-  // overdue), then the rest, then archived channels; within a rank the soonest forecast to
-  // leave tolerance first, then by id, in plain character order
-  const ATTENTION = 6;
+  // (a damaged state, an alarm, out of service, out of tolerance, stale, a warning, a
+  // calibration overdue), then the rest, then archived channels; within a rank the soonest
+  // forecast to leave tolerance first, then by id, in plain character order
+  const ATTENTION = 7;
   function rank(ch) {
     const d = ch.drift || {};
-    if (ch.archived) return 7;
+    if (ch.archived) return 8;
     if (ch.state === "damaged") return 0;
     if (d.state === "alarm") return 1;
     if (ch.service_state === "out_of_service") return 2;
     if (d.tolerance_state === "out_of_tolerance") return 3;
-    if (d.state === "warning") return 4;
-    if (ch.due_state === "overdue") return 5;
+    if (ch.stale) return 4;
+    if (d.state === "warning") return 5;
+    if (ch.due_state === "overdue") return 6;
     return ATTENTION;
   }
   function byRank(a, b) {
@@ -110,7 +111,8 @@ const CK = (() => {
 
   const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
                         out_of_tolerance: "out of tolerance", out_of_service: "out of service",
-                        damaged: "state damaged", archived: "archived", due_soon: "due soon", overdue: "overdue" };
+                        damaged: "state damaged", archived: "archived", due_soon: "due soon", overdue: "overdue",
+                        stale: "stale" };
   function badge(state) {
     if (!state) return el("span", { class: "state state-none", text: "not checked" });
     return el("span", { class: `state state-${state}`, text: STATE_WORDS[state] || state });

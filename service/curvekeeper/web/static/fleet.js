@@ -39,6 +39,7 @@ async function loadFleet() {
     const drift = ch.state === "damaged" ? [CK.badge("damaged")]
       : [CK.badge(d.state), " ", el("small", { text: `statistic ${num(d.statistic, "", 3)} of ${num(d.alarm, "", 3)}` })];
     if (ch.service_state === "out_of_service") drift.push(" ", CK.badge("out_of_service"));
+    if (ch.stale) drift.push(" ", CK.badge("stale"));
     if (ch.archived) drift.unshift(CK.badge("archived"), " ");
     const cls = ch.archived ? "archived" : rank(ch) < ATTENTION ? "attention" : "";
     return el("tr", { class: cls, "data-channel": ch.id },
