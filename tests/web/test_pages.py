@@ -538,3 +538,24 @@ def test_api_docs_load_without_the_internet(tab: Tab, served: Served) -> None:
     assert page.locator(".opblock-summary").count() >= 20  # every operation is listed
     assert "/v1/channels/{channel_id}/samples" in page.text_content("#swagger-ui")
     assert "Learn from samples, in order" in page.text_content("#swagger-ui")
+
+
+def test_the_channel_page_says_its_service_state_and_when_it_went_silent(tab: Tab, served: Served) -> None:
+    """A channel expecting a sample every second and given none is stale after 3 s (the
+    service tells, on read); its page shows that beside its service state."""
+    cid = "coldstore.silent.t9"
+    made = served.api.post("/v1/channels", json={
+        "id": cid, "inputs": [{"name": "raw", "unit": "mV", "min": 0, "max": 100}],
+        "output": {"name": "temperature", "unit": "degC"}, "expected_interval": 1})
+    assert made.status_code == 201, made.text
+    deadline = time.monotonic() + 20
+    while not served.api.get(f"/v1/channels/{cid}").json()["stale"] and time.monotonic() < deadline:
+        time.sleep(0.2)
+    ch = served.api.get(f"/v1/channels/{cid}").json()
+    assert ch["stale"] and ch["service_state"] == "in_service"
+    page = tab.page
+    sign_in(tab, served)
+    page.goto(f"{served.url}/ui/channels/{cid}")
+    page.wait_for_selector(f"body[data-loaded='{ch['version']}']")
+    facts = page.text_content("#channel-facts") or ""
+    assert "in service" in facts and "stale" in facts and "a sample expected every 1 s" in facts

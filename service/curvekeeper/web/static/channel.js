@@ -74,6 +74,12 @@ function renderFacts() {
     ? [CK.badge(ch.due_state), ` on ${ch.due_on} (every ${ch.recalibration_interval_days} days; ` +
        `last ${CK.when(ch.last_calibrated_at)} UTC; decision rule ${ch.decision_rule})`]
     : [`never calibrated (interval ${ch.recalibration_interval_days} days; decision rule ${ch.decision_rule})`]));
+  fact(dl, "service", CK.badge(ch.service_state),
+    ch.service_state === "out_of_service" ? " samples are stored, not learned; predictions say so" : "");
+  fact(dl, "reporting", ...(ch.expected_interval
+    ? [CK.badge(ch.stale ? "stale" : "ok"), ` a sample expected every ${num(ch.expected_interval, "s", 4)}` +
+       (ch.stale ? `; stale since ${CK.when(ch.stale_since)} UTC (3 intervals without one)` : "")]
+    : ["not watched (no expected_interval set)"]));
   fact(dl, "version", String(ch.version));
   fact(dl, "last sample (UTC)", CK.when(ch.last_sample_at));
 }

@@ -110,7 +110,7 @@ const CK = (() => {
   }
 
   const STATE_WORDS = { ok: "ok", warning: "drift warning", alarm: "drift alarm",
-                        out_of_tolerance: "out of tolerance", out_of_service: "out of service",
+                        out_of_tolerance: "out of tolerance", out_of_service: "out of service", in_service: "in service",
                         damaged: "state damaged", archived: "archived", due_soon: "due soon", overdue: "overdue",
                         stale: "stale" };
   function badge(state) {
