@@ -156,6 +156,14 @@ def test_channels_list_follows_every_page_and_show(api: Client, monkeypatch: pyt
     assert main(["channels", "show", "list.c3"]) == 0
     out = capsys.readouterr().out
     assert "input raw" in out and "[0, 100]" in out and "temperature [degC]" in out and "1 (0 held back)" in out
+    assert "never calibrated (decision rule simple)" in out and "service          in service" in out
+    assert "reporting        not watched" in out
+    assert main(["channels", "show", "list.c4"]) == 0
+    assert "reporting        stale since" in capsys.readouterr().out
+    assert main(["channels", "show", "list.c1"]) == 0
+    shown = capsys.readouterr().out
+    due = api.get_channel("list.c1")["due_on"]
+    assert f"calibration due  {due} overdue (every 365 days" in shown
     assert main(["channels", "show", "list.c3", "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["n_samples"] == 1
 
@@ -460,3 +468,14 @@ def test_help_carries_the_caution_and_every_argument_its_help(capsys: pytest.Cap
 
     walk(build_parser(), "curvekeeper")
     assert missing == []
+
+
+def test_the_forecast_in_words() -> None:
+    from curvekeeper.techcli.commands import _forecast
+
+    assert _forecast(None, "degC").startswith("- (no tolerance")
+    assert _forecast({"not_within_days": 365, "rate": 3.3e-5}, "degC") == "not within 365 days (drift 3.3e-05 degC/day)"
+    f = {"leaves_tolerance_on": "2026-12-26T00:00:00+00:00", "low": "2026-12-21T00:00:00+00:00",
+         "high": "2026-12-30T00:00:00+00:00", "rate": 0.00171, "not_within_days": None}
+    assert _forecast(f, "degC") == ("leaves tolerance on 2026-12-26 (95 % interval 2026-12-21 to 2026-12-30; "
+                                    "drift 0.00171 degC/day)")

@@ -88,6 +88,14 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
         ("tolerance", "-" if drift.get("tolerance") is None else
          f"{drift.get('tolerance_state') or '-'} (tolerance {_num(drift['tolerance'])} {_unit(ch)}, "
          f"largest change {_num(drift.get('max_curve_change'), 4)})"),
+        ("forecast", _forecast(ch.get("forecast"), _unit(ch))),
+        ("calibration due", f"{ch['due_on']} {ch.get('due_state')} (every {ch.get('recalibration_interval_days')} "
+                            f"days; decision rule {ch.get('decision_rule')})" if ch.get("due_on") else
+         f"never calibrated (decision rule {ch.get('decision_rule')})"),
+        ("service", str(ch.get("service_state", "-")).replace("_", " ")),
+        ("reporting", "not watched (no expected_interval)" if not ch.get("expected_interval") else
+         f"{'stale since ' + display.when(ch.get('stale_since')) + ' UTC' if ch.get('stale') else 'ok'} "
+         f"(a sample expected every {_num(ch['expected_interval'])} s)"),
         ("version", str(ch.get("version"))),
         ("last sample", f"{display.when(ch.get('last_sample_at'))} UTC"),
         ("created", f"{display.when(ch.get('created_at'))} UTC"),
@@ -99,6 +107,16 @@ def channels_show(client: Client, args: argparse.Namespace) -> int:
     for k, v in lines:
         print(f"{k.ljust(width)}  {v}")
     return 0
+
+
+def _forecast(f: dict[str, Any] | None, unit: str) -> str:
+    """The forecast of when the channel leaves tolerance, in words (as the pages say it)."""
+    if not f:
+        return "- (no tolerance, or too short a trace since the last calibration)"
+    if f.get("not_within_days") is not None:
+        return f"not within {f['not_within_days']} days (drift {_num(f.get('rate'), 3)} {unit}/day)"
+    return (f"leaves tolerance on {str(f.get('leaves_tolerance_on'))[:10]} (95 % interval "
+            f"{str(f.get('low'))[:10]} to {str(f.get('high'))[:10]}; drift {_num(f.get('rate'), 3)} {unit}/day)")
 
 
 # curve ----------------------------------------------------------------------------------
