@@ -321,3 +321,24 @@ def test_the_report_is_a_pdf_of_the_record(client: TestClient, keys: Keys, chann
     expect_error(client, "GET", f"/v1/channels/site-a.none/calibrations/{rid}/report.pdf", 404, "channel_not_found",
                  headers=tech)
     expect_error(client, "GET", f"{RECORDS}/{rid}/report.pdf", 403, "forbidden", headers=keys["device"])
+
+
+def test_a_large_fit_keeps_the_points_with_the_largest_errors_in_its_tables(client: TestClient, keys: Keys,
+                                                                           channel: Any) -> None:
+    """1,500 points: every one is judged, the tables hold the 1,000 with the largest as-left
+    |error| (numpy's argsort picks the same), in their order."""
+    rng = np.random.default_rng(7)
+    x = np.linspace(0, 100, 1500)
+    y = 1.0 + 0.2 * x + 0.01 * rng.standard_normal(x.size)
+    out = calibrate(client, keys["technician"], points=[{"x": float(a), "y": float(b)} for a, b in zip(x, y,
+                                                                                                   strict=True)])
+    rec = out["record"]
+    assert rec["table"] == {"points": 1500, "shown": 1000, "selection": "largest_as_left_error"}
+    line = np.polyfit(x, y, 1)
+    err = np.polyval(line, x) - y
+    keep = np.sort(np.argsort(-np.abs(err), kind="stable")[:1000])
+    np.testing.assert_allclose([p["x"] for p in rec["as_left"]], x[keep], rtol=0, atol=0)
+    np.testing.assert_allclose([p["error"] for p in rec["as_left"]], err[keep], rtol=0, atol=1e-9)
+    assert [p["x"] for p in rec["as_found"]] == [p["x"] for p in rec["as_left"]]
+    small = calibrate(client, keys["technician"])["record"]["table"]
+    assert small["selection"] == "all" and small["points"] == small["shown"]

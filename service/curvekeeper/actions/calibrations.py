@@ -74,6 +74,21 @@ def _fit(after: ChannelModel, report: dict[str, Any]) -> dict[str, Any]:
             "r_squared": report["r_squared"]}
 
 
+#: at most this many points in a record's as-found and as-left tables; a larger fit (a history
+#: fit of many samples) keeps the points with the largest as-left |error| there, its verdicts
+#: and interval suggestion still judged on every point
+TABLE_MAX = 1000
+
+
+def _shown(as_left: list[dict[str, Any]]) -> list[int]:
+    """Indices of the table rows a record keeps: all, or the ``TABLE_MAX`` with the largest
+    as-left |error| (in their original order)."""
+    if len(as_left) <= TABLE_MAX:
+        return list(range(len(as_left)))
+    size = np.array([abs(r["error"]) if r["error"] is not None else np.inf for r in as_left])
+    return sorted(np.argsort(-size, kind="stable")[:TABLE_MAX].tolist())
+
+
 def findings(before: ChannelModel, after: ChannelModel, points: list[tuple[list[float], float]],
              report: dict[str, Any]) -> dict[str, Any]:
     """As found, as left, fit, budget, decision rule, overall verdict (the as-left one: the
@@ -88,10 +103,13 @@ def findings(before: ChannelModel, after: ChannelModel, points: list[tuple[list[
     found_y = before.prediction(X).y if before.calibrated and len(X) else None
     as_found, found = _table(X, y, found_y, U, tol, rule)
     as_left, left = _table(X, y, after.prediction(X).y if len(X) else None, U, tol, rule)
-    return {"as_found": as_found, "as_left": as_left, "fit": _fit(after, report), "budget": budget,
-            "decision_rule": rule, "verdict": left, "as_found_verdict": found,
-            "interval_suggestion": suggest_interval(cfg["recalibration_interval_days"],
-                                                    [r["error"] for r in as_found], tol)}
+    interval = suggest_interval(cfg["recalibration_interval_days"], [r["error"] for r in as_found], tol)
+    keep = _shown(as_left)
+    table = {"points": len(as_left), "shown": len(keep),
+             "selection": "all" if len(keep) == len(as_left) else "largest_as_left_error"}
+    return {"as_found": [as_found[i] for i in keep], "as_left": [as_left[i] for i in keep], "table": table,
+            "fit": _fit(after, report), "budget": budget, "decision_rule": rule, "verdict": left,
+            "as_found_verdict": found, "interval_suggestion": interval}
 
 
 def check(repo: Repository, ch: Channel, *, at: datetime | None, supersedes: int | None, now: datetime,

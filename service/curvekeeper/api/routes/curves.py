@@ -6,6 +6,7 @@ from contextlib import nullcontext
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Query
+from fastapi.responses import Response
 
 from ...actions import curves
 from ...errors import PayloadTooLarge
@@ -67,9 +68,9 @@ def curve(channel_id: ChannelPath, ctx: Ctx, who: Who,
 
 
 @router.post("/calibrate", summary="Closed-form least-squares calibration, with its calibration record",
-             responses=error_responses(409))
+             response_model=CalibrationAnswer, responses=error_responses(409))
 @counted("points", lambda s: MAX_POINTS, "max_points", "points")
-def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> CalibrationAnswer:
+def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) -> Response:
     # a plain def: FastAPI runs it in a worker thread, so a large body is validated off the loop
     n = count_items(raw, "points")
     check_items(n, MAX_POINTS, "points", "max_points")
@@ -87,4 +88,6 @@ def calibrate(channel_id: ChannelPath, raw: RawCalibrateIn, ctx: Ctx, who: Who) 
                                conditions=body.conditions.model_dump() if body.conditions else None,
                                max_clock_skew_s=ctx.settings.max_clock_skew_s, csv=body.csv,
                                x_columns=body.x_columns, y_column=body.y_column, max_points=MAX_POINTS)
-    return CalibrationAnswer.model_validate(out)
+    # rendered here, in the worker thread: the record of a large calibration (a row per point,
+    # as found and as left) is megabytes of JSON, which would otherwise be written on the loop
+    return Response(CalibrationAnswer.model_validate(out).model_dump_json(), media_type="application/json")

@@ -96,11 +96,22 @@ class IntervalSuggestion(Answer):
     method: str
 
 
+class RecordTable(Answer):
+    """Which points the as-found and as-left tables hold."""
+
+    points: int = Field(description="the calibration's points (every one judged for the verdicts)")
+    shown: int = Field(description="the points in the tables: all, or at most 1,000")
+    selection: Literal["all", "largest_as_left_error"] = Field(
+        description="all; or, for a larger fit, the points with the largest as-left |error|, in their order")
+
+
 class RecordBody(Answer):
     """What a calibration found and left (on a dry run: what it would record)."""
 
     as_found: list[RecordPoint]
     as_left: list[RecordPoint]
+    table: RecordTable | None = Field(None, description="which points the tables hold (null: all, in records "
+                                                        "made before it was stated)")
     fit: Fit
     budget: RecordBudget
     decision_rule: DecisionRule
