@@ -55,6 +55,15 @@ class Settings:
     max_clock_skew_s: float = 300.0
     #: a reference instrument due within this many days (its due date included) is due_soon
     reference_due_soon_days: int = 30
+    #: broker to take samples from (mqtt://[user:password@]host[:port], mqtts:// for TLS); unset: no MQTT
+    mqtt_url: str | None = None
+    #: the service's MQTT client id: fixed, so its persistent session (and what the broker
+    #: holds for it while the service is down) is found again on restart
+    mqtt_client_id: str = "curvekeeper"
+    #: topics are ``{root}/samples/{channel_id}`` in and ``{root}/results/{channel_id}`` out
+    mqtt_topic_root: str = "curvekeeper/v1"
+    #: how long the broker keeps the session (and queues messages) while the service is away, seconds
+    mqtt_session_expiry_s: int = 7 * 24 * 3600
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

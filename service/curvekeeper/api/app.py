@@ -5,6 +5,7 @@ from __future__ import annotations
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from functools import partial
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
@@ -16,6 +17,7 @@ from ..actions.unit import Work
 from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics
+from ..mqtt import Subscriber, Topics, ingest_message
 from ..ratelimit import RateLimiter
 from ..store import Store
 from ..web import routes as web
@@ -28,6 +30,15 @@ DESCRIPTION = """Keeps each sensor channel's calibration curve current as refere
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
 `/healthz` and `/readyz`. The service supports, and does not replace, traceable
 accredited calibration and the rules that apply where the sensors are used."""
+
+
+def mqtt_subscriber(ctx: AppContext) -> Subscriber:
+    """The MQTT subscriber of ``ctx.settings.mqtt_url``: each message learned through the
+    same unit of work and action as ``POST /v1/channels/{id}/samples``."""
+    s = ctx.settings
+    assert s.mqtt_url is not None
+    return Subscriber(s.mqtt_url, partial(ingest_message, ctx.work, s, ctx.metrics), client_id=s.mqtt_client_id,
+                      topics=Topics(s.mqtt_topic_root), session_expiry_s=s.mqtt_session_expiry_s)
 
 
 def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None) -> FastAPI:
@@ -53,10 +64,15 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         except BaseException:
             store.dispose()
             raise
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, Work(store))
+        ctx = app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, Work(store))
+        subscriber = mqtt_subscriber(ctx) if settings.mqtt_url else None
         try:
+            if subscriber is not None:
+                subscriber.start()
             yield
         finally:
+            if subscriber is not None:
+                subscriber.stop()
             store.dispose()
 
     # docs_url/redoc_url off: FastAPI's pages load their scripts from a CDN; ours are local
