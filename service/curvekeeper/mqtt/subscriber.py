@@ -25,6 +25,7 @@ from typing import Any
 from urllib.parse import unquote, urlsplit
 
 import paho.mqtt.client as paho
+from paho.mqtt.enums import CallbackAPIVersion
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
@@ -82,7 +83,7 @@ class Subscriber:
         self.handle = handle
         self.topics = topics
         self.keepalive_s = keepalive_s
-        self.client = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id=client_id,
+        self.client = paho.Client(CallbackAPIVersion.VERSION2, client_id=client_id,
                                   protocol=paho.MQTTv5, manual_ack=True)
         if parts.username:
             self.client.username_pw_set(unquote(parts.username),
@@ -92,7 +93,7 @@ class Subscriber:
         self.client.reconnect_delay_set(1, 30)
         self.client.on_connect = self._on_connect
         self.client.on_message = self._on_message
-        self._connect_props = Properties(PacketTypes.CONNECT)
+        self._connect_props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
         self._connect_props.SessionExpiryInterval = session_expiry_s
         self._inbox: queue.Queue[_Message | None] = queue.Queue()
         self._generation = 0  # one per connection: a message id means something only on its own
