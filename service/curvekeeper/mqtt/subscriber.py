@@ -162,6 +162,8 @@ class Subscriber:
         log.info("MQTT: resuming the session so the broker delivers unacknowledged messages again")
         self.client.disconnect()
         self.client.loop_stop()
+        # paho's loop_start makes a new wake-up socket pair without closing the old one
+        self.client._reset_sockets(sockpair_only=True)
         with self._lock:
             self._generation += 1  # whatever is still queued belongs to the closed connection
         if not self._stopping.is_set():
