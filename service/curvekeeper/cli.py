@@ -38,8 +38,8 @@ def cmd_serve(args: argparse.Namespace) -> int:
     print(f"curvekeeper {masked(settings.database_url)} -> http://{settings.host}:{settings.port}/  "
           f"(API docs at http://{settings.host}:{settings.port}/docs; Ctrl-C stops)", flush=True)
     if settings.mqtt_url:
-        print(f"samples also from MQTT {masked(settings.mqtt_url)}, topics {settings.mqtt_topic_root}/samples/<channel>",
-              flush=True)
+        print(f"samples also from MQTT {masked(settings.mqtt_url)}, "
+              f"topics {settings.mqtt_topic_root}/samples/<channel>", flush=True)
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level,
                 access_log=args.access_log)
     return 0
