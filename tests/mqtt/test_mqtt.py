@@ -15,7 +15,7 @@ import httpx
 import pytest
 from curvekeeper.client import Client
 from curvekeeper.store.tables import Sample
-from sqlalchemy import create_engine, func, select
+from sqlalchemy import create_engine, distinct, func, select
 
 from tests.conftest import LINEAR, fresh_store
 from tests.mqtt.broker import Publisher, Results, broker_url, service_env, unique_root, wait_subscribed
@@ -160,14 +160,17 @@ def test_sigkill_mid_stream_loses_and_doubles_nothing(server: Server, store_url:
 
 
 def wait_for_stored(store_url: str, n: int, server: Server, timeout: float = 60.0) -> None:
-    """Until the store holds ``n`` samples (counted in one statement: the service writes on)."""
+    """Until the store holds ``n`` samples, none of them twice at any moment."""
     engine = create_engine(store_url)
     deadline = time.monotonic() + timeout
     try:
         while True:
             with engine.connect() as conn:
-                if int(conn.scalar(select(func.count()).select_from(Sample)) or 0) >= n:
-                    return
+                rows, unique = conn.execute(select(  # one statement: the service writes on meanwhile
+                    func.count(), func.count(distinct(Sample.channel_pk * 10**9 + Sample.source_seq)))).one()
+            assert rows == unique, f"{rows - unique} samples stored twice"
+            if rows >= n:
+                return
             if time.monotonic() > deadline:
                 pytest.fail(f"fewer than {n} samples stored after {timeout} s\n{server.log_tail()}")
             time.sleep(0.1)
