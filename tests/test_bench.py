@@ -13,17 +13,21 @@ from typing import Any
 
 import pytest
 
+from tests.bench.mqtt_bench import broker_reachable
+
 # the whole benchmark suite at smoke size: tens of seconds; in the README command, not the quick loop
 pytestmark = pytest.mark.slow
 
 ROOT = Path(__file__).resolve().parents[1]
-SECTIONS = {"core", "cost", "drift", "service"}
+# the MQTT section needs the broker (.ci/run starts Mosquitto); without one it is left out
+SECTIONS = {"core", "cost", "drift", "service"} | ({"mqtt"} if broker_reachable() else set())
 
 
 @pytest.fixture(scope="module")
 def smoke(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, Any]]:
     out = tmp_path_factory.mktemp("bench")
-    run = subprocess.run([sys.executable, "-m", "tests.bench", "--size", "smoke", "--out", str(out)], cwd=ROOT,
+    run = subprocess.run([sys.executable, "-m", "tests.bench", "--size", "smoke", "--out", str(out),
+                          "--only", ",".join(sorted(SECTIONS))], cwd=ROOT,
                          capture_output=True, text=True, timeout=600)
     assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
     return out, json.loads((out / "results.json").read_text())
@@ -96,3 +100,17 @@ def test_service_measurements_are_taken(smoke: tuple[Path, dict[str, Any]]) -> N
     for key in ("ratio_batch1", "ratio_batch1000", "samples_per_s_batch1000", "predict1_p50_ms", "predict10k_p50_ms",
                 "channels_ratio_ingest1", "channels_ratio_predict1", "db_bytes_per_channel", "rss_bytes_per_channel"):
         assert finite(h[key]) and h[key] > 0, key
+
+
+def test_mqtt_and_http_rates_are_measured_on_the_same_batches(smoke: tuple[Path, dict[str, Any]]) -> None:
+    if "mqtt" not in SECTIONS:
+        pytest.skip("no MQTT broker at 127.0.0.1:1883 (.ci/run starts Mosquitto)")
+    section = smoke[1]["sections"]["mqtt"]
+    h = section["headline"]
+    batches = [row[0] for row in section["tables"][0]["rows"]]
+    assert batches == [1, 100]
+    for b in batches:
+        assert finite(h[f"mqtt_samples_per_s_batch{b}"]) and h[f"mqtt_samples_per_s_batch{b}"] > 0
+        assert finite(h[f"http_samples_per_s_batch{b}"]) and h[f"http_samples_per_s_batch{b}"] > 0
+    # every sample of both protocols was stored (the section checks the channels' counts)
+    assert h["samples_each"] == 1 * 20 + 100 * 4

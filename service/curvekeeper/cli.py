@@ -23,7 +23,7 @@ def _admin(name: str) -> Callable[[argparse.Namespace], int]:
 
 def _settings(args: argparse.Namespace) -> Settings:
     return Settings.from_env(database_url=getattr(args, "db", None), host=getattr(args, "host", None),
-                             port=getattr(args, "port", None))
+                             port=getattr(args, "port", None), mqtt_url=getattr(args, "mqtt", None))
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
@@ -37,6 +37,9 @@ def cmd_serve(args: argparse.Namespace) -> int:
     app = create_app(settings)
     print(f"curvekeeper {masked(settings.database_url)} -> http://{settings.host}:{settings.port}/  "
           f"(API docs at http://{settings.host}:{settings.port}/docs; Ctrl-C stops)", flush=True)
+    if settings.mqtt_url:
+        print(f"samples also from MQTT {masked(settings.mqtt_url)}, "
+              f"topics {settings.mqtt_topic_root}/samples/<channel>", flush=True)
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level,
                 access_log=args.access_log)
     return 0
@@ -114,6 +117,9 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", help="address to listen on (default 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (default 8000)")
     serve.add_argument("--db", help="SQLAlchemy URL (default sqlite:///curvekeeper.db)")
+    serve.add_argument("--mqtt", metavar="URL",
+                       help="also learn samples from this MQTT broker, e.g. mqtt://127.0.0.1:1883 "
+                            "(topics curvekeeper/v1/samples/<channel>; default: CURVEKEEPER_MQTT_URL, else none)")
     serve.add_argument("--access-log", action="store_true", help="log every request")
     serve.set_defaults(func=cmd_serve)
 

@@ -60,6 +60,15 @@ class Settings:
     stale_sweep_s: float = 60.0
     #: seconds /metrics keeps the channel counts by state before counting again
     metrics_cache_s: float = 5.0
+    #: broker to take samples from (mqtt://[user:password@]host[:port], mqtts:// for TLS); unset: no MQTT
+    mqtt_url: str | None = None
+    #: the service's MQTT client id: fixed, so its persistent session (and what the broker
+    #: holds for it while the service is down) is found again on restart
+    mqtt_client_id: str = "curvekeeper"
+    #: topics are ``{root}/samples/{channel_id}`` in and ``{root}/results/{channel_id}`` out
+    mqtt_topic_root: str = "curvekeeper/v1"
+    #: how long the broker keeps the session (and queues messages) while the service is away, seconds
+    mqtt_session_expiry_s: int = 7 * 24 * 3600
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

@@ -25,7 +25,7 @@ from typing import Any
 
 from .report import SIZES, markdown
 
-SECTIONS = ("core", "cost", "drift", "service")  # module tests.bench.<name>_bench, each with run(size, out)
+SECTIONS = ("core", "cost", "drift", "service", "mqtt")  # module tests.bench.<name>_bench, each with run(size, out)
 
 
 def commit() -> str | None:

@@ -136,12 +136,12 @@ class Fleet:
     tmp: Path
     servers: list[Server] = field(default_factory=list)
 
-    def spawn(self, name: str, args: list[str], probe: str) -> Server:
+    def spawn(self, name: str, args: list[str], probe: str, env: dict[str, str] | None = None) -> Server:
         port = free_port()
         log = self.tmp / f"{name}.log"
         with log.open("wb") as f:
             proc = subprocess.Popen([sys.executable, "-m", *args, "--port", str(port)],
-                                    env={**os.environ, "CURVEKEEPER_ADMIN_KEY": SECRET},
+                                    env={**os.environ, "CURVEKEEPER_ADMIN_KEY": SECRET, **(env or {})},
                                     stdout=subprocess.DEVNULL, stderr=f)
         server = Server(name, proc, f"http://127.0.0.1:{port}", probe, log)
         self.servers.append(server)

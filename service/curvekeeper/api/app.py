@@ -7,6 +7,7 @@ import logging
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager, suppress
 from datetime import datetime
+from functools import partial
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
@@ -19,6 +20,7 @@ from ..actions.unit import Work
 from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics, StoreGauges
+from ..mqtt import Subscriber, Topics, ingest_message
 from ..ratelimit import RateLimiter
 from ..store import Store
 from ..store.tables import utcnow
@@ -32,6 +34,15 @@ DESCRIPTION = """Keeps each sensor channel's calibration curve current as refere
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
 `/healthz` and `/readyz`. The service supports, and does not replace, traceable
 accredited calibration and the rules that apply where the sensors are used."""
+
+
+def mqtt_subscriber(ctx: AppContext) -> Subscriber:
+    """The MQTT subscriber of ``ctx.settings.mqtt_url``: each message learned through the
+    same unit of work and action as ``POST /v1/channels/{id}/samples``."""
+    s = ctx.settings
+    assert s.mqtt_url is not None
+    return Subscriber(s.mqtt_url, partial(ingest_message, ctx.work, s, ctx.metrics), client_id=s.mqtt_client_id,
+                      topics=Topics(s.mqtt_topic_root), session_expiry_s=s.mqtt_session_expiry_s)
 
 
 def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None,
@@ -60,14 +71,19 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
             store.dispose()
             raise
         work = Work(store, clock=clock)
-        app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, work)
+        ctx = app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, work)
         gauges = StoreGauges(lambda: counts.by_state(work), settings.metrics_cache_s)
         metrics.watch_store(gauges)
         sweeper = (asyncio.create_task(stale.sweep_forever(work, settings.stale_sweep_s))
                    if settings.stale_sweep_s > 0 else None)
+        subscriber = mqtt_subscriber(ctx) if settings.mqtt_url else None
         try:
+            if subscriber is not None:
+                subscriber.start()
             yield
         finally:
+            if subscriber is not None:
+                subscriber.stop()
             if sweeper is not None:
                 sweeper.cancel()
                 with suppress(asyncio.CancelledError):
