@@ -38,6 +38,8 @@ from curvekeeper.store.tables import (
     ReferenceInstrument,
     Sample,
     Snapshot,
+    Webhook,
+    WebhookDelivery,
 )
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, make_url, select, text
@@ -182,7 +184,7 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
                   for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument,
-                            CalibrationRecord, CurveTrace)}
+                            CalibrationRecord, CurveTrace, Webhook, WebhookDelivery)}
         states = {pk: tuple(rest) for pk, *rest in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state, ChannelState.due_on, ChannelState.due_soon_on))}
