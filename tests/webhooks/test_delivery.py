@@ -6,6 +6,7 @@ The service's own dispatcher is off (``webhook_dispatch_s`` 0): the tests run it
 
 from __future__ import annotations
 
+import asyncio
 from collections.abc import Iterable, Iterator
 from datetime import datetime, timedelta
 from typing import Any
@@ -234,3 +235,21 @@ def test_a_refused_request_queues_nothing(client: TestClient, keys: Keys, receiv
     ok(client.post("/v1/channels", json={"id": CH, **LINEAR}, headers=keys["admin"]), 201)
     expect_error(client, "POST", f"{BASE}/rollback", 404, "snapshot_not_found", json={"snapshot": 12345},
                  headers=keys["technician"])
+
+
+def test_the_services_loop_runs_passes_between_its_sleeps(client: TestClient, keys: Keys,
+                                                          receiver: Receiver) -> None:
+    """``run_forever`` (the lifespan's task): a pass after each sleep; the sleep is the test's."""
+    hook(client, keys, receiver.url, ["calibration"])
+    calibrate_and_roll_back(client, keys)
+    slept: list[float] = []
+
+    async def sleep(s: float) -> None:
+        slept.append(s)
+        if len(slept) == 2:  # the second sleep: after one pass, stop the loop
+            raise asyncio.CancelledError
+
+    with pytest.raises(asyncio.CancelledError):
+        asyncio.run(dispatcher(client).run_forever(5.0, sleep=sleep))
+    assert slept == [5.0, 5.0]
+    assert [e["kind"] for e in receiver.events()] == ["calibration"] and receiver.received[0]["signed"]
