@@ -37,7 +37,8 @@ class Receiver:
                 good = "sha256=" + hmac.new(owner.secret, raw, hashlib.sha256).hexdigest()
                 owner.received.append({"body": json.loads(raw),
                                        "signed": hmac.compare_digest(good, self.headers["X-Curvekeeper-Signature"]),
-                                       "delivery": self.headers["X-Curvekeeper-Delivery"]})
+                                       "delivery": self.headers["X-Curvekeeper-Delivery"],
+                                       "host": self.headers["Host"]})
                 self.send_response(owner.status)
                 self.send_header("Content-Length", "0")
                 self.end_headers()

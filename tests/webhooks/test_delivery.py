@@ -16,7 +16,7 @@ from curvekeeper.actions import webhooks as actions
 from curvekeeper.api import create_app
 from curvekeeper.config import Settings
 from curvekeeper.store.tables import utcnow
-from curvekeeper.webhooks.dispatcher import Dispatcher, Outcome, backoff
+from curvekeeper.webhooks.dispatcher import Dispatcher, Outcome, backoff, pinned
 from fastapi.testclient import TestClient
 
 from tests.api.helpers import Keys, expect_error, ok
@@ -218,7 +218,7 @@ def test_the_address_is_checked_again_before_each_send(client: TestClient, keys:
     calibrate_and_roll_back(client, keys)
     sent: list[str] = []
 
-    def record(url: str, raw: bytes, headers: dict[str, str], timeout: float) -> Outcome:
+    def record(url: str, raw: bytes, headers: dict[str, str], timeout: float, address: str) -> Outcome:
         sent.append(url)
         return Outcome(200)
 
@@ -253,3 +253,27 @@ def test_the_services_loop_runs_passes_between_its_sleeps(client: TestClient, ke
         asyncio.run(dispatcher(client).run_forever(5.0, sleep=sleep))
     assert slept == [5.0, 5.0]
     assert [e["kind"] for e in receiver.events()] == ["calibration"] and receiver.received[0]["signed"]
+
+
+def test_the_send_goes_to_the_address_that_was_checked(client: TestClient, keys: Keys, receiver: Receiver) -> None:
+    """The connection is pinned to the checked address: a name only the test's resolver
+    knows (``.invalid`` never resolves, RFC 2606) reaches the receiver on 127.0.0.1, its
+    Host header still the URL's."""
+    url = f"http://receiver.invalid:{receiver.port}/hook"
+    ctx = client.app.state.ctx  # type: ignore[attr-defined]
+    with ctx.work.unit(write=True) as unit:
+        actions.create(unit.repo, url=url, events=["calibration"], secret=SECRET, allow_link_local=False,
+                       resolver=lambda h: ["127.0.0.1"])
+    calibrate_and_roll_back(client, keys)
+    assert dispatcher(client, resolver=lambda h: ["127.0.0.1"]).run_once(later()) == 1
+    assert [(r["host"], r["signed"]) for r in receiver.received] == [(f"receiver.invalid:{receiver.port}", True)]
+
+
+@pytest.mark.parametrize("url, address, want", [
+    ("https://relay.example.org/a?b=1", "10.0.0.8",
+     ("https://10.0.0.8/a?b=1", "relay.example.org", "relay.example.org")),
+    ("http://relay.example.org:8080/a", "fd12::1", ("http://[fd12::1]:8080/a", "relay.example.org:8080",
+                                                    "relay.example.org")),
+])
+def test_pinned(url: str, address: str, want: tuple[str, str, str]) -> None:
+    assert pinned(url, address) == want

@@ -14,6 +14,7 @@ from collections.abc import Awaitable, Callable, Iterable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
+from urllib.parse import urlsplit, urlunsplit
 
 import httpx
 
@@ -43,15 +44,29 @@ class Outcome:
         return self.status is not None and 200 <= self.status < 300
 
 
-Sender = Callable[[str, bytes, dict[str, str], float], Outcome]
+#: (url, body, headers, timeout_s, address): POST to url's host at ``address``, the one checked
+Sender = Callable[[str, bytes, dict[str, str], float, str], Outcome]
 
 
-def http_send(url: str, raw: bytes, headers: dict[str, str], timeout_s: float) -> Outcome:
-    """POST ``raw`` to ``url`` with httpx; redirects are not followed (a redirect could
-    lead past the address policy)."""
+def pinned(url: str, address: str) -> tuple[str, str, str]:
+    """``url`` with its host replaced by ``address`` (so the connection goes where the policy
+    looked, whatever the name resolves to a moment later), the Host header and the TLS name."""
+    parts = urlsplit(url)
+    host = parts.hostname or ""
+    ip = f"[{address}]" if ":" in address else address
+    netloc = ip if parts.port is None else f"{ip}:{parts.port}"
+    host_header = parts.netloc.rsplit("@", 1)[-1]
+    return urlunsplit(parts._replace(netloc=netloc)), host_header, host
+
+
+def http_send(url: str, raw: bytes, headers: dict[str, str], timeout_s: float, address: str) -> Outcome:
+    """POST ``raw`` to ``url`` at ``address`` with httpx (the Host header and the TLS server
+    name stay the URL's); redirects are not followed (one could lead past the address policy)."""
+    target, host_header, server_name = pinned(url, address)
     try:
         with httpx.Client(timeout=timeout_s, follow_redirects=False) as client:
-            r = client.post(url, content=raw, headers=headers)
+            r = client.post(target, content=raw, headers={**headers, "Host": host_header},
+                            extensions={"sni_hostname": server_name})
     except httpx.HTTPError as exc:
         return Outcome(None, f"{type(exc).__name__}: {exc}"[:500])
     return Outcome(r.status_code, None if 200 <= r.status_code < 300 else f"HTTP {r.status_code}")
@@ -115,12 +130,13 @@ class Dispatcher:
 
     def _send(self, url: str, secret: str, pk: int, raw: bytes) -> Outcome:
         try:  # the host is resolved again: it may point elsewhere now than when the webhook was made
-            policy.check(url, allow_link_local=self.settings.webhook_allow_link_local, resolver=self.resolver)
+            addrs = policy.check(url, allow_link_local=self.settings.webhook_allow_link_local,
+                                 resolver=self.resolver)
         except policy.Refused as exc:
             return Outcome(None, f"refused: {exc}")
         headers = {"Content-Type": "application/json", signing.SIGNATURE_HEADER: signing.sign(secret, raw),
                    signing.DELIVERY_HEADER: str(pk)}
-        return self.send(url, raw, headers, self.settings.webhook_timeout_s)
+        return self.send(url, raw, headers, self.settings.webhook_timeout_s, addrs[0])
 
     async def run_forever(self, interval_s: float,
                           sleep: Callable[[float], Awaitable[None]] = asyncio.sleep) -> None:

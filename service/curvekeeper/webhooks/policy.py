@@ -41,15 +41,14 @@ def refused_address(addr: str) -> str | None:
     return None
 
 
-def check(url: str, *, allow_link_local: bool, resolver: Resolver = resolve) -> None:
-    """Raise ``Refused`` unless ``url`` may receive webhooks; resolves its host with ``resolver``."""
+def check(url: str, *, allow_link_local: bool, resolver: Resolver = resolve) -> list[str]:
+    """The addresses ``url``'s host resolves to (with ``resolver``; the host itself when it
+    is an address), or ``Refused`` when the URL may not receive webhooks."""
     parts = urlsplit(url)
     if parts.scheme not in ("http", "https") or not parts.hostname:
         raise Refused("a webhook URL is http:// or https:// with a host")
-    if allow_link_local:
-        return
     host = parts.hostname.rstrip(".").lower()
-    if host in METADATA_HOSTS:
+    if host in METADATA_HOSTS and not allow_link_local:
         raise Refused(f"{host} is a cloud-metadata host")
     try:
         addrs = [str(ipaddress.ip_address(host))]
@@ -58,7 +57,10 @@ def check(url: str, *, allow_link_local: bool, resolver: Resolver = resolve) -> 
             addrs = list(resolver(host))
         except OSError as exc:
             raise Refused(f"{host} does not resolve: {exc}") from exc
+    if not addrs:
+        raise Refused(f"{host} resolves to no address")
     for a in addrs:
-        why = refused_address(a)
+        why = None if allow_link_local else refused_address(a)
         if why:
             raise Refused(why)
+    return addrs
