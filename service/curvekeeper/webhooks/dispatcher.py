@@ -11,6 +11,7 @@ import asyncio
 import logging
 import random
 from collections.abc import Awaitable, Callable, Iterable
+from contextlib import suppress
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
@@ -98,13 +99,20 @@ class Dispatcher:
         self.work, self.settings, self.send, self.resolver, self.rng = work, settings, send, resolver, rng
         #: how long a claim holds a delivery: a sender that dies meanwhile leaves it to another
         self.lease = timedelta(seconds=3 * settings.webhook_timeout_s + 30)
+        #: set when the service stops: a pass ends after its current attempt
+        self.stopping = False
 
     def run_once(self, now: datetime | None = None) -> int:
         """One pass: every delivery due at ``now`` gets one attempt. Returns the attempts made."""
         now = now or self.work.clock()
         with self.work.unit(write=False) as unit:
             due = unit.repo.due_deliveries(now, BATCH)
-        return sum(self._attempt(pk, now) for pk in due)
+        made = 0
+        for pk in due:
+            if self.stopping:  # the service is stopping: the rest stay due for the next start
+                break
+            made += self._attempt(pk, now)
+        return made
 
     def _attempt(self, pk: int, now: datetime) -> int:
         with self.work.unit(write=True) as unit:
@@ -144,7 +152,14 @@ class Dispatcher:
         (sends wait on the network; ingest never waits on them)."""
         while True:
             await sleep(interval_s)
+            running = asyncio.ensure_future(asyncio.to_thread(self.run_once))
             try:
-                await asyncio.to_thread(self.run_once)
+                await asyncio.shield(running)
             except ServiceError as exc:
                 log.warning("webhook dispatch skipped: %s", exc.message)
+            except asyncio.CancelledError:
+                # the thread's pass must end (after its current attempt) before the store closes
+                self.stopping = True
+                with suppress(Exception):
+                    await running
+                raise
