@@ -38,6 +38,8 @@ from curvekeeper.store.tables import (
     ReferenceInstrument,
     Sample,
     Snapshot,
+    Webhook,
+    WebhookDelivery,
 )
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, func, make_url, select, text
@@ -131,7 +133,9 @@ def fresh_store(request: pytest.FixtureRequest, tmp_path: Path, sqlite_template:
 
 @pytest.fixture
 def settings(database_url: str, kernels_ready: None) -> Settings:
-    return Settings(database_url=database_url, admin_key=ADMIN_SECRET)
+    # the webhook dispatcher's own passes are off: its queries would run amid a test's own
+    # (tests/webhooks drive its passes one at a time)
+    return Settings(database_url=database_url, admin_key=ADMIN_SECRET, webhook_dispatch_s=0.0)
 
 
 @pytest.fixture(scope="session")
@@ -182,7 +186,7 @@ def store_fingerprint(client: TestClient) -> dict[str, Any]:
         s = repo.session
         counts = {t.__tablename__: s.scalar(select(func.count()).select_from(t))
                   for t in (Channel, ChannelState, Sample, Snapshot, Event, ApiKey, ReferenceInstrument,
-                            CalibrationRecord, CurveTrace)}
+                            CalibrationRecord, CurveTrace, Webhook, WebhookDelivery)}
         states = {pk: tuple(rest) for pk, *rest in s.execute(
             select(ChannelState.channel_pk, ChannelState.version, ChannelState.n_samples,
                    ChannelState.model_state, ChannelState.due_on, ChannelState.due_soon_on))}

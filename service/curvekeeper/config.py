@@ -69,6 +69,16 @@ class Settings:
     mqtt_topic_root: str = "curvekeeper/v1"
     #: how long the broker keeps the session (and queues messages) while the service is away, seconds
     mqtt_session_expiry_s: int = 7 * 24 * 3600
+    #: seconds between passes of the webhook dispatcher over the delivery outbox (0: no dispatcher)
+    webhook_dispatch_s: float = 1.0
+    #: first retry delay of a failed webhook delivery, seconds; attempt n waits base * 2**(n-1), plus jitter
+    webhook_retry_base_s: float = 2.0
+    #: attempts before a delivery is dead-lettered
+    webhook_max_attempts: int = 8
+    #: seconds a webhook receiver has to answer one delivery
+    webhook_timeout_s: float = 10.0
+    #: allow webhook URLs at link-local or cloud-metadata addresses (refused by default)
+    webhook_allow_link_local: bool = False
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:

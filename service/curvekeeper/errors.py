@@ -60,6 +60,14 @@ class KeyNotFound(NotFound):
 
 class ReferenceNotFound(NotFound):
     code = "reference_not_found"
+class WebhookNotFound(NotFound):
+    code = "webhook_not_found"
+
+
+class DeliveryNotFound(NotFound):
+    code = "delivery_not_found"
+
+
 class CalibrationNotFound(NotFound):
     code = "calibration_not_found"
 

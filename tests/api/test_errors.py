@@ -22,6 +22,7 @@ from tests.api.helpers import expect_error, stored_state
 EXPECTED = {
     errors.Unauthorized: 401, errors.Forbidden: 403, errors.NotFound: 404, errors.ChannelNotFound: 404,
     errors.SnapshotNotFound: 404, errors.KeyNotFound: 404, errors.CalibrationNotFound: 404,
+    errors.WebhookNotFound: 404, errors.DeliveryNotFound: 404,
     errors.AlreadySuperseded: 409, errors.Conflict: 409, errors.ChannelExists: 409,
     errors.ImmutableField: 409, errors.NotCalibrated: 409, errors.NothingToAcknowledge: 409,
     errors.ServiceUnchanged: 409, errors.ChannelArchived: 409, errors.AlreadyArchived: 409, errors.NotArchived: 409,

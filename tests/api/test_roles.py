@@ -52,6 +52,8 @@ REF = "matrix.ref"
 NEW_REFERENCE = {"id": "{new}", "unit": "kPa", "expanded_uncertainty": 0.02, "certificate": "CERT-M",
                  "calibrated_on": "2026-01-05", "due_on": "2036-01-05"}
 
+HOOK = {"url": "http://127.0.0.1:9/hook", "events": ["drift_alarm"], "secret": "matrix-secret-0123456789"}
+
 C = "/v1/channels/{channel_id}"
 MATRIX = [
     #   method    path                            body                        none bad  rev  dev  dev2 tech admin
@@ -85,6 +87,12 @@ MATRIX = [
                                                                               401, 401, 401, 403, 403, 403, 201),
     Row("GET",    "/v1/keys",                     None,                       401, 401, 401, 403, 403, 403, 200),
     Row("DELETE", "/v1/keys/{kid}",               None,                       401, 401, 401, 403, 403, 403, 200),
+    Row("POST",   "/v1/webhooks",                 HOOK,                       401, 401, 401, 403, 403, 403, 201),
+    Row("GET",    "/v1/webhooks",                 None,                       401, 401, 401, 403, 403, 403, 200),
+    Row("DELETE", "/v1/webhooks/{wid}",           None,                       401, 401, 401, 403, 403, 403, 200),
+    Row("POST",   "/v1/webhooks/{wid}/test",      None,                       401, 401, 401, 403, 403, 403, 202),
+    Row("GET",    "/v1/webhooks/{wid}/deliveries", None,                      401, 401, 401, 403, 403, 403, 200),
+    Row("POST",   "/v1/webhooks/{wid}/deliveries/{did}/resend", None,         401, 401, 401, 403, 403, 403, 202),
     Row("GET",    "/v1/audit",                    None,                       401, 401, 401, 403, 403, 403, 200),
     Row("POST",   f"{C}/archive",                 {"note": "matrix"},         401, 401, 401, 403, 403, 200, 200,
         archived=False),
@@ -163,6 +171,13 @@ def test_each_caller_gets_the_status_the_table_says(client: TestClient, keys: Ke
                 made = client.post("/v1/keys", json={"role": "device"}, headers=keys["admin"])
                 assert made.status_code == 201, made.text
                 names["kid"] = made.json()["id"]
+            if "{wid}" in row.path:
+                made = client.post("/v1/webhooks", json=HOOK, headers=keys["admin"])
+                assert made.status_code == 201, made.text
+                names["wid"] = made.json()["id"]
+                queued = client.post(f"/v1/webhooks/{names['wid']}/test", headers=keys["admin"])
+                assert queued.status_code == 202, queued.text
+                names["did"] = queued.json()["id"]
             if row.alarm:
                 raise_alarm(client, keys)
             if row.archived is not None:

@@ -61,7 +61,8 @@ def test_postgres_store_is_never_inline(database_url: str) -> None:
 
 @sqlite_only
 def test_ingest_waits_for_a_writer_elsewhere_then_succeeds(database_url: str, held: sqlite3.Connection) -> None:
-    with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
+    app = create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET, webhook_dispatch_s=0.0))
+    with TestClient(app) as client:
         assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
         bench = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 26.0}, {"x": 100.0, "y": 51.2}]}
         assert client.post("/v1/channels/site-a.w1/calibrate", json=bench, headers=ADMIN).status_code == 200
@@ -82,7 +83,7 @@ def test_ingest_waits_for_a_writer_elsewhere_then_succeeds(database_url: str, he
 @sqlite_only
 def test_ingest_answers_503_and_stores_nothing_past_the_busy_timeout(database_url: str,
                                                                      held: sqlite3.Connection) -> None:
-    settings = Settings(database_url=database_url, admin_key=ADMIN_SECRET, busy_timeout_s=0.2)
+    settings = Settings(database_url=database_url, admin_key=ADMIN_SECRET, busy_timeout_s=0.2, webhook_dispatch_s=0.0)
     with TestClient(create_app(settings)) as client:
         assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
         before = store_fingerprint(client)
@@ -100,7 +101,8 @@ def test_ingest_answers_503_and_stores_nothing_past_the_busy_timeout(database_ur
 
 @sqlite_only
 def test_predict_reads_while_a_writer_holds_the_lock(database_url: str, held: sqlite3.Connection) -> None:
-    with TestClient(create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET))) as client:
+    app = create_app(Settings(database_url=database_url, admin_key=ADMIN_SECRET, webhook_dispatch_s=0.0))
+    with TestClient(app) as client:
         assert client.post("/v1/channels", json={"id": "site-a.w1", **LINEAR}, headers=ADMIN).status_code == 201
         bench = {"points": [{"x": 0.0, "y": 1.0}, {"x": 50.0, "y": 26.0}, {"x": 100.0, "y": 51.2}]}
         assert client.post("/v1/channels/site-a.w1/calibrate", json=bench, headers=ADMIN).status_code == 200

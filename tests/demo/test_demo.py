@@ -52,7 +52,8 @@ def _the_records_and_the_forecast(db: Path, result: DemoResult, text: str) -> No
 
     secret = "ck_demo-test-readback-0123456789"
     rid = scenario.REFERENCE["id"]
-    with TestClient(create_app(Settings(database_url=f"sqlite:///{db}", admin_key=secret))) as api:
+    app = create_app(Settings(database_url=f"sqlite:///{db}", admin_key=secret, webhook_dispatch_s=0.0))
+    with TestClient(app) as api:
         api.headers["Authorization"] = f"Bearer {secret}"
         ref = api.get(f"/v1/references/{rid}").json()
         assert (ref["certificate"], ref["calibrated_on"], ref["due_on"]) == ("CS-TH-2026-0917", "2026-09-14",
@@ -114,7 +115,7 @@ def test_simulate_command_posts_the_scenario_once(tmp_path: Path, monkeypatch: p
     secret = "ck_simulate-test-0123456789"
     port = free_port()
     server, thread = start_server(Settings(database_url=f"sqlite:///{tmp_path / 's.db'}", port=port,
-                                           admin_key=secret))
+                                           admin_key=secret, webhook_dispatch_s=0.0))
     try:
         argv = ["simulate", "--url", f"http://127.0.0.1:{port}", "--days", "1", "--step-min", "60"]
         monkeypatch.delenv("CURVEKEEPER_KEY", raising=False)

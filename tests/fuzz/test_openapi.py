@@ -41,7 +41,10 @@ pytestmark = pytest.mark.slow
 
 AUTH = {"Authorization": f"Bearer {ADMIN_SECRET}"}
 STORE = Path(tempfile.mkdtemp(prefix="ck-fuzz-")) / "store.db"
-APP = create_app(Settings(database_url=f"sqlite:///{STORE}", admin_key=ADMIN_SECRET))
+# no background tasks: the app is built at collection, and a task's thread beside the schema's
+# generation races the warnings filters (not thread-safe)
+APP = create_app(Settings(database_url=f"sqlite:///{STORE}", admin_key=ADMIN_SECRET, webhook_dispatch_s=0.0,
+                          stale_sweep_s=0.0))
 schema = schemathesis.openapi.from_asgi("/openapi.json", APP)
 
 #: every answer is declared: its status, its content type, its headers and its body
@@ -61,6 +64,8 @@ ALARMED = "site-a.alarm"
 #: a live channel for the archive cases and an archived one for the unarchive cases (each's
 #: first valid case changes it; the others answer 409), so no other operation meets an archived channel
 TO_ARCHIVE, ARCHIVED = "site-a.live", "site-a.retired"
+#: a spare webhook for the delete cases (the first valid one deletes it), so the others keep theirs
+SPARE_WEBHOOK: dict[str, str] = {}
 CHANNEL_ID = re.compile(r"^[a-z0-9._-]{1,128}$")
 #: status codes each operation answered, to show that every one gave a body to check
 ANSWERED: dict[str, set[int]] = {}
@@ -94,6 +99,15 @@ def running_app() -> Iterator[None]:
         for cid in (TO_ARCHIVE, ARCHIVED):
             assert c.post("/v1/channels", json={**body, "id": cid}, headers=AUTH).status_code == 201
         assert c.post(f"/v1/channels/{ARCHIVED}/archive", json={}, headers=AUTH).status_code == 200
+        hook = {"url": "http://10.20.0.5:8080/hooks", "events": ["drift_alarm"], "secret": "fuzz-signing-key-0001"}
+        for _ in range(2):
+            made = c.post("/v1/webhooks", headers=AUTH, json=hook)
+            assert made.status_code == 201, made.text
+            SPARE_WEBHOOK.setdefault("wid", made.json()["id"])
+        KNOWN["wid"] = made.json()["id"]
+        sent = c.post(f"/v1/webhooks/{KNOWN['wid']}/test", headers=AUTH)
+        assert sent.status_code == 202, sent.text
+        KNOWN["did"] = sent.json()["id"]
         yield
 
 
@@ -104,10 +118,15 @@ def aim(case: Any) -> None:
     the admin key the test runs with.)"""
     params = case.path_parameters or {}
     for name, value in params.items():
-        valid = (isinstance(value, str) and CHANNEL_ID.fullmatch(value) is not None) if name != "snapshot_id" \
-            else isinstance(value, int) and not isinstance(value, bool) and -(2**31) <= value < 2**31
+        low = 1 if name == "did" else -(2**31)  # a delivery id's path says ge=1
+        valid = (isinstance(value, str) and CHANNEL_ID.fullmatch(value) is not None
+                 and (name != "wid" or len(value) <= 40)) \
+            if name not in ("snapshot_id", "did") \
+            else isinstance(value, int) and not isinstance(value, bool) and low <= value < 2**31
         if name in KNOWN and valid:
             params[name] = KNOWN[name]
+            if name == "wid" and case.method.upper() == "DELETE":
+                params[name] = SPARE_WEBHOOK["wid"]
             if name == "channel_id":
                 params[name] = next((cid for end, cid in (("/acknowledge", ALARMED), ("/archive", TO_ARCHIVE),
                                                           ("/unarchive", ARCHIVED)) if case.path.endswith(end)),

@@ -25,10 +25,23 @@ from ..ratelimit import RateLimiter
 from ..store import Store
 from ..store.tables import utcnow
 from ..web import routes as web
+from ..webhooks.dispatcher import Dispatcher
 from . import docs, errors
 from .deps import AppContext, KeyCache
 from .middleware import BodyLimit, RequestMetrics, SecurityHeaders
-from .routes import audit, calibrations, channels, curves, health, keys, lifecycle, references, samples, snapshots
+from .routes import (
+    audit,
+    calibrations,
+    channels,
+    curves,
+    health,
+    keys,
+    lifecycle,
+    references,
+    samples,
+    snapshots,
+    webhooks,
+)
 
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
@@ -76,6 +89,8 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         metrics.watch_store(gauges)
         sweeper = (asyncio.create_task(stale.sweep_forever(work, settings.stale_sweep_s))
                    if settings.stale_sweep_s > 0 else None)
+        dispatcher = (asyncio.create_task(Dispatcher(work, settings).run_forever(settings.webhook_dispatch_s))
+                      if settings.webhook_dispatch_s > 0 else None)
         subscriber = mqtt_subscriber(ctx) if settings.mqtt_url else None
         try:
             if subscriber is not None:
@@ -84,10 +99,11 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         finally:
             if subscriber is not None:
                 subscriber.stop()
-            if sweeper is not None:
-                sweeper.cancel()
-                with suppress(asyncio.CancelledError):
-                    await sweeper
+            for task in (sweeper, dispatcher):
+                if task is not None:
+                    task.cancel()
+                    with suppress(asyncio.CancelledError):
+                        await task
             metrics.unwatch_store(gauges)
             store.dispose()
 
@@ -96,7 +112,8 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
                   docs_url=None, redoc_url=None)
     errors.install(app)
     docs.install(app, "curvekeeper")
-    for module in (health, channels, samples, curves, calibrations, snapshots, lifecycle, keys, audit, references, web):
+    for module in (health, channels, samples, curves, calibrations, snapshots, lifecycle, keys, audit, references,
+                   webhooks, web):
         app.include_router(module.router)
     app.include_router(web.root)
     app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)

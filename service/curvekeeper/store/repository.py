@@ -17,6 +17,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, aliased, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
+from ..webhooks import KINDS
 from .tables import (
     ApiKey,
     CalibrationRecord,
@@ -27,10 +28,13 @@ from .tables import (
     ReferenceInstrument,
     Sample,
     Snapshot,
+    Webhook,
+    WebhookDelivery,
     utcnow,
 )
 
 _SUCCESSOR = aliased(CalibrationRecord)
+DELIVERABLE = frozenset(KINDS)
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
                   "residual", "drift_statistic", "accepted", "reason", "reference")
@@ -108,6 +112,8 @@ _SEEN_SQLITE = "SELECT source_seq FROM sample WHERE channel_pk = ? AND source = 
 _SEEN_PG = _SEEN_SQLITE.replace("?", "%s")
 SAMPLE_T = cast(Table, Sample.__table__)
 EVENT_T = cast(Table, Event.__table__)
+DELIVERY_T = cast(Table, WebhookDelivery.__table__)
+WEBHOOK_T = cast(Table, Webhook.__table__)
 
 
 class Repository:
@@ -422,9 +428,32 @@ class Repository:
         return list(self.session.scalars(stmt))
 
     def insert_events(self, rows: Iterable[dict[str, Any]]) -> None:
+        """Insert events and, in the same transaction, the pending webhook deliveries of
+        those a webhook asked for (the outbox: this is the one place events are written)."""
         rows = [{"at": utcnow(), **r} for r in rows]
-        if rows:
-            self.session.connection().execute(insert(EVENT_T), rows)
+        if not rows:
+            return
+        conn = self.session.connection()
+        hooks = self._webhooks_wanting({r["kind"] for r in rows})
+        if not hooks:
+            conn.execute(insert(EVENT_T), rows)
+            return
+        for r in rows:
+            wanted = [pk for pk, kinds in hooks if r["kind"] in kinds]
+            if not wanted:
+                conn.execute(insert(EVENT_T), [r])
+                continue
+            event_pk = conn.execute(insert(EVENT_T).returning(EVENT_T.c.pk), r).scalar_one()
+            conn.execute(insert(DELIVERY_T), [
+                {"webhook_pk": w, "event_pk": event_pk, "state": "pending", "attempts": 0,
+                 "next_attempt_at": r["at"], "created_at": r["at"]} for w in wanted])
+
+    def _webhooks_wanting(self, kinds: set[str]) -> list[tuple[int, set[str]]]:
+        """(pk, kinds) of the webhooks that ask for any of ``kinds`` (one small SELECT)."""
+        if not kinds & DELIVERABLE:
+            return []
+        rows = self.session.connection().execute(select(WEBHOOK_T.c.pk, WEBHOOK_T.c.events))
+        return [(pk, set(ev)) for pk, ev in rows if kinds & set(ev)]
 
     def list_events(self, channel_pk: int, *, kind: str | None, after_pk: int | None,
                     limit: int) -> Sequence[Event]:
@@ -558,6 +587,81 @@ class Repository:
     def revoke_key(self, key: ApiKey) -> None:
         key.revoked_at = utcnow()
         self.session.flush()
+
+    # webhooks and their outbox ----------------------------------------------------------
+    def insert_webhook(self, hook: Webhook) -> None:
+        self.session.add(hook)
+        self.session.flush()
+
+    def get_webhook(self, wid: str) -> Webhook | None:
+        return self.session.scalars(select(Webhook).where(Webhook.id == wid)).one_or_none()
+
+    def list_webhooks(self, *, after_id: str | None, limit: int) -> Sequence[Webhook]:
+        stmt = select(Webhook).order_by(Webhook.id).limit(limit)
+        if after_id is not None:
+            stmt = stmt.where(Webhook.id > after_id)
+        return self.session.scalars(stmt).all()
+
+    def delete_webhook(self, hook: Webhook) -> None:
+        """The webhook and its deliveries (pending ones are dropped: nobody wants them now)."""
+        self.session.execute(delete(WebhookDelivery).where(WebhookDelivery.webhook_pk == hook.pk))
+        self.session.delete(hook)
+        self.session.flush()
+
+    def insert_delivery(self, delivery: WebhookDelivery) -> None:
+        self.session.add(delivery)
+        self.session.flush()
+
+    def get_delivery(self, webhook_pk: int, pk: int) -> WebhookDelivery | None:
+        return self.session.scalars(select(WebhookDelivery).where(WebhookDelivery.pk == pk,
+                                                                  WebhookDelivery.webhook_pk == webhook_pk)
+                                    ).one_or_none()
+
+    def list_deliveries(self, webhook_pk: int, *, state: str | None, after_pk: int | None,
+                        limit: int) -> Sequence[WebhookDelivery]:
+        stmt = (select(WebhookDelivery).where(WebhookDelivery.webhook_pk == webhook_pk)
+                .order_by(WebhookDelivery.pk).limit(limit))
+        if state:
+            stmt = stmt.where(WebhookDelivery.state == state)
+        if after_pk is not None:
+            stmt = stmt.where(WebhookDelivery.pk > after_pk)
+        return self.session.scalars(stmt).all()
+
+    def due_deliveries(self, now: datetime, limit: int) -> list[int]:
+        """Pks of pending deliveries due at ``now``, oldest due first."""
+        return list(self.session.scalars(
+            select(WebhookDelivery.pk).where(WebhookDelivery.state == "pending",
+                                             WebhookDelivery.next_attempt_at <= now)
+            .order_by(WebhookDelivery.next_attempt_at, WebhookDelivery.pk).limit(limit)))
+
+    def claim_delivery(self, pk: int, now: datetime, until: datetime) -> bool:
+        """Take a due delivery for one attempt (one conditional UPDATE: of processes racing
+        for it, one wins): counts the attempt and holds it until ``until``."""
+        res = self.session.execute(
+            update(WebhookDelivery).where(WebhookDelivery.pk == pk, WebhookDelivery.state == "pending",
+                                          WebhookDelivery.next_attempt_at <= now)
+            .values(next_attempt_at=until, attempts=WebhookDelivery.attempts + 1)
+            .execution_options(synchronize_session=False))
+        return bool(getattr(res, "rowcount", 0) == 1)
+
+    def delivery_to_send(self, pk: int) -> tuple[WebhookDelivery, Webhook, Event | None, str | None]:
+        """A delivery with its webhook, its event (None: a test send) and the event's channel id."""
+        d = self.session.get_one(WebhookDelivery, pk)
+        hook = self.session.get_one(Webhook, d.webhook_pk)
+        if d.event_pk is None:
+            return d, hook, None, None
+        ev, cid = self.session.execute(select(Event, Channel.id).outerjoin(Channel, Channel.pk == Event.channel_pk)
+                                       .where(Event.pk == d.event_pk)).one()
+        return d, hook, ev, cid
+
+    def reset_delivery(self, d: WebhookDelivery, now: datetime) -> None:
+        """Make a delivery pending again from its first attempt, due at ``now``."""
+        d.state, d.attempts, d.next_attempt_at, d.delivered_at = "pending", 0, now, None
+        self.session.flush()
+
+    def record_delivery(self, pk: int, **values: Any) -> None:
+        self.session.execute(update(WebhookDelivery).where(WebhookDelivery.pk == pk).values(**values)
+                             .execution_options(synchronize_session=False))
 
     def count_rows(self, table: Any, channel_pk: int | None = None) -> int:
         """Row count of a table (optionally one channel's): used by health checks and tests."""

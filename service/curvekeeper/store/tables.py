@@ -245,3 +245,38 @@ class CurveTrace(Base):
     difference: Mapped[float] = mapped_column(Float)
     u: Mapped[float | None] = mapped_column(Float, nullable=True)
     version: Mapped[int] = mapped_column(BigInteger)
+
+
+class Webhook(Base):
+    """A webhook: where events of the listed kinds are POSTed. ``secret`` is kept as given
+    (not hashed): the dispatcher signs each body with it (HMAC-SHA256), so the store holds it."""
+
+    __tablename__ = "webhook"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    id: Mapped[str] = mapped_column(String(40), unique=True)
+    url: Mapped[str] = mapped_column(Text)
+    events: Mapped[list[str]] = mapped_column(JSON)
+    secret: Mapped[str] = mapped_column(String(256))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class WebhookDelivery(Base):
+    """The outbox: one event (None: a test send) owed to one webhook. ``state`` is pending,
+    delivered or dead; a pending delivery is due at ``next_attempt_at`` (a claim moves it
+    ahead by a lease, so a crashed sender's claim expires and another process retries)."""
+
+    __tablename__ = "webhook_delivery"
+    __table_args__ = (Index("ix_webhook_delivery_due", "state", "next_attempt_at"),)
+
+    pk: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
+    webhook_pk: Mapped[int] = mapped_column(ForeignKey("webhook.pk", ondelete="CASCADE"), index=True)
+    event_pk: Mapped[int | None] = mapped_column(BigInteger, ForeignKey("event.pk", ondelete="CASCADE"),
+                                                 nullable=True)
+    state: Mapped[str] = mapped_column(String(16), default="pending")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    next_attempt_at: Mapped[datetime] = mapped_column(UTCDateTime)
+    last_status: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    delivered_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
