@@ -69,6 +69,8 @@ class Settings:
     mqtt_topic_root: str = "curvekeeper/v1"
     #: how long the broker keeps the session (and queues messages) while the service is away, seconds
     mqtt_session_expiry_s: int = 7 * 24 * 3600
+    #: seconds between passes of the MQTT event feed (events on ``{root}/events/{channel_id}``; 0: none)
+    mqtt_events_s: float = 1.0
     #: seconds between passes of the webhook dispatcher over the delivery outbox (0: no dispatcher)
     webhook_dispatch_s: float = 1.0
     #: first retry delay of a failed webhook delivery, seconds; attempt n waits base * 2**(n-1), plus jitter

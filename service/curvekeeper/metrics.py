@@ -13,6 +13,7 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable, Iterator, Mapping
+from dataclasses import dataclass
 from http import HTTPStatus
 from threading import Lock
 
@@ -33,7 +34,33 @@ UNMATCHED = "unmatched"
 CHANNEL_STATES = ("ok", "warning", "alarm", "out_of_tolerance", "out_of_service", "stale", "archived", "damaged",
                   "overdue")
 
+#: the ``state`` label of ``curvekeeper_webhook_outbox``
+OUTBOX_STATES = ("pending", "dead")
+#: the ``outcome`` label of ``curvekeeper_webhook_deliveries_total``: an attempt delivered, failed
+#: (to be retried), or failed for the last time (dead-lettered)
+DELIVERY_OUTCOMES = ("delivered", "failed", "dead")
+#: the ``outcome`` label of ``curvekeeper_mqtt_messages_total``: learned (a 2xx answer), refused
+#: (a 4xx error result), failed (a 5xx error result), deferred (not acknowledged: the store was
+#: busy; the broker delivers it again)
+MQTT_OUTCOMES = ("accepted", "refused", "failed", "deferred")
+
 log = logging.getLogger("curvekeeper.metrics")
+
+
+@dataclass(frozen=True)
+class StoreReading:
+    """What the store tells at a scrape: channels by state (``CHANNEL_STATES``) and webhook
+    deliveries by state (``OUTBOX_STATES``; ``pending`` is the outbox's depth)."""
+
+    channels: Mapping[str, int]
+    outbox: Mapping[str, int]
+
+
+def mqtt_outcome(status: int, acknowledged: bool) -> str:
+    """A message's outcome label from its answer's status and whether it was acknowledged."""
+    if not acknowledged:
+        return "deferred"
+    return "accepted" if status < 400 else "refused" if status < 500 else "failed"
 
 
 def method_label(method: str) -> str:
@@ -47,26 +74,26 @@ def status_label(status: int) -> str:
 
 
 class StoreGauges(Collector):
-    """Gauges read from the store when scraped: ``read()`` gives the channel counts by
-    state (a name in ``CHANNEL_STATES`` to a count), kept for ``ttl`` seconds. A store
-    that cannot answer leaves the family out of that scrape (logged), never fails it."""
+    """Gauges read from the store when scraped: ``read()`` gives a ``StoreReading``, kept
+    for ``ttl`` seconds. A store that cannot answer leaves the families out of that scrape
+    (logged), never fails it."""
 
-    def __init__(self, read: Callable[[], Mapping[str, int]], ttl: float,
+    def __init__(self, read: Callable[[], StoreReading], ttl: float,
                  clock: Callable[[], float] = time.monotonic) -> None:
         self.read = read
         self.ttl = ttl
         self.clock = clock
         self._lock = Lock()
-        self._counts: Mapping[str, int] | None = None
+        self._counts: StoreReading | None = None
         self._until = -float("inf")
 
-    def counts(self) -> Mapping[str, int] | None:
+    def counts(self) -> StoreReading | None:
         with self._lock:  # one scrape counts; one arriving meanwhile takes its result
             if self._counts is None or self.clock() >= self._until:
                 try:
                     self._counts = self.read()
                 except Exception as exc:  # a busy or lost store: this scrape goes without them
-                    log.warning("channel counts not read: %s", exc)
+                    log.warning("store gauges not read: %s", exc)
                     return None
                 self._until = self.clock() + self.ttl
             return self._counts
@@ -78,8 +105,13 @@ class StoreGauges(Collector):
         family = GaugeMetricFamily("curvekeeper_channels", "Channels by state: live ones under each state that "
                                    "applies, archived ones under archived only", labels=["state"])
         for state in CHANNEL_STATES:
-            family.add_metric([state], counts.get(state, 0))
+            family.add_metric([state], counts.channels.get(state, 0))
         yield family
+        outbox = GaugeMetricFamily("curvekeeper_webhook_outbox", "Webhook deliveries by state: pending (the "
+                                   "outbox's depth) and dead (dead-lettered, to be re-sent by hand)", labels=["state"])
+        for state in OUTBOX_STATES:
+            outbox.add_metric([state], counts.outbox.get(state, 0))
+        yield outbox
 
 
 class Metrics:
@@ -94,6 +126,16 @@ class Metrics:
                                registry=self.registry)
         self.drift_alarms = Counter("curvekeeper_drift_alarms_total", "Drift alarms raised",
                                     registry=self.registry)
+        self.deliveries = Counter("curvekeeper_webhook_deliveries_total", "Webhook delivery attempts by outcome",
+                                  ["outcome"], registry=self.registry)
+        self.mqtt_messages = Counter("curvekeeper_mqtt_messages_total", "MQTT sample messages by outcome",
+                                     ["outcome"], registry=self.registry)
+        self.mqtt_events = Counter("curvekeeper_mqtt_events_published_total",
+                                   "Events published on the MQTT events topics", registry=self.registry)
+        for outcome in DELIVERY_OUTCOMES:  # every series from the start, at zero
+            self.deliveries.labels(outcome)
+        for outcome in MQTT_OUTCOMES:
+            self.mqtt_messages.labels(outcome)
         # grows whenever a call compiles or loads machine code: flat while serving means no request waited
         Gauge("curvekeeper_kernel_specializations", "Compiled kernel specialisations loaded in this process",
               registry=self.registry).set_function(specializations)
@@ -111,6 +153,14 @@ class Metrics:
         self.samples.labels("duplicate").inc(duplicates)
         if alarms:
             self.drift_alarms.inc(alarms)
+
+    def observe_delivery(self, outcome: str) -> None:
+        """One webhook delivery attempt: an outcome of ``DELIVERY_OUTCOMES``."""
+        self.deliveries.labels(outcome if outcome in DELIVERY_OUTCOMES else "failed").inc()
+
+    def observe_mqtt(self, status: int, acknowledged: bool) -> None:
+        """One MQTT sample message, by its answer's status and whether it was acknowledged."""
+        self.mqtt_messages.labels(mqtt_outcome(status, acknowledged)).inc()
 
     def watch_store(self, gauges: StoreGauges) -> None:
         """Serve the store's gauges from now on (the app's lifespan calls it once the store is open)."""

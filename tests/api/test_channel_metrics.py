@@ -13,7 +13,7 @@ from typing import Any
 import pytest
 from curvekeeper.api import create_app
 from curvekeeper.config import Settings
-from curvekeeper.metrics import CHANNEL_STATES, StoreGauges, method_label, status_label
+from curvekeeper.metrics import CHANNEL_STATES, OUTBOX_STATES, StoreGauges, StoreReading, method_label, status_label
 from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
 from sqlalchemy import select, update
@@ -89,24 +89,25 @@ def test_the_counts_are_read_once_per_ttl_and_a_failing_read_skips_the_family() 
     now = [0.0]
     fail = [False]
 
-    def read() -> dict[str, int]:
+    def read() -> StoreReading:
         if fail[0]:
             raise RuntimeError("store unreachable")
         reads.append(1)
-        return {"ok": len(reads)}
+        return StoreReading({"ok": len(reads)}, {"pending": 3})
 
     gauges = StoreGauges(read, ttl=5.0, clock=lambda: now[0])
-    assert gauges.counts() == {"ok": 1}
+    assert gauges.counts() == StoreReading({"ok": 1}, {"pending": 3})
     now[0] = 4.999
-    assert gauges.counts() == {"ok": 1} and len(reads) == 1
+    assert gauges.counts() == StoreReading({"ok": 1}, {"pending": 3}) and len(reads) == 1
     now[0] = 5.0
-    assert gauges.counts() == {"ok": 2}
+    assert gauges.counts() == StoreReading({"ok": 2}, {"pending": 3})
     fail[0] = True
     now[0] = 20.0
     assert gauges.counts() is None and list(gauges.collect()) == []
     fail[0] = False
-    [family] = list(gauges.collect())
-    assert [s.labels["state"] for s in family.samples] == list(CHANNEL_STATES)
+    channels, outbox = list(gauges.collect())
+    assert [s.labels["state"] for s in channels.samples] == list(CHANNEL_STATES)
+    assert [(s.labels["state"], s.value) for s in outbox.samples] == list(zip(OUTBOX_STATES, (3, 0), strict=True))
 
 
 def test_every_label_value_is_from_a_fixed_set() -> None:

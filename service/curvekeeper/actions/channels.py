@@ -72,6 +72,8 @@ def refresh_due(repo: Repository, st: ChannelState, config: dict[str, Any], last
     """Set the due-date columns after a calibration at ``last`` or a change of settings."""
     cols = due_columns(config, last)
     if (st.last_calibrated_at, st.due_on, st.due_soon_on) != tuple(cols.values()):
+        if cols["due_on"] != st.due_on:  # a new due date: the due watch tells it again
+            cols["due_noticed"] = None
         repo.save_due(st, **cols)
 
 

@@ -26,6 +26,7 @@ from ..errors import ServiceError
 from ..store import Repository
 from ..store.repository import LearningState
 from ..store.tables import ChannelState
+from . import duewatch
 from .unit import Work
 
 log = logging.getLogger("curvekeeper.stale")
@@ -115,12 +116,14 @@ def sweep_all(work: Work) -> int:
 async def sweep_forever(work: Work, interval_s: float,
                         sleep: Callable[[float], Awaitable[None]] = asyncio.sleep) -> None:
     """The service's sweep: every ``interval_s`` seconds, in a worker thread (the store may
-    wait on a lock or the network). A busy store only delays it to the next round."""
+    wait on a lock or the network), the silence watch and then the due watch
+    (``actions.duewatch``). A busy store only delays them to the next round."""
     while True:
         await sleep(interval_s)
-        try:
-            n = await asyncio.to_thread(sweep_all, work)
-            if n:
-                log.info("%d channel(s) became stale", n)
-        except ServiceError as exc:
-            log.warning("stale sweep skipped: %s", exc.message)
+        for name, run in (("became stale", sweep_all), ("came due or overdue", duewatch.sweep_all)):
+            try:
+                n = await asyncio.to_thread(run, work)
+                if n:
+                    log.info("%d channel(s) %s", n, name)
+            except ServiceError as exc:
+                log.warning("sweep skipped (%s): %s", name, exc.message)

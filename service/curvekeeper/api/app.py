@@ -21,6 +21,7 @@ from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics, StoreGauges
 from ..mqtt import Subscriber, Topics, ingest_message
+from ..mqtt.feed import EventFeed, Publisher
 from ..ratelimit import RateLimiter
 from ..store import Store
 from ..store.tables import utcnow
@@ -85,25 +86,35 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
             raise
         work = Work(store, clock=clock)
         ctx = app.state.ctx = AppContext(settings, store, metrics, KeyCache(), limiter, build, work)
-        gauges = StoreGauges(lambda: counts.by_state(work), settings.metrics_cache_s)
+        gauges = StoreGauges(lambda: counts.store_reading(work), settings.metrics_cache_s)
         metrics.watch_store(gauges)
         sweeper = (asyncio.create_task(stale.sweep_forever(work, settings.stale_sweep_s))
                    if settings.stale_sweep_s > 0 else None)
-        dispatcher = (asyncio.create_task(Dispatcher(work, settings).run_forever(settings.webhook_dispatch_s))
+        dispatcher = (asyncio.create_task(Dispatcher(work, settings, metrics=metrics)
+                                          .run_forever(settings.webhook_dispatch_s))
                       if settings.webhook_dispatch_s > 0 else None)
         subscriber = mqtt_subscriber(ctx) if settings.mqtt_url else None
+        publisher = (Publisher(settings.mqtt_url, f"{settings.mqtt_client_id}-events")
+                     if settings.mqtt_url and settings.mqtt_events_s > 0 else None)
+        feed = None
         try:
             if subscriber is not None:
                 subscriber.start()
+            if publisher is not None:
+                publisher.start()
+                feed = asyncio.create_task(EventFeed(work, publisher, root=settings.mqtt_topic_root, metrics=metrics)
+                                           .run_forever(settings.mqtt_events_s))
             yield
         finally:
             if subscriber is not None:
                 subscriber.stop()
-            for task in (sweeper, dispatcher):
+            for task in (sweeper, dispatcher, feed):
                 if task is not None:
                     task.cancel()
                     with suppress(asyncio.CancelledError):
                         await task
+            if publisher is not None:
+                publisher.stop()
             metrics.unwatch_store(gauges)
             store.dispose()
 

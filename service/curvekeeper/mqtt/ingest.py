@@ -56,7 +56,13 @@ def _parse(payload: bytes) -> Any:
 
 def ingest_message(work: Work, settings: Settings, metrics: Metrics, channel_id: str, payload: bytes) -> Reply:
     """Learn the samples of one message for ``channel_id`` (committed before this returns
-    an accepted reply); never raises for anything the message holds."""
+    an accepted reply); never raises for anything the message holds. Counted by outcome."""
+    reply = _learn(work, settings, metrics, channel_id, payload)
+    metrics.observe_mqtt(reply.status, reply.ack)
+    return reply
+
+
+def _learn(work: Work, settings: Settings, metrics: Metrics, channel_id: str, payload: bytes) -> Reply:
     try:
         raw = _parse(payload)
         check_items(len(raw["samples"]) if isinstance(raw, dict) and isinstance(raw.get("samples"), list) else 0,

@@ -18,6 +18,7 @@ from sqlalchemy.orm import Session, aliased, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
 from ..webhooks import KINDS
+from .outbox import OutboxQueries
 from .tables import (
     ApiKey,
     CalibrationRecord,
@@ -116,8 +117,9 @@ DELIVERY_T = cast(Table, WebhookDelivery.__table__)
 WEBHOOK_T = cast(Table, Webhook.__table__)
 
 
-class Repository:
-    """SQL for one transaction (the caller's unit of work commits or rolls it back)."""
+class Repository(OutboxQueries):
+    """SQL for one transaction (the caller's unit of work commits or rolls it back); the
+    webhooks' outbox and the event feed in ``OutboxQueries``."""
 
     def __init__(self, session: Session) -> None:
         self.session = session
@@ -237,9 +239,9 @@ class Repository:
         ch.config = config
         self.session.flush()
 
-    def save_due(self, st: ChannelState | LearningState, **values: datetime | date | None) -> None:
+    def save_due(self, st: ChannelState | LearningState, **values: datetime | date | str | None) -> None:
         """The state row's due-date columns (``last_calibrated_at``, ``due_on``,
-        ``due_soon_on``), or its silence watch's (``silent_since``, ``stale_after``,
+        ``due_soon_on``, ``due_noticed``), or its silence watch's (``silent_since``, ``stale_after``,
         ``stale_since``); ``st`` shows them afterwards."""
         self.session.execute(update(ChannelState).where(ChannelState.channel_pk == st.channel_pk).values(**values))
         for name, value in values.items():
@@ -264,6 +266,27 @@ class Repository:
                            ChannelState.silent_since)
                 .execution_options(synchronize_session=False))
         return [(r[0], r[1], r[2], r[3]) for r in self.session.execute(stmt)]
+
+    def mark_due(self, today: date, limit: int) -> list[tuple[int, str, date, int]]:
+        """Mark up to ``limit`` live channels whose calibration is ``overdue`` on ``today``
+        (``due_on`` passed) or ``due_soon`` (from ``due_soon_on``) and not yet noticed so
+        for their current due date; (channel_pk, mark, due_on, version) of each row changed.
+        Conditional UPDATEs, as ``mark_stale``: each due date is marked once per state."""
+        live = select(Channel.pk).where(Channel.archived_at.is_(None))
+        out: list[tuple[int, str, date, int]] = []
+        for mark, when in (("overdue", (ChannelState.due_on < today,
+                                        func.coalesce(ChannelState.due_noticed, "") != "overdue")),
+                           ("due_soon", (ChannelState.due_soon_on <= today, ChannelState.due_on >= today,
+                                         ChannelState.due_noticed.is_(None)))):
+            if len(out) >= limit:
+                break
+            pks = (select(ChannelState.channel_pk).where(ChannelState.channel_pk.in_(live), *when)
+                   .order_by(ChannelState.channel_pk).limit(limit - len(out)).scalar_subquery())
+            stmt = (update(ChannelState).where(ChannelState.channel_pk.in_(pks), *when).values(due_noticed=mark)
+                    .returning(ChannelState.channel_pk, ChannelState.due_on, ChannelState.version)
+                    .execution_options(synchronize_session=False))
+            out += [(r[0], mark, r[1], r[2]) for r in self.session.execute(stmt)]
+        return out
 
     def count_states(self, now: datetime, today: date, damaged: Collection[int] = ()) -> dict[str, int]:
         """Channels by state in one query: live ones under each state that applies (drift
@@ -589,80 +612,6 @@ class Repository:
         self.session.flush()
 
     # webhooks and their outbox ----------------------------------------------------------
-    def insert_webhook(self, hook: Webhook) -> None:
-        self.session.add(hook)
-        self.session.flush()
-
-    def get_webhook(self, wid: str) -> Webhook | None:
-        return self.session.scalars(select(Webhook).where(Webhook.id == wid)).one_or_none()
-
-    def list_webhooks(self, *, after_id: str | None, limit: int) -> Sequence[Webhook]:
-        stmt = select(Webhook).order_by(Webhook.id).limit(limit)
-        if after_id is not None:
-            stmt = stmt.where(Webhook.id > after_id)
-        return self.session.scalars(stmt).all()
-
-    def delete_webhook(self, hook: Webhook) -> None:
-        """The webhook and its deliveries (pending ones are dropped: nobody wants them now)."""
-        self.session.execute(delete(WebhookDelivery).where(WebhookDelivery.webhook_pk == hook.pk))
-        self.session.delete(hook)
-        self.session.flush()
-
-    def insert_delivery(self, delivery: WebhookDelivery) -> None:
-        self.session.add(delivery)
-        self.session.flush()
-
-    def get_delivery(self, webhook_pk: int, pk: int) -> WebhookDelivery | None:
-        return self.session.scalars(select(WebhookDelivery).where(WebhookDelivery.pk == pk,
-                                                                  WebhookDelivery.webhook_pk == webhook_pk)
-                                    ).one_or_none()
-
-    def list_deliveries(self, webhook_pk: int, *, state: str | None, after_pk: int | None,
-                        limit: int) -> Sequence[WebhookDelivery]:
-        stmt = (select(WebhookDelivery).where(WebhookDelivery.webhook_pk == webhook_pk)
-                .order_by(WebhookDelivery.pk).limit(limit))
-        if state:
-            stmt = stmt.where(WebhookDelivery.state == state)
-        if after_pk is not None:
-            stmt = stmt.where(WebhookDelivery.pk > after_pk)
-        return self.session.scalars(stmt).all()
-
-    def due_deliveries(self, now: datetime, limit: int) -> list[int]:
-        """Pks of pending deliveries due at ``now``, oldest due first."""
-        return list(self.session.scalars(
-            select(WebhookDelivery.pk).where(WebhookDelivery.state == "pending",
-                                             WebhookDelivery.next_attempt_at <= now)
-            .order_by(WebhookDelivery.next_attempt_at, WebhookDelivery.pk).limit(limit)))
-
-    def claim_delivery(self, pk: int, now: datetime, until: datetime) -> bool:
-        """Take a due delivery for one attempt (one conditional UPDATE: of processes racing
-        for it, one wins): counts the attempt and holds it until ``until``."""
-        res = self.session.execute(
-            update(WebhookDelivery).where(WebhookDelivery.pk == pk, WebhookDelivery.state == "pending",
-                                          WebhookDelivery.next_attempt_at <= now)
-            .values(next_attempt_at=until, attempts=WebhookDelivery.attempts + 1)
-            .execution_options(synchronize_session=False))
-        return bool(getattr(res, "rowcount", 0) == 1)
-
-    def delivery_to_send(self, pk: int) -> tuple[WebhookDelivery, Webhook, Event | None, str | None]:
-        """A delivery with its webhook, its event (None: a test send) and the event's channel id."""
-        d = self.session.get_one(WebhookDelivery, pk)
-        hook = self.session.get_one(Webhook, d.webhook_pk)
-        if d.event_pk is None:
-            return d, hook, None, None
-        ev, cid = self.session.execute(select(Event, Channel.id).outerjoin(Channel, Channel.pk == Event.channel_pk)
-                                       .where(Event.pk == d.event_pk)).one()
-        return d, hook, ev, cid
-
-    def reset_delivery(self, d: WebhookDelivery, now: datetime) -> None:
-        """Make a delivery pending again from its first attempt, due at ``now``."""
-        d.state, d.attempts, d.next_attempt_at, d.delivered_at = "pending", 0, now, None
-        self.session.flush()
-
-    def record_delivery(self, pk: int, **values: Any) -> None:
-        self.session.execute(update(WebhookDelivery).where(WebhookDelivery.pk == pk).values(**values)
-                             .execution_options(synchronize_session=False))
-
     def count_rows(self, table: Any, channel_pk: int | None = None) -> int:
         """Row count of a table (optionally one channel's): used by health checks and tests."""
         stmt = select(func.count()).select_from(table)

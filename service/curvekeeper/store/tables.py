@@ -108,6 +108,9 @@ class ChannelState(Base):
     silent_since: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
     stale_after: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True, index=True)
     stale_since: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    #: the due watch (``actions.duewatch``): ``due_soon`` or ``overdue`` once that event is
+    #: written for the current ``due_on`` (null again when the due date changes)
+    due_noticed: Mapped[str | None] = mapped_column(String(16), nullable=True)
 
 
 class Sample(Base):
@@ -280,3 +283,16 @@ class WebhookDelivery(Base):
     last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     delivered_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+
+
+class EventFeed(Base):
+    """Where a feed of events (``mqtt``: the events topics) stands: the last event published
+    and who holds the lease to publish the next ones (one process at a time; a lease that
+    runs out passes to another)."""
+
+    __tablename__ = "event_feed"
+
+    name: Mapped[str] = mapped_column(String(32), primary_key=True)
+    last_event_pk: Mapped[int] = mapped_column(BigInteger)
+    lease_owner: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    lease_until: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)

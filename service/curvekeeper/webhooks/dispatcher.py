@@ -22,6 +22,7 @@ import httpx
 from ..actions.unit import Work
 from ..config import Settings
 from ..errors import ServiceError
+from ..metrics import Metrics
 from ..store.tables import Event
 from . import TEST_KIND, policy, signing
 
@@ -91,12 +92,14 @@ def event_json(ev: Event | None, channel: str | None, delivery_at: datetime) -> 
 
 class Dispatcher:
     """Sends what the outbox owes. ``send``, ``resolver`` and ``rng`` are injectable (tests);
-    ``run_once(now)`` is one pass at time ``now`` (default: the work's clock)."""
+    ``run_once(now)`` is one pass at time ``now`` (default: the work's clock); ``metrics``
+    counts the attempts by outcome."""
 
     def __init__(self, work: Work, settings: Settings, *, send: Sender = http_send,
                  resolver: Callable[[str], Iterable[str]] = policy.resolve,
-                 rng: Callable[[], float] = random.random) -> None:
+                 rng: Callable[[], float] = random.random, metrics: Metrics | None = None) -> None:
         self.work, self.settings, self.send, self.resolver, self.rng = work, settings, send, resolver, rng
+        self.metrics = metrics
         #: how long a claim holds a delivery: a sender that dies meanwhile leaves it to another
         self.lease = timedelta(seconds=3 * settings.webhook_timeout_s + 30)
         #: set when the service stops: a pass ends after its current attempt
@@ -134,6 +137,8 @@ class Dispatcher:
                       "last_error": outcome.error}
         with self.work.unit(write=True) as unit:
             unit.repo.record_delivery(pk, **values)
+        if self.metrics is not None:
+            self.metrics.observe_delivery(values.get("state", "failed"))
         return 1
 
     def _send(self, url: str, secret: str, pk: int, raw: bytes) -> Outcome:
