@@ -7,6 +7,7 @@ The service's own dispatcher is off (``webhook_dispatch_s`` 0): the tests run it
 from __future__ import annotations
 
 import asyncio
+import re
 from collections.abc import Iterable, Iterator
 from datetime import datetime, timedelta
 from typing import Any
@@ -33,7 +34,7 @@ POINTS = {"points": [{"x": x, "y": 1.0 + 0.5 * x} for x in (0.0, 25.0, 50.0, 75.
 
 @pytest.fixture
 def quiet(settings: Settings) -> Settings:
-    return settings.with_(webhook_dispatch_s=0.0, stale_sweep_s=0.0, webhook_max_attempts=4)
+    return settings.with_(webhook_dispatch_s=0.0, stale_sweep_s=0.0, webhook_max_attempts=4, metrics_cache_s=0.0)
 
 
 @pytest.fixture
@@ -52,7 +53,20 @@ def receiver() -> Iterator[Receiver]:
 
 def dispatcher(client: TestClient, **kw: Any) -> Dispatcher:
     ctx = client.app.state.ctx  # type: ignore[attr-defined]
-    return Dispatcher(ctx.work, ctx.settings, rng=lambda: 0.0, **kw)
+    return Dispatcher(ctx.work, ctx.settings, rng=lambda: 0.0, metrics=ctx.metrics, **kw)
+
+
+def metric(client: TestClient, keys: Keys, family: str, label: str, value: str) -> float:
+    """One series of /metrics, e.g. ``curvekeeper_webhook_outbox{state="dead"}``."""
+    text = ok_text(client.get("/metrics", headers=keys["technician"]))
+    found = re.search(rf'^{family}\{{{label}="{value}"\}} (\S+)$', text, re.M)
+    assert found, f"no {family}{{{label}={value}}} in /metrics"
+    return float(found.group(1))
+
+
+def ok_text(r: Any) -> str:
+    assert r.status_code == 200, r.text
+    return str(r.text)
 
 
 def hook(client: TestClient, keys: Keys, url: str, events: list[str]) -> str:
@@ -85,6 +99,7 @@ def test_an_event_is_delivered_once_signed(client: TestClient, keys: Keys, recei
     other = hook(client, keys, receiver.url, ["drift_alarm"])  # wants neither
     calibrate_and_roll_back(client, keys)
     assert [d["state"] for d in deliveries(client, keys, hid)] == ["pending", "pending"]
+    assert metric(client, keys, "curvekeeper_webhook_outbox", "state", "pending") == 2  # the outbox's depth
     assert deliveries(client, keys, other) == []
     d = dispatcher(client)
     now = later()
@@ -154,6 +169,11 @@ def test_a_receiver_that_always_fails_ends_dead_and_can_be_resent(client: TestCl
         d.run_once(now)
         now += timedelta(hours=1)
     assert len(receiver.received) == 4  # webhook_max_attempts
+    # the attempts by outcome, and the outbox by state
+    attempts = {o: metric(client, keys, "curvekeeper_webhook_deliveries_total", "outcome", o)
+                for o in ("delivered", "failed", "dead")}
+    assert attempts == {"delivered": 0.0, "failed": 3.0, "dead": 1.0}
+    assert [metric(client, keys, "curvekeeper_webhook_outbox", "state", s) for s in ("pending", "dead")] == [0, 1]
     dead = deliveries(client, keys, hid, "dead")
     assert [(x["attempts"], x["last_status"], x["next_attempt_at"]) for x in dead] == [(4, 500, None)]
     assert deliveries(client, keys, hid, "pending") == []
@@ -163,6 +183,8 @@ def test_a_receiver_that_always_fails_ends_dead_and_can_be_resent(client: TestCl
     assert d.run_once(later(3600 * 7)) == 1
     assert [x["state"] for x in deliveries(client, keys, hid)] == ["delivered"]
     assert len(receiver.received) == 5 and all(r["signed"] for r in receiver.received)
+    assert metric(client, keys, "curvekeeper_webhook_deliveries_total", "outcome", "delivered") == 1.0
+    assert metric(client, keys, "curvekeeper_webhook_outbox", "state", "dead") == 0.0
 
 
 def test_backoff_schedule(client: TestClient, keys: Keys, receiver: Receiver) -> None:

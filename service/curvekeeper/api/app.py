@@ -101,9 +101,10 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
             if subscriber is not None:
                 subscriber.start()
             if publisher is not None:
+                events = EventFeed(work, publisher, root=settings.mqtt_topic_root, metrics=metrics)
+                events.prepare()
                 publisher.start()
-                feed = asyncio.create_task(EventFeed(work, publisher, root=settings.mqtt_topic_root, metrics=metrics)
-                                           .run_forever(settings.mqtt_events_s))
+                feed = asyncio.create_task(events.run_forever(settings.mqtt_events_s))
             yield
         finally:
             if subscriber is not None:

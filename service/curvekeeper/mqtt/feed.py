@@ -54,6 +54,12 @@ class EventFeed:
         self.owner = owner or f"{socket.gethostname()}:{os.getpid()}"[:64]
         self.lease = timedelta(seconds=lease_s)
 
+    def prepare(self) -> None:
+        """Make the feed's cursor if it is new (at the latest event): before the service
+        takes requests, so every event after its first start is published."""
+        with self.work.unit(write=True) as unit:
+            unit.repo.ensure_feed(FEED)
+
     def topic(self, channel_id: str) -> str:
         return f"{self.root}/events/{channel_id}"
 

@@ -102,27 +102,28 @@ class OutboxQueries:
         return out
 
     # the event feed --------------------------------------------------------------------
+    def ensure_feed(self, name: str) -> None:
+        """Make feed ``name`` if it is new, at the latest event: it publishes what happens from
+        now on, not the history. (Two processes making it at once: one row, the other's
+        INSERT is dropped.)"""
+        if self.session.get(EventFeed, name) is not None:
+            return
+        try:
+            with self.session.begin_nested():
+                self.session.add(EventFeed(name=name, last_event_pk=self.latest_event_pk()))
+        except IntegrityError:
+            pass
+
     def lease_feed(self, name: str, owner: str, now: datetime, until: datetime) -> int | None:
         """Hold feed ``name`` for ``owner`` until ``until`` when it is free at ``now`` (or
-        ``owner``'s already): the last event published, else None (another holds it). A new
-        feed starts at the latest event: it publishes what happens from now on, not history."""
+        ``owner``'s already): the last event published, else None (another holds it)."""
         res = self.session.execute(
             update(EventFeed).where(EventFeed.name == name,
                                     (EventFeed.lease_until.is_(None)) | (EventFeed.lease_until <= now)
                                     | (EventFeed.lease_owner == owner))
             .values(lease_owner=owner, lease_until=until).returning(EventFeed.last_event_pk)
             .execution_options(synchronize_session=False)).first()
-        if res is not None:
-            return int(res[0])
-        if self.session.get(EventFeed, name) is not None:
-            return None
-        latest = self.latest_event_pk()
-        try:
-            with self.session.begin_nested():
-                self.session.add(EventFeed(name=name, last_event_pk=latest, lease_owner=owner, lease_until=until))
-        except IntegrityError:  # another process made it at the same moment, and holds it
-            return None
-        return latest
+        return None if res is None else int(res[0])
 
     def feed_events(self, after_pk: int, kinds: Sequence[str], limit: int) -> list[tuple[Event, str]]:
         """Channel events of ``kinds`` after event ``after_pk``, oldest first, with their channel's id."""
