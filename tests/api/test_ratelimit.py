@@ -210,6 +210,6 @@ def test_every_v1_route_is_limited_before_its_work(settings: Settings) -> None:
         before = store_fingerprint(c)
         for method, path in routes:
             url = path.format(channel_id=CH, snapshot_id=1, kid="k_0000000000000000", reference_id="no.such",
-                              record_id=1)
+                              record_id=1, wid="wh_0000000000000000", did=1)
             assert_limited(c.request(method, url, headers=admin), 1)
         assert store_fingerprint(c) == before
