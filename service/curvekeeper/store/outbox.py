@@ -57,12 +57,13 @@ class OutboxQueries:
             stmt = stmt.where(WebhookDelivery.pk > after_pk)
         return self.session.scalars(stmt).all()
 
-    def due_deliveries(self, now: datetime, limit: int) -> list[int]:
-        """Pks of pending deliveries due at ``now``, oldest due first."""
-        return list(self.session.scalars(
-            select(WebhookDelivery.pk).where(WebhookDelivery.state == "pending",
-                                             WebhookDelivery.next_attempt_at <= now)
-            .order_by(WebhookDelivery.next_attempt_at, WebhookDelivery.pk).limit(limit)))
+    def due_deliveries(self, now: datetime, limit: int) -> list[tuple[int, int]]:
+        """(pk, webhook_pk) of pending deliveries due at ``now``, oldest due first."""
+        rows = self.session.execute(
+            select(WebhookDelivery.pk, WebhookDelivery.webhook_pk)
+            .where(WebhookDelivery.state == "pending", WebhookDelivery.next_attempt_at <= now)
+            .order_by(WebhookDelivery.next_attempt_at, WebhookDelivery.pk).limit(limit))
+        return [(pk, hook) for pk, hook in rows]
 
     def claim_delivery(self, pk: int, now: datetime, until: datetime) -> bool:
         """Take a due delivery for one attempt (one conditional UPDATE: of processes racing
