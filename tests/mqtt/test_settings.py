@@ -108,3 +108,16 @@ def test_the_group_and_root_make_a_shared_filter() -> None:
 def test_a_group_or_root_that_breaks_the_filter_is_refused(name: str, value: str) -> None:
     with pytest.raises(ValueError, match=name):
         Settings.from_env({name: value})
+
+
+@pytest.mark.xfail(strict=True, reason="api/app.py (not this branch's file) builds Topics(s.mqtt_topic_root) without "
+                                       "s.mqtt_share_group, so only the default group is used; the one-line change "
+                                       "is asked for in the scale branch's report. Drop this mark with it")
+def test_the_app_subscribes_as_the_configured_group() -> None:
+    from types import SimpleNamespace
+
+    from curvekeeper.api.app import mqtt_subscriber
+
+    settings = Settings(mqtt_url="mqtt://127.0.0.1:1883", mqtt_share_group="line2")
+    sub = mqtt_subscriber(SimpleNamespace(settings=settings, work=None, metrics=None))  # type: ignore[arg-type]
+    assert sub.topics.samples_filter == "$share/line2/curvekeeper/v1/samples/+"
