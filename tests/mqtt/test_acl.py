@@ -1,6 +1,6 @@
-"""deploy/mosquitto.acl and deploy/mosquitto.conf in a Mosquitto of the test's own (a free
-loopback port, a password file made by mosquitto_passwd; the TLS listener and Debian's
-paths left out): anonymous clients are refused, a device publishes only on its own
+"""deploy/mosquitto.acl and deploy/mosquitto.conf in a Mosquitto of the test's own (the
+snippet in the conf.d of a main configuration like Debian's; a free loopback port, a
+password file made by mosquitto_passwd; the TLS listener and Debian's paths left out): anonymous clients are refused, a device publishes only on its own
 channel's samples topic and reads only its own results, and the service's user reads the
 samples and writes results, nothing else; the service's processes subscribe as a shared
 group, which a device may not join."""
@@ -25,7 +25,7 @@ from paho.mqtt.enums import CallbackAPIVersion
 ROOT = Path(__file__).resolve().parents[2]
 DEPLOY = ROOT / "deploy"
 # lines of the snippet that name the production listeners, certificates and paths
-REPLACED = ("listener", "certfile", "keyfile", "password_file", "acl_file", "persistence_location")
+REPLACED = ("listener", "certfile", "keyfile", "password_file", "acl_file")
 PASSWORD = "test-password"
 
 
@@ -46,9 +46,14 @@ def broker(tmp_path: Path) -> Iterator[int]:
     kept = [line for line in (DEPLOY / "mosquitto.conf").read_text().splitlines()
             if line.strip() and not line.startswith("#") and line.split()[0] not in REPLACED]
     port = free_port()
+    (tmp_path / "conf.d").mkdir()
+    (tmp_path / "conf.d" / "curvekeeper.conf").write_text("\n".join([
+        f"listener {port} 127.0.0.1", *kept, f"password_file {passwd}", f"acl_file {DEPLOY / 'mosquitto.acl'}", ""]))
     conf = tmp_path / "mosquitto.conf"
-    conf.write_text("\n".join([f"listener {port} 127.0.0.1", *kept, f"password_file {passwd}",
-                               f"acl_file {DEPLOY / 'mosquitto.acl'}", f"persistence_location {tmp_path}/",
+    # the snippet in conf.d/ of a main configuration like Debian's (which names the persistence
+    # location: the snippet may not name another)
+    conf.write_text("\n".join(["persistence true", f"persistence_location {tmp_path}/",
+                               f"include_dir {tmp_path / 'conf.d'}",
                                # started as root, Mosquitto would drop to its own user, who cannot
                                # read the test's files
                                f"user {getpass.getuser()}", ""]))
