@@ -57,10 +57,6 @@ def mqtt_broker(url: str) -> MqttBroker:
                       unquote(parts.password) if parts.password else None)
 
 
-#: the shared-subscription group of every service process (``$share/<group>/...``)
-DEFAULT_MQTT_SHARE_GROUP = "curvekeeper"
-
-
 def default_mqtt_client_id(port: int) -> str:
     """``curvekeeper-<host name>-<HTTP port>``: stable across restarts of one process and
     different for two processes on one host (they cannot listen on one port)."""
@@ -114,10 +110,10 @@ class Settings:
     mqtt_client_id: str = ""
     #: topics are ``{root}/samples/{channel_id}`` in and ``{root}/results/{channel_id}`` out
     mqtt_topic_root: str = "curvekeeper/v1"
-    #: the processes subscribe as one MQTT 5 shared-subscription group of this name
-    #: (``$share/<group>/<root>/samples/+``: each message goes to one of them); empty: a plain
-    #: subscription (one process only: two would both learn every message)
-    mqtt_share_group: str = DEFAULT_MQTT_SHARE_GROUP
+    #: several processes: they subscribe as one MQTT 5 shared-subscription group of this name
+    #: (``$share/<group>/<root>/samples/+``: each message goes to one of them), a name devices
+    #: cannot guess. Empty: a plain subscription, for one process (two would each learn every message)
+    mqtt_share_group: str = ""
     #: how long the broker keeps the session (and queues messages) while the service is away, seconds
     mqtt_session_expiry_s: int = 7 * 24 * 3600
     #: seconds between passes of the webhook dispatcher over the delivery outbox (0: no dispatcher)

@@ -1,9 +1,10 @@
 """deploy/mosquitto.acl and deploy/mosquitto.conf in a Mosquitto of the test's own (the
 snippet in the conf.d of a main configuration like Debian's; a free loopback port, a
-password file made by mosquitto_passwd; the TLS listener and Debian's paths left out): anonymous clients are refused, a device publishes only on its own
-channel's samples topic and reads only its own results, and the service's user reads the
-samples and writes results, nothing else; the service's processes subscribe as a shared
-group, which a device may not join."""
+password file made by mosquitto_passwd; the TLS listener and Debian's paths left out):
+anonymous clients are refused, a device publishes only on its own channel's samples topic
+and reads only its own results, and the service's user reads the samples and writes
+results, nothing else. The service's processes share the samples as a group; a device
+that joins that group (the ACL file cannot stop it) takes a share that is lost."""
 
 from __future__ import annotations
 

@@ -16,6 +16,8 @@ from curvekeeper.cli import main
 from curvekeeper.config import Settings, mqtt_broker
 from curvekeeper.mqtt import Topics
 
+from tests.mqtt.broker import NEEDS_APP_GROUP, app_passes_share_group
+
 BAD_URLS = [
     ("http://127.0.0.1:1883", "must start with mqtt:// or mqtts://"),
     ("tcp://broker:1883", "must start with mqtt:// or mqtts://"),
@@ -86,17 +88,15 @@ def test_the_client_id_is_per_host_and_port_unless_set() -> None:
 
 
 def test_the_group_and_root_make_a_shared_filter() -> None:
-    assert Settings().mqtt_share_group == "curvekeeper"
-    topics = Topics("curvekeeper/v1", "curvekeeper")
-    assert topics.samples_filter == "$share/curvekeeper/curvekeeper/v1/samples/+"
+    assert Settings().mqtt_share_group == "", "not shared unless a group is set"
+    plain = Topics("curvekeeper/v1")
+    assert plain.samples_filter == "curvekeeper/v1/samples/+"
+    assert plain.stale_filters == ()
+    topics = Topics("curvekeeper/v1", "ck-7f3a9c")
+    assert topics.samples_filter == "$share/ck-7f3a9c/curvekeeper/v1/samples/+"
     assert topics.stale_filters == ("curvekeeper/v1/samples/+",)
     assert topics.channel("curvekeeper/v1/samples/room.a") == "room.a"  # the topic a shared delivery carries
-    plain = Topics("curvekeeper/v1", "")
-    assert plain.samples_filter == "curvekeeper/v1/samples/+"
-    assert plain.stale_filters == ("$share/curvekeeper/curvekeeper/v1/samples/+",)
-    other = Topics("site/a", "line2")
-    assert other.samples_filter == "$share/line2/site/a/samples/+"
-    assert set(other.stale_filters) == {"site/a/samples/+", "$share/curvekeeper/site/a/samples/+"}
+    assert Topics("site/a", "line2").samples_filter == "$share/line2/site/a/samples/+"
 
 
 @pytest.mark.parametrize(("name", "value"), [
@@ -110,14 +110,6 @@ def test_a_group_or_root_that_breaks_the_filter_is_refused(name: str, value: str
         Settings.from_env({name: value})
 
 
-@pytest.mark.xfail(strict=True, reason="api/app.py (not this branch's file) builds Topics(s.mqtt_topic_root) without "
-                                       "s.mqtt_share_group, so only the default group is used; the one-line change "
-                                       "is asked for in the scale branch's report. Drop this mark with it")
+@NEEDS_APP_GROUP
 def test_the_app_subscribes_as_the_configured_group() -> None:
-    from types import SimpleNamespace
-
-    from curvekeeper.api.app import mqtt_subscriber
-
-    settings = Settings(mqtt_url="mqtt://127.0.0.1:1883", mqtt_share_group="line2")
-    sub = mqtt_subscriber(SimpleNamespace(settings=settings, work=None, metrics=None))  # type: ignore[arg-type]
-    assert sub.topics.samples_filter == "$share/line2/curvekeeper/v1/samples/+"
+    assert app_passes_share_group()

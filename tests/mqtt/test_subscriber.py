@@ -21,6 +21,8 @@ from curvekeeper.mqtt.subscriber import Handler
 
 from tests.mqtt.broker import Publisher, Results, broker_url, unique_root, wait_subscribed
 
+GROUP = "ck-test-group"
+
 
 def test_a_message_met_by_a_transient_fault_comes_again_in_order() -> None:
     url, root = broker_url(), unique_root()
@@ -103,7 +105,7 @@ def test_two_subscribers_of_one_group_share_the_messages_each_once() -> None:
         return Reply(200, {"got": payload.decode()})
 
     base = f"ck-{root.split('/')[0]}"
-    subs = [Subscriber(url, h, client_id=f"{base}-{n}", topics=Topics(root), session_expiry_s=60)
+    subs = [Subscriber(url, h, client_id=f"{base}-{n}", topics=Topics(root, GROUP), session_expiry_s=60)
             for n, h in (("a", a_handle), ("b", b_handle))]
     pub, results = Publisher(root), Results(root)
     for s in subs:
@@ -133,13 +135,13 @@ def test_a_session_subscribed_before_sharing_does_not_get_each_message_twice() -
     client_id = f"ck-{root.split('/')[0]}"
     seen, lock, handle = _recorder()
     pub, results = Publisher(root), Results(root)
-    plain = Subscriber(url, handle, client_id=client_id, topics=Topics(root, share_group=""), session_expiry_s=60)
+    plain = Subscriber(url, handle, client_id=client_id, topics=Topics(root), session_expiry_s=60)
     plain.start()
     try:
         wait_subscribed(pub, results)
     finally:
         plain.stop()
-    shared = Subscriber(url, handle, client_id=client_id, topics=Topics(root), session_expiry_s=60)
+    shared = Subscriber(url, handle, client_id=client_id, topics=Topics(root, GROUP), session_expiry_s=60)
     shared.start()
     try:
         wait_subscribed(pub, results)
@@ -170,8 +172,8 @@ def test_a_stopped_members_share_waits_in_its_session_until_it_returns() -> None
         return Reply(200, {"got": payload.decode()})
 
     base = f"ck-{root.split('/')[0]}"
-    a = Subscriber(url, a_handle, client_id=f"{base}-a", topics=Topics(root), session_expiry_s=60)
-    b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root), session_expiry_s=60)
+    a = Subscriber(url, a_handle, client_id=f"{base}-a", topics=Topics(root, GROUP), session_expiry_s=60)
+    b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root, GROUP), session_expiry_s=60)
     pub, results = Publisher(root), Results(root)
     a.start()
     b.start()
@@ -186,7 +188,7 @@ def test_a_stopped_members_share_waits_in_its_session_until_it_returns() -> None
         with lock:
             by_a = [p for p in a_seen if p.startswith(b"w")]
         assert 0 < len(by_a) < 20, f"the live member got {len(by_a)} of 20"
-        b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root), session_expiry_s=60)
+        b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root, GROUP), session_expiry_s=60)
         b.start()
         _until(lambda: len([1 for ch, _ in results.snapshot() if ch == "ch.away"]) >= 20, "b's queue never came")
         with lock:

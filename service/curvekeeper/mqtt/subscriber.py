@@ -3,8 +3,9 @@
 thread that learns the messages in the order they arrived.
 
 Several processes share the samples through an MQTT 5 shared subscription
-(``$share/<group>/<root>/samples/+``): the broker gives each message to one member of the
-group. Each process has its own client id, so its own session (docs/decisions/mqtt-scaling.md).
+(``$share/<group>/<root>/samples/+``, when a group is set): the broker gives each message
+to one member of the group. Each process has its own client id, so its own session
+(docs/decisions/mqtt-scaling.md).
 
 Acknowledgement is manual (paho's ``manual_ack``): a message's PUBACK goes to the broker
 only after its reply is known, that is after its samples are committed (or it is refused
@@ -32,7 +33,7 @@ from paho.mqtt.enums import CallbackAPIVersion
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
-from ..config import DEFAULT_MQTT_SHARE_GROUP, mqtt_broker
+from ..config import mqtt_broker
 from .ingest import Reply
 
 log = logging.getLogger("curvekeeper.mqtt")
@@ -51,7 +52,7 @@ class Topics:
     subscribed to as the shared-subscription group ``share_group`` (empty: not shared)."""
 
     root: str = "curvekeeper/v1"
-    share_group: str = DEFAULT_MQTT_SHARE_GROUP
+    share_group: str = ""
 
     @property
     def plain_filter(self) -> str:
@@ -64,11 +65,10 @@ class Topics:
 
     @property
     def stale_filters(self) -> tuple[str, ...]:
-        """Subscriptions a persistent session may still hold from before sharing was turned
-        on (or off, with the default group): unsubscribed at connect, else the session would
-        hold both and get each message twice."""
-        others = (self.plain_filter, f"$share/{DEFAULT_MQTT_SHARE_GROUP}/{self.plain_filter}")
-        return tuple(f for f in others if f != self.samples_filter)
+        """The plain subscription a persistent session still holds from before its process
+        joined a group: unsubscribed at connect, else the session would hold both and get
+        each message twice. (The other way round, or to another group: new client ids.)"""
+        return (self.plain_filter,) if self.share_group else ()
 
     def channel(self, topic: str) -> str | None:
         head = f"{self.root}/samples/"
