@@ -257,3 +257,53 @@ def test_a_second_process_on_the_same_client_id_is_logged(caplog: pytest.LogCapt
         first.stop()
         pub.close()
         results.close()
+
+
+def test_a_member_retired_with_session_expiry_0_learns_its_queue_and_then_gets_nothing() -> None:
+    """Retiring a process's client id for good: started once more on its session with
+    expiry 0, it learns the share that waited for it, and once stopped (unsubscribed, its
+    session ended) the other member takes every message."""
+    url, root = broker_url(), unique_root()
+    a_seen, lock, a_handle = _recorder()
+    b_seen: list[bytes] = []
+
+    def b_handle(channel: str, payload: bytes) -> Reply:
+        time.sleep(0.01)  # slow: stopped while its queue is still coming
+        with lock:
+            b_seen.append(payload)
+        return Reply(200, {"got": payload.decode()})
+
+    base = f"ck-{root.split('/')[0]}"
+    a = Subscriber(url, a_handle, client_id=f"{base}-a", topics=Topics(root, GROUP), session_expiry_s=60)
+    b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root, GROUP), session_expiry_s=60)
+    pub, results = Publisher(root), Results(root)
+    a.start()
+    b.start()
+    try:
+        _wait_both(pub, results, a_seen, b_seen, lock)
+        b.stop()
+        # more than the broker sends at once (Mosquitto: 20 in flight per client): most of b's
+        # share is still at the broker when b is stopped
+        waiting = [f"q{i}".encode() for i in range(200)]
+        for p in waiting:
+            pub.send("ch.retire", p)
+        b = Subscriber(url, b_handle, client_id=f"{base}-b", topics=Topics(root, GROUP), session_expiry_s=0)
+        b.start()
+        _until(lambda: any(p.startswith(b"q") for p in list(b_seen)), "b's queue never came")
+        b.stop()  # retires at once: unsubscribes, learns what is left of its queue, ends the session
+        after = [f"z{i}".encode() for i in range(10)]
+        for p in after:
+            pub.send("ch.retire", p)
+        _until(lambda: len([1 for ch, _ in results.snapshot() if ch == "ch.retire"]) >= 210, "messages lost")
+        time.sleep(0.5)
+        with lock:
+            by_a = [p for p in a_seen if p[:1] in (b"q", b"z")]
+            by_b = [p for p in b_seen if p[:1] in (b"q", b"z")]
+        assert sorted(by_a + by_b) == sorted(waiting + after), "a message lost or learned twice"
+        assert [p for p in by_b if p.startswith(b"q")], "b's share did not wait for it"
+        assert not [p for p in by_b if p.startswith(b"z")], "the retired member still got messages"
+    finally:
+        a.stop()
+        b.stop()
+        pub.close()
+        results.close()

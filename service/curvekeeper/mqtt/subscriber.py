@@ -24,6 +24,7 @@ import json
 import logging
 import queue
 import threading
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -44,6 +45,10 @@ RETRY_S = 0.5
 RETRY_MAX_S = 30.0
 #: the broker's DISCONNECT reason when another connection took this client id's session
 SESSION_TAKEN_OVER = 142
+#: a process with no session to keep (expiry 0) learns, when it stops, what the broker still
+#: sends it until none has come for DRAIN_QUIET_S, for at most DRAIN_MAX_S (seconds)
+DRAIN_QUIET_S = 1.0
+DRAIN_MAX_S = 30.0
 
 
 @dataclass(frozen=True)
@@ -92,7 +97,11 @@ Handler = Callable[[str, bytes], Reply]
 
 class Subscriber:
     """``start()`` connects and subscribes; ``stop()`` disconnects and waits for the worker
-    (a message being learned is finished; the ones not yet acknowledged come again)."""
+    (a message being learned is finished; the ones not yet acknowledged come again).
+
+    With ``session_expiry_s`` 0 no session outlives the connection, so ``stop()`` first
+    unsubscribes and learns what the broker still sends: the way to retire a process's
+    client id for good (in a group, the other members take every message from then on)."""
 
     def __init__(self, url: str, handle: Handler, *, client_id: str, topics: Topics,
                  session_expiry_s: int = 7 * 24 * 3600, keepalive_s: int = 30) -> None:
@@ -102,6 +111,7 @@ class Subscriber:
         self.handle = handle
         self.topics = topics
         self.keepalive_s = keepalive_s
+        self.session_expiry_s = session_expiry_s
         self.client = self._new_client()
         self._connect_props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
         self._connect_props.SessionExpiryInterval = session_expiry_s
@@ -109,6 +119,9 @@ class Subscriber:
         self._generation = 0  # one per connection: a message id means something only on its own
         self._lock = threading.Lock()
         self._stopping = threading.Event()
+        self._draining = False
+        self._pending = 0  # messages received and not yet handled
+        self._last_in = time.monotonic()
         self._worker = threading.Thread(target=self._work, name="curvekeeper-mqtt", daemon=True)
 
     def _new_client(self) -> paho.Client:
@@ -134,6 +147,8 @@ class Subscriber:
             return
         with self._lock:
             self._generation += 1
+            if self._draining:
+                return  # retiring: what the session holds comes without a subscription
         client.subscribe(self.topics.samples_filter, qos=QOS)
         for stale in self.topics.stale_filters:  # after the subscription: a message between the two
             client.unsubscribe(stale)            # comes twice (source + seq make it a duplicate), none is lost
@@ -155,6 +170,8 @@ class Subscriber:
     def _on_message(self, _client: paho.Client, _userdata: Any, msg: paho.MQTTMessage) -> None:
         with self._lock:
             generation = self._generation
+            self._pending += 1
+            self._last_in = time.monotonic()
         self._inbox.put(_Message(generation, msg.mid, msg.topic, bytes(msg.payload)))
 
     # --- the worker ------------------------------------------------------------------
@@ -165,15 +182,19 @@ class Subscriber:
             item = self._inbox.get()
             if item is None:
                 return
-            with self._lock:
-                current = item.generation == self._generation
-            if not current:
-                continue  # from a connection since closed: the broker delivers it again
-            reply = self._reply(item)
-            if reply.ack:
-                self.client.ack(item.mid, QOS)
-                wait = RETRY_S
-                continue
+            try:
+                with self._lock:
+                    current = item.generation == self._generation
+                if not current:
+                    continue  # from a connection since closed: the broker delivers it again
+                reply = self._reply(item)
+                if reply.ack:
+                    self.client.ack(item.mid, QOS)
+                    wait = RETRY_S
+                    continue
+            finally:
+                with self._lock:
+                    self._pending -= 1
             if self._stopping.wait(wait):
                 return
             wait = min(2 * wait, RETRY_MAX_S)
@@ -234,7 +255,28 @@ class Subscriber:
         self._connect()
 
     def stop(self) -> None:
+        if self.session_expiry_s == 0:
+            self._drain()
         self._stopping.set()
         self._inbox.put(None)
         self._worker.join(timeout=30)
         self._close_client()
+
+    def _drain(self) -> None:
+        """Unsubscribe, then learn what the broker still sends (the session's queue, what was
+        in flight) until it has been quiet for ``DRAIN_QUIET_S``."""
+        with self._lock:
+            self._draining = True
+            self._last_in = time.monotonic()
+        if self.client.is_connected():
+            self.client.unsubscribe(self.topics.samples_filter)
+        log.info("MQTT: client id %r retiring (session expiry 0): learning what the broker still holds for it",
+                 self.client_id)
+        deadline = time.monotonic() + DRAIN_MAX_S
+        while time.monotonic() < deadline:
+            with self._lock:
+                idle = self._pending == 0 and time.monotonic() - self._last_in >= DRAIN_QUIET_S
+            if idle:
+                return
+            time.sleep(0.05)
+        log.warning("MQTT: client id %r still receiving after %.0f s; stopping", self.client_id, DRAIN_MAX_S)
