@@ -545,6 +545,114 @@ def test_mqtt_env_example_names_the_broker_service_its_listener_and_a_group() ->
     assert "token_hex" in MQTT_ENV_EXAMPLE.read_text(), "how to make a group name devices cannot guess"
 
 
+def free_port() -> int:
+    import socket
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+PATH_OPTIONS = ("include_dir", "persistence_location", "acl_file", "password_file", "certfile", "keyfile")
+
+
+def test_compose_mqtt_broker_starts_with_its_mounts_and_passes_a_devices_sample_to_the_group(
+        compose_mqtt: dict[str, Any], tmp_path: Path) -> None:
+    """The broker's files laid out under a directory of the test's own as compose.mqtt.yaml
+    mounts them in the container (its password file and a self-signed certificate made
+    here; the listeners on free ports): a real Mosquitto starts with them, a device
+    publishes over TLS, and the service's user on the project-network listener gets it
+    through a shared subscription."""
+    import getpass
+    import socket
+    import ssl
+    import time
+
+    paho = pytest.importorskip("paho.mqtt.client")
+    for tool in ("mosquitto", "mosquitto_passwd", "openssl"):
+        if not shutil.which(tool):
+            pytest.skip(f"{tool} is not installed")
+    broker = compose_mqtt["services"]["broker"]
+    root = tmp_path / "container"
+
+    def inside(path: str) -> Path:
+        return root / path.lstrip("/")
+
+    ports: dict[str, str] = {}
+    for target, source in mounts(broker).items():
+        here = inside(target)
+        if not source.startswith("./"):  # a named volume
+            here.mkdir(parents=True, exist_ok=True)
+        elif source == "./mosquitto.passwd":
+            here.parent.mkdir(parents=True, exist_ok=True)
+            for user in ("curvekeeper", "room.a"):
+                subprocess.run(["mosquitto_passwd", "-b", *([] if here.exists() else ["-c"]), str(here), user, "pw"],
+                               check=True, capture_output=True)
+        elif source == "./certs":
+            here.mkdir(parents=True)
+            subprocess.run(["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "1",
+                            "-subj", "/CN=localhost", "-keyout", str(here / "broker.key"),
+                            "-out", str(here / "broker.crt")], check=True, capture_output=True)
+        else:
+            here.parent.mkdir(parents=True, exist_ok=True)
+            lines = []
+            for raw in (DEPLOY / source).read_text().splitlines():
+                option, _, value = raw.strip().partition(" ")
+                if option in PATH_OPTIONS:
+                    raw = f"{option} {inside(value.strip())}"
+                elif option == "listener":
+                    port, *address = value.split()
+                    ports[port] = ports.get(port) or str(free_port())
+                    raw = " ".join(["listener", ports[port], *address])
+                lines.append(raw)
+            here.write_text("\n".join(lines) + "\n")
+    argv = command_argv(broker)
+    main = inside(argv[argv.index("-c") + 1])
+    main.write_text(main.read_text() + f"user {getpass.getuser()}\n")  # as root it would drop to its own user
+    log = (tmp_path / "mosquitto.log").open("wb")
+    proc = subprocess.Popen(["mosquitto", "-c", str(main)], stdout=log, stderr=subprocess.STDOUT)
+    clients = []
+    try:
+        internal = int(ports[str(urlsplit(mqtt_env()["CURVEKEEPER_MQTT_URL"]).port)])
+        tls = int(ports["8883"])
+        deadline = time.monotonic() + 10
+        while True:
+            try:
+                socket.create_connection(("127.0.0.1", internal), timeout=1).close()
+                break
+            except OSError:
+                if proc.poll() is not None or time.monotonic() > deadline:
+                    pytest.fail("the broker did not start: " + (tmp_path / "mosquitto.log").read_text())
+                time.sleep(0.05)
+        got: list[bytes] = []
+        service = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id="svc", protocol=paho.MQTTv5)
+        service.username_pw_set("curvekeeper", "pw")
+        service.on_message = lambda _c, _u, msg: got.append(bytes(msg.payload))
+        service.connect("127.0.0.1", internal)
+        service.loop_start()
+        clients.append(service)
+        service.subscribe("$share/ck-test/curvekeeper/v1/samples/+", qos=1)
+        device = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id="room.a", protocol=paho.MQTTv5)
+        device.username_pw_set("room.a", "pw")
+        device.tls_set(ca_certs=str(inside("/etc/mosquitto/certs/broker.crt")), cert_reqs=ssl.CERT_REQUIRED)
+        device.connect("localhost", tls)
+        device.loop_start()
+        clients.append(device)
+        time.sleep(0.3)
+        device.publish("curvekeeper/v1/samples/room.a", b"over TLS", qos=1).wait_for_publish(timeout=10)
+        deadline = time.monotonic() + 10
+        while not got and time.monotonic() < deadline:
+            time.sleep(0.02)
+        assert got == [b"over TLS"]
+    finally:
+        for c in clients:
+            c.disconnect()
+            c.loop_stop()
+        proc.terminate()
+        proc.wait(timeout=10)
+        log.close()
+
+
 # --- the reverse proxy examples ---------------------------------------------------------
 
 def nginx_size(conf: str) -> int:
