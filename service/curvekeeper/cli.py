@@ -32,14 +32,20 @@ def cmd_serve(args: argparse.Namespace) -> int:
     from .admin import masked
     from .api import create_app
 
-    settings = _settings(args)
+    try:
+        settings = _settings(args)
+    except ValueError as exc:  # a setting or option the service cannot start with, e.g. --mqtt http://...
+        print(f"curvekeeper serve: {exc}", file=sys.stderr)
+        return 2
     _first_key(settings)
     app = create_app(settings)
     print(f"curvekeeper {masked(settings.database_url)} -> http://{settings.host}:{settings.port}/  "
           f"(API docs at http://{settings.host}:{settings.port}/docs; Ctrl-C stops)", flush=True)
     if settings.mqtt_url:
+        group = f"shared as group {settings.mqtt_share_group!r}" if settings.mqtt_share_group else "not shared"
         print(f"samples also from MQTT {masked(settings.mqtt_url)}, "
-              f"topics {settings.mqtt_topic_root}/samples/<channel>", flush=True)
+              f"topics {settings.mqtt_topic_root}/samples/<channel> ({group}), "
+              f"client id {settings.mqtt_client_id!r}", flush=True)
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level,
                 access_log=args.access_log)
     return 0

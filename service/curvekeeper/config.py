@@ -6,9 +6,11 @@
 from __future__ import annotations
 
 import os
+import socket
 from collections.abc import Mapping
 from dataclasses import dataclass, fields, replace
 from typing import Any
+from urllib.parse import unquote, urlsplit
 
 PREFIX = "CURVEKEEPER_"
 
@@ -19,6 +21,46 @@ def _bool(v: str) -> bool:
     if v.lower() in ("0", "false", "no", "off", ""):
         return False
     raise ValueError(f"not a boolean: {v!r}")
+
+
+@dataclass(frozen=True)
+class MqttBroker:
+    """Where ``mqtt_url`` points: host, port, TLS or not, the login (``%``-decoded)."""
+
+    host: str
+    port: int
+    tls: bool
+    username: str | None
+    password: str | None
+
+
+def mqtt_broker(url: str) -> MqttBroker:
+    """``mqtt://[user:password@]host[:port]`` (port 1883) or ``mqtts://`` (TLS, port 8883);
+    raises ``ValueError`` saying what is wrong (never repeating the URL: it may hold a password)."""
+    what = "the MQTT broker URL (--mqtt, CURVEKEEPER_MQTT_URL)"
+    parts = urlsplit(url)
+    if parts.scheme not in ("mqtt", "mqtts"):
+        scheme = f"{parts.scheme}://" if parts.scheme else "no scheme"
+        raise ValueError(f"{what} must start with mqtt:// or mqtts:// (TLS), not {scheme}; "
+                         "e.g. mqtt://127.0.0.1:1883")
+    if not parts.hostname:
+        raise ValueError(f"{what} names no host; e.g. mqtt://127.0.0.1:1883")
+    try:
+        port = parts.port
+    except ValueError:
+        raise ValueError(f"{what} has a port that is not a number from 1 to 65535") from None
+    if parts.path not in ("", "/") or parts.query or parts.fragment:
+        raise ValueError(f"{what} is the broker's address only, without a path or query; "
+                         "the topics come from CURVEKEEPER_MQTT_TOPIC_ROOT")
+    return MqttBroker(parts.hostname, port or (8883 if parts.scheme == "mqtts" else 1883), parts.scheme == "mqtts",
+                      unquote(parts.username) if parts.username else None,
+                      unquote(parts.password) if parts.password else None)
+
+
+def default_mqtt_client_id(port: int) -> str:
+    """``curvekeeper-<host name>-<HTTP port>``: stable across restarts of one process and
+    different for two processes on one host (they cannot listen on one port)."""
+    return f"curvekeeper-{socket.gethostname()}-{port}"
 
 
 @dataclass(frozen=True)
@@ -62,11 +104,16 @@ class Settings:
     metrics_cache_s: float = 5.0
     #: broker to take samples from (mqtt://[user:password@]host[:port], mqtts:// for TLS); unset: no MQTT
     mqtt_url: str | None = None
-    #: the service's MQTT client id: fixed, so its persistent session (and what the broker
-    #: holds for it while the service is down) is found again on restart
-    mqtt_client_id: str = "curvekeeper"
+    #: this process's MQTT client id: fixed, so its persistent session (and what the broker
+    #: holds for it while the process is down) is found again on restart; each process has its
+    #: own (two on one id take the session from each other). Empty: ``curvekeeper-<host>-<port>``
+    mqtt_client_id: str = ""
     #: topics are ``{root}/samples/{channel_id}`` in and ``{root}/results/{channel_id}`` out
     mqtt_topic_root: str = "curvekeeper/v1"
+    #: several processes: they subscribe as one MQTT 5 shared-subscription group of this name
+    #: (``$share/<group>/<root>/samples/+``: each message goes to one of them), a name devices
+    #: cannot guess. Empty: a plain subscription, for one process (two would each learn every message)
+    mqtt_share_group: str = ""
     #: how long the broker keeps the session (and queues messages) while the service is away, seconds
     mqtt_session_expiry_s: int = 7 * 24 * 3600
     #: seconds between passes of the MQTT event feed (events on ``{root}/events/{channel_id}``; 0: none)
@@ -81,6 +128,19 @@ class Settings:
     webhook_timeout_s: float = 10.0
     #: allow webhook URLs at link-local or cloud-metadata addresses (refused by default)
     webhook_allow_link_local: bool = False
+
+    def __post_init__(self) -> None:
+        if self.mqtt_url is not None:
+            mqtt_broker(self.mqtt_url)
+        if not self.mqtt_client_id:
+            object.__setattr__(self, "mqtt_client_id", default_mqtt_client_id(self.port))
+        if any(c in self.mqtt_share_group for c in "/+#"):
+            raise ValueError(f"CURVEKEEPER_MQTT_SHARE_GROUP {self.mqtt_share_group!r}: a group name has no '/', "
+                             "'+' or '#'")
+        root = self.mqtt_topic_root
+        if not root or any(c in root for c in "+#") or root.startswith(("/", "$")) or root.endswith("/"):
+            raise ValueError(f"CURVEKEEPER_MQTT_TOPIC_ROOT {root!r}: topic levels without wildcards, "
+                             "e.g. curvekeeper/v1")
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None, **overrides: Any) -> Settings:
@@ -103,4 +163,6 @@ class Settings:
         return cls(**values)
 
     def with_(self, **changes: Any) -> Settings:
+        if "mqtt_client_id" not in changes and self.mqtt_client_id == default_mqtt_client_id(self.port):
+            changes["mqtt_client_id"] = ""  # derived from the port: derived again
         return replace(self, **changes)

@@ -23,6 +23,7 @@ from dataclasses import dataclass, fields
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path, PurePosixPath
 from typing import Any
+from urllib.parse import urlsplit
 
 import pytest
 from curvekeeper.cli import build_parser
@@ -36,6 +37,8 @@ ENV_EXAMPLE = DEPLOY / "curvekeeper.env.example"
 PG_ENV_EXAMPLE = DEPLOY / "postgres.env.example"
 CONTAINERFILE = DEPLOY / "Containerfile"
 COMPOSE = DEPLOY / "compose.yaml"
+COMPOSE_MQTT = DEPLOY / "compose.mqtt.yaml"
+MQTT_ENV_EXAMPLE = DEPLOY / "mqtt.env.example"
 UNIT = DEPLOY / "curvekeeper.service"
 README = DEPLOY / "README.md"
 
@@ -131,8 +134,8 @@ def test_env_example_says_what_each_setting_does_and_its_true_default() -> None:
         actual = getattr(DEFAULTS, f.name)
         if actual is None:
             assert documented == "unset", f"{var}: default is unset, the example says {documented}"
-        elif actual == "":
-            assert documented == "empty", f"{var}: default is empty, the example says {documented}"
+        elif documented == "empty":  # empty, or derived from other settings when left empty
+            assert field_value(var, "") == actual, f"{var}: the example says empty, Settings says {actual!r}"
         else:
             assert field_value(var, documented) == actual, (
                 f"{var}: the example says the default is {documented}, Settings says {actual!r}")
@@ -350,16 +353,25 @@ def test_healthcheck_gets_healthz_with_python(health_stub: int) -> None:
 
 # --- compose ----------------------------------------------------------------------------
 
-@pytest.fixture(scope="module")
-def compose() -> dict[str, Any]:
+def load_compose(path: Path) -> dict[str, Any]:
     try:
         yaml = importlib.import_module("yaml")
     except ImportError:
-        pytest.skip("PyYAML is not installed (it is no dependency of curvekeeper): compose.yaml is not parsed; "
+        pytest.skip(f"PyYAML is not installed (it is no dependency of curvekeeper): {path.name} is not parsed; "
                     "`pip install pyyaml` to run these checks")
-    doc = yaml.safe_load(COMPOSE.read_text())
+    doc = yaml.safe_load(path.read_text())
     assert isinstance(doc, dict) and isinstance(doc.get("services"), dict)
     return doc
+
+
+@pytest.fixture(scope="module")
+def compose() -> dict[str, Any]:
+    return load_compose(COMPOSE)
+
+
+@pytest.fixture(scope="module")
+def compose_mqtt() -> dict[str, Any]:
+    return load_compose(COMPOSE_MQTT)
 
 
 def env_files(service: dict[str, Any]) -> list[str]:
@@ -431,6 +443,214 @@ def test_compose_proxy_balances_the_replicas_on_loopback(compose: dict[str, Any]
     assert re.search(r"server\s+curvekeeper:8000\b", conf), "the upstream is not the service's port"
     assert re.search(r"listen\s+8080;", conf)
     assert nginx_size(conf) == DEFAULTS.max_body_bytes
+
+
+# --- compose with MQTT ------------------------------------------------------------------
+
+def conf_values(path: Path) -> list[tuple[str, str]]:
+    """A Mosquitto configuration's (option, value) lines, comments dropped."""
+    out = []
+    for raw in path.read_text().splitlines():
+        line = raw.strip()
+        if line and not line.startswith("#"):
+            option, _, value = line.partition(" ")
+            out.append((option, value.strip()))
+    return out
+
+
+def mounts(service: dict[str, Any]) -> dict[str, str]:
+    """Container path -> host source (a path relative to deploy/, or a named volume)."""
+    out = {}
+    for spec in service.get("volumes", []):
+        source, target = spec.split(":")[:2]
+        out[target] = source
+    return out
+
+
+def ingest_services(compose_mqtt: dict[str, Any]) -> dict[str, dict[str, Any]]:
+    return {name: svc for name, svc in compose_mqtt["services"].items() if "command" in svc
+            and command_argv(svc)[:1] == ["curvekeeper"]}
+
+
+def mqtt_env() -> dict[str, str]:
+    return {a.name: a.value for a in env_assignments(MQTT_ENV_EXAMPLE) if a.active}
+
+
+def test_compose_mqtt_broker_mounts_what_its_configuration_names(compose_mqtt: dict[str, Any]) -> None:
+    broker = compose_mqtt["services"]["broker"]
+    assert str(broker["image"]).startswith("eclipse-mosquitto:2")
+    where = mounts(broker)
+    argv = command_argv(broker)
+    main = argv[argv.index("-c") + 1]
+    assert where[main] == "./mosquitto-compose.conf"
+    main_conf = dict(conf_values(DEPLOY / "mosquitto-compose.conf"))
+    included = next(t for t, src in where.items() if src == "./mosquitto.conf")
+    assert str(PurePosixPath(included).parent) == main_conf["include_dir"].rstrip("/"), "the snippet is not included"
+    snippet = dict(conf_values(DEPLOY / "mosquitto.conf"))
+    assert "persistence_location" not in snippet, "Mosquitto refuses a second persistence_location"
+    assert where[snippet["acl_file"]] == "./mosquitto.acl"
+    assert where[snippet["password_file"]] == "./mosquitto.passwd"
+    for option in ("certfile", "keyfile"):
+        assert where[str(PurePosixPath(snippet[option]).parent)] == "./certs", f"{option} is not mounted"
+    data = where[main_conf["persistence_location"].rstrip("/")]
+    assert data in (compose_mqtt.get("volumes") or {}), "the persistent sessions are not on a named volume"
+    for target, source in where.items():
+        if source.startswith("./") and source[2:].rstrip("/") not in LOCAL_COPIES | {"certs"}:
+            assert (DEPLOY / source).is_file(), f"{target}: {source} is not in deploy/"
+            assert "ro" in broker["volumes"][list(where).index(target)].split(":")[2:], f"{target}: not read-only"
+    # the operator's own files (password hashes, the TLS key) stay out of git
+    assert {"mosquitto.passwd", "certs/", "mqtt.env"} <= LOCAL_COPIES
+    # devices reach the TLS listener only; the plain one of the project's network is not published
+    listeners = [v.split()[0] for k, v in conf_values(DEPLOY / "mosquitto.conf") + list(main_conf.items())
+                 if k == "listener"]
+    published = [p.split(":")[-1] for p in broker["ports"]]
+    assert published == ["8883"] and "8883" in listeners
+    assert "$$@" in " ".join(broker["entrypoint"]), "compose would read $@ as one of its variables"
+
+
+def test_compose_mqtt_services_share_one_group_each_with_its_own_client_id(compose_mqtt: dict[str, Any]) -> None:
+    services = ingest_services(compose_mqtt)
+    assert len(services) >= 2, "two service processes at least"
+    ids = []
+    for name, svc in services.items():
+        assert parse_cli(command_argv(svc)).command == "serve"
+        assert env_files(svc) == ["curvekeeper.env", "mqtt.env"], f"{name}: settings, then the MQTT ones"
+        env = {k: str(v) for k, v in (svc.get("environment") or {}).items()}
+        unknown = set(env) - set(FIELDS)
+        assert not unknown, f"{name}: {sorted(unknown)} are not settings"
+        Settings.from_env(env)  # accepted
+        assert set(env) == {"CURVEKEEPER_MQTT_CLIENT_ID"}, f"{name}: only its client id is its own"
+        ids.append(env["CURVEKEEPER_MQTT_CLIENT_ID"])
+        assert int(svc.get("deploy", {}).get("replicas", 1)) == 1, f"{name}: replicas would share one client id"
+        assert depends(svc) == {"db": "service_healthy", "migrate": "service_completed_successfully",
+                                "broker": "service_started"}
+        assert (DEPLOY / "Containerfile").resolve() == (DEPLOY / svc["build"]["context"] / svc["build"]["dockerfile"]
+                                                        ).resolve()
+    assert len(set(ids)) == len(ids), f"two processes on one client id: {ids}"
+    # the MQTT settings reach these processes only: compose.yaml's replicas would subscribe
+    # under client ids made from their containers' changing host names
+    assert "CURVEKEEPER_MQTT_URL" not in {a.name for a in env_assignments() if a.active}
+
+
+def test_mqtt_env_example_names_the_broker_service_its_listener_and_a_group() -> None:
+    env = mqtt_env()
+    assert set(env) == {"CURVEKEEPER_MQTT_URL", "CURVEKEEPER_MQTT_SHARE_GROUP"}
+    settings = Settings.from_env(env)
+    assert settings.mqtt_share_group and "REPLACE" in settings.mqtt_share_group, "a placeholder to replace"
+    url = urlsplit(env["CURVEKEEPER_MQTT_URL"])
+    assert url.scheme == "mqtt" and url.hostname == "broker" and url.password == "CHANGE-ME"
+    assert url.port == int(dict(conf_values(DEPLOY / "mosquitto-compose.conf"))["listener"])
+    acl = (DEPLOY / "mosquitto.acl").read_text()
+    assert re.search(rf"^user {re.escape(url.username or '')}$", acl, re.M), "not the ACL's service user"
+    assert "token_hex" in MQTT_ENV_EXAMPLE.read_text(), "how to make a group name devices cannot guess"
+
+
+def free_port() -> int:
+    import socket
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+PATH_OPTIONS = ("include_dir", "persistence_location", "acl_file", "password_file", "certfile", "keyfile")
+
+
+def test_compose_mqtt_broker_starts_with_its_mounts_and_passes_a_devices_sample_to_the_group(
+        compose_mqtt: dict[str, Any], tmp_path: Path) -> None:
+    """The broker's files laid out under a directory of the test's own as compose.mqtt.yaml
+    mounts them in the container (its password file and a self-signed certificate made
+    here; the listeners on free ports): a real Mosquitto starts with them, a device
+    publishes over TLS, and the service's user on the project-network listener gets it
+    through a shared subscription."""
+    import getpass
+    import socket
+    import ssl
+    import time
+
+    paho = pytest.importorskip("paho.mqtt.client")
+    for tool in ("mosquitto", "mosquitto_passwd", "openssl"):
+        if not shutil.which(tool):
+            pytest.skip(f"{tool} is not installed")
+    broker = compose_mqtt["services"]["broker"]
+    root = tmp_path / "container"
+
+    def inside(path: str) -> Path:
+        return root / path.lstrip("/")
+
+    ports: dict[str, str] = {}
+    for target, source in mounts(broker).items():
+        here = inside(target)
+        if not source.startswith("./"):  # a named volume
+            here.mkdir(parents=True, exist_ok=True)
+        elif source == "./mosquitto.passwd":
+            here.parent.mkdir(parents=True, exist_ok=True)
+            for user in ("curvekeeper", "room.a"):
+                subprocess.run(["mosquitto_passwd", "-b", *([] if here.exists() else ["-c"]), str(here), user, "pw"],
+                               check=True, capture_output=True)
+        elif source == "./certs":
+            here.mkdir(parents=True)
+            subprocess.run(["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "1",
+                            "-subj", "/CN=localhost", "-keyout", str(here / "broker.key"),
+                            "-out", str(here / "broker.crt")], check=True, capture_output=True)
+        else:
+            here.parent.mkdir(parents=True, exist_ok=True)
+            lines = []
+            for raw in (DEPLOY / source).read_text().splitlines():
+                option, _, value = raw.strip().partition(" ")
+                if option in PATH_OPTIONS:
+                    raw = f"{option} {inside(value.strip())}"
+                elif option == "listener":
+                    port, *address = value.split()
+                    ports[port] = ports.get(port) or str(free_port())
+                    raw = " ".join(["listener", ports[port], *address])
+                lines.append(raw)
+            here.write_text("\n".join(lines) + "\n")
+    argv = command_argv(broker)
+    main = inside(argv[argv.index("-c") + 1])
+    main.write_text(main.read_text() + f"user {getpass.getuser()}\n")  # as root it would drop to its own user
+    log = (tmp_path / "mosquitto.log").open("wb")
+    proc = subprocess.Popen(["mosquitto", "-c", str(main)], stdout=log, stderr=subprocess.STDOUT)
+    clients = []
+    try:
+        internal = int(ports[str(urlsplit(mqtt_env()["CURVEKEEPER_MQTT_URL"]).port)])
+        tls = int(ports["8883"])
+        deadline = time.monotonic() + 10
+        while True:
+            try:
+                socket.create_connection(("127.0.0.1", internal), timeout=1).close()
+                break
+            except OSError:
+                if proc.poll() is not None or time.monotonic() > deadline:
+                    pytest.fail("the broker did not start: " + (tmp_path / "mosquitto.log").read_text())
+                time.sleep(0.05)
+        got: list[bytes] = []
+        service = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id="svc", protocol=paho.MQTTv5)
+        service.username_pw_set("curvekeeper", "pw")
+        service.on_message = lambda _c, _u, msg: got.append(bytes(msg.payload))
+        service.connect("127.0.0.1", internal)
+        service.loop_start()
+        clients.append(service)
+        service.subscribe("$share/ck-test/curvekeeper/v1/samples/+", qos=1)
+        device = paho.Client(paho.CallbackAPIVersion.VERSION2, client_id="room.a", protocol=paho.MQTTv5)
+        device.username_pw_set("room.a", "pw")
+        device.tls_set(ca_certs=str(inside("/etc/mosquitto/certs/broker.crt")), cert_reqs=ssl.CERT_REQUIRED)
+        device.connect("localhost", tls)
+        device.loop_start()
+        clients.append(device)
+        time.sleep(0.3)
+        device.publish("curvekeeper/v1/samples/room.a", b"over TLS", qos=1).wait_for_publish(timeout=10)
+        deadline = time.monotonic() + 10
+        while not got and time.monotonic() < deadline:
+            time.sleep(0.02)
+        assert got == [b"over TLS"]
+    finally:
+        for c in clients:
+            c.disconnect()
+            c.loop_stop()
+        proc.terminate()
+        proc.wait(timeout=10)
+        log.close()
 
 
 # --- the reverse proxy examples ---------------------------------------------------------

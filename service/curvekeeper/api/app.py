@@ -55,8 +55,9 @@ def mqtt_subscriber(ctx: AppContext) -> Subscriber:
     same unit of work and action as ``POST /v1/channels/{id}/samples``."""
     s = ctx.settings
     assert s.mqtt_url is not None
+    topics = Topics(s.mqtt_topic_root, s.mqtt_share_group)
     return Subscriber(s.mqtt_url, partial(ingest_message, ctx.work, s, ctx.metrics), client_id=s.mqtt_client_id,
-                      topics=Topics(s.mqtt_topic_root), session_expiry_s=s.mqtt_session_expiry_s)
+                      topics=topics, session_expiry_s=s.mqtt_session_expiry_s)
 
 
 def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None = None,

@@ -22,16 +22,16 @@ import socket
 from collections.abc import Awaitable, Callable
 from contextlib import suppress
 from datetime import datetime, timedelta
-from urllib.parse import unquote, urlsplit
 
 import paho.mqtt.client as paho
-from paho.mqtt.enums import CallbackAPIVersion
 
 from ..actions.unit import Work
+from ..config import mqtt_broker
 from ..errors import ServiceError
 from ..metrics import Metrics
 from ..webhooks import KINDS
 from ..webhooks.dispatcher import event_json
+from .subscriber import make_client
 
 log = logging.getLogger("curvekeeper.mqtt")
 
@@ -105,17 +105,9 @@ class Publisher:
     (``timeout_s`` at most). Not connected: nothing is published (the feed tries later)."""
 
     def __init__(self, url: str, client_id: str, *, timeout_s: float = 10.0, keepalive_s: int = 30) -> None:
-        parts = urlsplit(url)
-        if parts.scheme not in ("mqtt", "mqtts") or not parts.hostname:
-            raise ValueError(f"not an MQTT URL (mqtt://host:port or mqtts://host:port): {url!r}")
-        self.host, self.port = parts.hostname, parts.port or (8883 if parts.scheme == "mqtts" else 1883)
+        self.broker = mqtt_broker(url)
         self.timeout_s, self.keepalive_s = timeout_s, keepalive_s
-        self.client = paho.Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=paho.MQTTv5)
-        if parts.username:
-            self.client.username_pw_set(unquote(parts.username), unquote(parts.password) if parts.password else None)
-        if parts.scheme == "mqtts":
-            self.client.tls_set()
-        self.client.reconnect_delay_set(1, 30)
+        self.client = make_client(self.broker, client_id)
 
     def __call__(self, topic: str, raw: bytes) -> bool:
         if not self.client.is_connected():
@@ -128,7 +120,7 @@ class Publisher:
         return info.is_published()
 
     def start(self) -> None:
-        self.client.connect_async(self.host, self.port, keepalive=self.keepalive_s)
+        self.client.connect_async(self.broker.host, self.broker.port, keepalive=self.keepalive_s)
         self.client.loop_start()
 
     def stop(self) -> None:
