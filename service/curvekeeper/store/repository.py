@@ -321,10 +321,10 @@ class Repository:
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     # samples ----------------------------------------------------------------------
-    def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int]) -> set[int]:
+    def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int] | NDArray[np.int64]) -> set[int]:
         """Which of ``seqs`` this source has stored on this channel already (one range query
         on the unique index; sources number their samples upwards, so the range is tight)."""
-        wanted = set(seqs)
+        wanted = set(seqs.tolist() if isinstance(seqs, np.ndarray) else seqs)
         rows = self.session.connection().exec_driver_sql(_SEEN_PG if self.postgres else _SEEN_SQLITE,
                                                          (channel_pk, source, min(wanted), max(wanted)))
         return {s for (s,) in rows if s in wanted}
