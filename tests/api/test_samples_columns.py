@@ -154,9 +154,13 @@ def test_a_columnar_retry_learns_nothing_twice(client: TestClient, keys: Keys, m
     assert {k: v for k, v in mixed.items() if k != "quality"} == rows
     assert stored_state(client, "site-a.c") == stored_state(client, "site-a.r")
     assert stored_rows(client, "site-a.c") == stored_rows(client, "site-a.r")
+    # a source with COPY's escape characters in it is stored as it came
+    odd = "gw\\3 \\N"
+    post(client, "site-a.c", columns(timed(in_control(2, seed=6), T0, seq0=100), source=odd), dev)
+    assert [r[2] for r in stored_rows(client, "site-a.c")[-2:]] == [odd, odd]
     # a summary retry answers the same counts
     summary = post(client, "site-a.c", {**body, "answer": "summary"}, dev)
-    assert (summary["accepted"], summary["duplicates"], summary["version"]) == (0, 5, 7)
+    assert (summary["accepted"], summary["duplicates"], summary["version"]) == (0, 5, 9)
     assert summary["residuals"] == {"count": 0, "mean": None, "sd": None, "max_abs": None}
 
 
