@@ -298,6 +298,10 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike] 
         source_seqs=seqs, times=times, received_at=now,
         x=X, y=y.tolist(), residual=resid_list, drift_statistic=stats_a.tolist(), status=status, references=refs))
     event_rows = []
+    if all(kind == "periodic" for _, kind, _ in snaps):  # the common case: in one statement
+        repo.insert_snapshots(st.channel_pk, reason="periodic", config=model.config,
+                              snaps=[(v0 + k, n0 + k, state) for k, _, state in snaps])
+        snaps = []
     for k, kind, state in snaps:
         snap = repo.insert_snapshot(st.channel_pk, reason=kind, label=None, config=model.config, model_state=state,
                                     version=v0 + k, n_samples=n0 + k)

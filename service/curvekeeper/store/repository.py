@@ -142,6 +142,7 @@ _LEARNING_FOR_UPDATE = _LEARNING.with_for_update(of=STATE_T)
 _SEEN_SQLITE = "SELECT source_seq FROM sample WHERE channel_pk = ? AND source = ? AND source_seq BETWEEN ? AND ?"
 _SEEN_PG = _SEEN_SQLITE.replace("?", "%s")
 SAMPLE_T = cast(Table, Sample.__table__)
+SNAPSHOT_T = cast(Table, Snapshot.__table__)
 TRACE_T = cast(Table, CurveTrace.__table__)
 # asked after every batch of a calibrated channel: a Core statement (the ORM's costs ~5x more)
 _TRACE_SPAN = select(func.min(TRACE_T.c.t), func.max(TRACE_T.c.t)).where(TRACE_T.c.channel_pk == bindparam("pk"))
@@ -423,6 +424,17 @@ class Repository:
         self.session.add(snap)
         self.session.flush()
         return snap
+
+    def insert_snapshots(self, channel_pk: int, *, reason: str, config: dict[str, Any],
+                         snaps: Sequence[tuple[int, int, dict[str, Any]]]) -> None:
+        """Snapshots of one reason and configuration, (version, n_samples, model_state) each,
+        in one executemany (a batch of 10,000 samples takes 10 periodic snapshots)."""
+        if not snaps:
+            return
+        now = utcnow()
+        self.session.connection().execute(insert(SNAPSHOT_T), [
+            {"channel_pk": channel_pk, "reason": reason, "label": None, "config": config, "model_state": state,
+             "version": version, "n_samples": n, "created_at": now} for version, n, state in snaps])
 
     def get_snapshot(self, channel_pk: int, snapshot_pk: int) -> Snapshot | None:
         return self.session.scalars(select(Snapshot).where(Snapshot.channel_pk == channel_pk,
