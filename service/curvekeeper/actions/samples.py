@@ -355,7 +355,7 @@ def _learning(repo: Repository, channel_id: str) -> LearningState:
     return st
 
 
-def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike], source: str | None,
+def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike] | SampleBatch, source: str | None,
            key_id: str | None, reference: str | None = None) -> ChannelOutcome:
     return ingest_channel(unit, _learning(unit.repo, channel_id), samples, source, key_id, reference)
 

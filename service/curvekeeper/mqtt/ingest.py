@@ -14,11 +14,12 @@ from typing import Any
 from fastapi.exceptions import RequestValidationError
 
 from ..actions import samples
+from ..actions.samples import SampleBatch
 from ..actions.unit import Work
 from ..api.bodies import check_items, validate_body
 from ..api.deps import check_times
 from ..api.errors import error_body, status_of
-from ..api.schemas.samples import SamplesIn
+from ..api.schemas.samples import SampleItem, SamplesIn
 from ..api.schemas.samples_columns import answer_of, column_count, is_columnar, read_columns
 from ..config import Settings
 from ..core import CoreError, StateError
@@ -61,6 +62,7 @@ def ingest_message(work: Work, settings: Settings, metrics: Metrics, channel_id:
     try:
         raw = _parse(payload)
         form: str | None = None
+        items: list[SampleItem] | SampleBatch
         if is_columnar(raw):  # the columnar body, as the route takes it
             check_items(column_count(raw), settings.max_batch, "samples", "max_batch")
             col = read_columns(raw, settings.max_clock_skew_s)

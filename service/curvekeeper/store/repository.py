@@ -377,6 +377,7 @@ class Repository:
         xs = ([f"[{v!r}]" for v in X[:, 0].tolist()] if X.shape[1] == 1 else [_json_floats(r) for r in X.tolist()])
         if self.postgres:
             driver = self.session.connection().connection.driver_connection
+            assert driver is not None  # a live connection's psycopg connection
             with driver.cursor() as cur, cur.copy(_SAMPLE_COPY_PG) as copy:
                 copy.write(_copy_text(rows, xs))
             return
