@@ -6,11 +6,12 @@ the one the row body gives for that value."""
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from functools import lru_cache
 from itertools import chain
-from typing import Annotated, Any
+from typing import Annotated, Any, cast
 
 import numpy as np
 from fastapi.exceptions import RequestValidationError
@@ -21,7 +22,7 @@ from ...actions.samples import ChannelOutcome, SampleBatch
 from ...channel_config import ReferenceId
 from ...errors import InvalidRequest
 from ..bodies import validate_body
-from .common import Number, Reading, Seq, Source, When
+from .common import EARLIEST, LATEST, Number, Reading, Seq, Source, When
 from .samples import (
     AnswerForm,
     ColumnarAnswer,
@@ -151,14 +152,39 @@ def _seqs(seq: list[Any]) -> NDArray[np.int64]:
     raise _refusal(Seq, seq[bad], ("columns", "seq", bad))
 
 
+#: the common form of a time, which pydantic and ``datetime.fromisoformat`` read alike
+_ISO_TIME = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(?:\.\d{1,6})?(?:Z|[+-]\d{2}:\d{2})")
+
+
+def _common_times(t: list[Any]) -> list[datetime] | None:
+    """t when every value has the common form and lies in the row body's range (about
+    0.4 us a value, pydantic's parse 1 us); None: pydantic reads the column (other forms,
+    and every error, as the row body gives them)."""
+    if set(map(type, t)) != {str}:
+        return None
+    match = _ISO_TIME.fullmatch
+    try:
+        out = [datetime.fromisoformat(v) if match(v) else None for v in t]
+        if any(v is None for v in out):
+            return None
+        times = cast(list[datetime], out)
+        if min(times) < EARLIEST or max(times) >= LATEST:
+            return None
+    except (ValueError, OverflowError):  # e.g. day 31 of a 30-day month, an offset past a year's end
+        return None
+    return times
+
+
 def _times(t: list[Any], max_skew_s: float) -> list[datetime | None]:
     """t as aware datetimes (the row body's rules, pydantic's parser); none more than
     ``max_skew_s`` ahead of this server's clock (as ``deps.check_times``)."""
-    try:
-        times: list[datetime | None] = _adapter(list[When]).validate_python(t)
-    except ValidationError as exc:
-        raise RequestValidationError([{**e, "loc": ("body", "columns", "t", *e["loc"])}
-                                      for e in exc.errors(include_url=False)]) from None
+    times: list[datetime | None] | None = cast("list[datetime | None] | None", _common_times(t))
+    if times is None:
+        try:
+            times = _adapter(list[When]).validate_python(t)
+        except ValidationError as exc:
+            raise RequestValidationError([{**e, "loc": ("body", "columns", "t", *e["loc"])}
+                                          for e in exc.errors(include_url=False)]) from None
     latest = datetime.now(UTC) + timedelta(seconds=max_skew_s)
     bad = next((i for i, v in enumerate(times) if v is not None and v > latest), None)
     if bad is not None:
