@@ -231,9 +231,10 @@ def ingest_channel(unit: Unit, st: LearningState, samples: Sequence[SampleLike] 
     everything for it; ``reference`` is the reference instrument of the samples that name none."""
     repo = unit.repo
     now = unit.now()
-    model = unit.write_model(st)
     n = len(samples)
-    unit.spend(n * item_cost(model))
+    shared = unit.read_model(st)
+    unit.spend(n * item_cost(shared))  # over the event loop's budget: raises before the model is copied
+    model = shared.copy()  # as unit.write_model gives it
     d = len(model.config["inputs"])
     if isinstance(samples, SampleBatch):
         if samples.x.shape[1] != d:
