@@ -27,11 +27,28 @@ class FakeRepo:
 
 
 class Referenced:
+    calibrated = True
+
+    def __init__(self) -> None:
+        self.asked = 0
+
     def reference_difference(self) -> tuple[float, float | None]:
+        self.asked += 1
         return 0.01, 0.002
 
 
 class Uncalibrated:
+    calibrated = False
+
+    def reference_difference(self) -> None:
+        raise AssertionError("a channel without a curve has no reference curve: not asked")
+
+
+class LearnedOnly:
+    """A curve learnt from samples, without a calibration: no reference curve."""
+
+    calibrated = True
+
     def reference_difference(self) -> None:
         return None
 
@@ -57,3 +74,11 @@ def test_a_year_of_batches_keeps_a_few_hundred_points() -> None:
 def test_batches_closer_than_an_hour_add_no_point_and_a_channel_without_reference_none() -> None:
     assert len(feed(Referenced(), 10, step_min=20).points) == 10  # 30 batches over 10 hours
     assert feed(Uncalibrated(), 48).points == []
+    assert feed(LearnedOnly(), 48).points == []
+
+
+def test_the_curve_difference_is_computed_only_for_a_batch_that_adds_a_point() -> None:
+    """It costs a grid evaluation and a prediction: not for the batches the spacing skips."""
+    model = Referenced()
+    assert len(feed(model, 10, step_min=20).points) == 10
+    assert model.asked == 10

@@ -3,13 +3,22 @@ answers (ingest, gateway batch, predict) carry exactly the fields their actions 
 
 from __future__ import annotations
 
-import dataclasses
 from typing import Any
 
 from curvekeeper.actions import curves, samples
 from curvekeeper.actions.samples import SampleIn
-from curvekeeper.api.schemas.curves import PredictAnswer
-from curvekeeper.api.schemas.samples import ChannelIngest, DriftBrief, GatewayAnswer, IngestAnswer, SampleRejection
+from curvekeeper.api.schemas.curves import PredictAnswer, Quality
+from curvekeeper.api.schemas.samples import (
+    ChannelIngest,
+    ColumnarAnswer,
+    ColumnarSummary,
+    DriftBrief,
+    GatewayAnswer,
+    IngestAnswer,
+    ResidualSummary,
+    SampleRejection,
+)
+from curvekeeper.api.schemas.samples_columns import answer_of
 from fastapi.testclient import TestClient
 
 
@@ -18,6 +27,8 @@ def free_form(spec: dict[str, Any], schema: dict[str, Any]) -> bool:
     if "$ref" in schema:
         name = schema["$ref"].rsplit("/", 1)[-1]
         return free_form(spec, spec["components"]["schemas"][name])
+    if "anyOf" in schema:  # one of several answers (e.g. by the body's form): each names its fields
+        return any(free_form(spec, s) for s in schema["anyOf"])
     return "properties" not in schema
 
 
@@ -56,9 +67,13 @@ def test_the_walk_sees_a_free_form_answer() -> None:
                       "/v1/b": {"delete": {"responses": {"200": {"content": {"application/json": {
                           "schema": {"type": "object"}}}}, "422": {}}}},
                       "/v1/c": {"get": {"responses": {"204": {"description": "no body"}}}},
+                      "/v1/d": {"get": {"responses": {"200": {"content": {"application/json": {
+                          "schema": {"anyOf": [{"$ref": "#/components/schemas/A"}, {"type": "object"}]}}}}}}},
+                      "/v1/e": {"get": {"responses": {"200": {"content": {"application/json": {
+                          "schema": {"anyOf": [{"$ref": "#/components/schemas/A"}, ok]}}}}}}},
                       "/healthz": {"get": {"responses": {"200": {"content": {"application/json": {
                           "schema": {"type": "object"}}}}}}}}}
-    assert untyped_answers(spec) == {"POST /v1/a", "DELETE /v1/b", "GET /v1/c"}
+    assert untyped_answers(spec) == {"POST /v1/a", "DELETE /v1/b", "GET /v1/c", "GET /v1/d"}
 
 
 def fields(model: Any) -> set[str]:
@@ -79,8 +94,13 @@ def test_hot_answers_hold_every_field_the_actions_give(client: TestClient, make_
         batch = samples.ingest_gateway(unit, [("site-a.p1", SampleIn(x=1.0, y=2.0)),
                                               ("site-a.p2", SampleIn(x=3.0, y=4.0))], "gw", None)
         predicted = curves.predict(unit, "site-a.p1", [1.0, 2.0], None)
-    assert {f.name for f in dataclasses.fields(one)} - {"alarms"} == fields(IngestAnswer)
+    assert set(answer_of(one, None).model_dump()) == fields(IngestAnswer)
+    assert set(answer_of(one, "full").model_dump()) == fields(ColumnarAnswer)
+    assert set(answer_of(one, "summary").model_dump()) == fields(ColumnarSummary)
     assert set(one.drift) == fields(DriftBrief)
+    assert set(one.quality) == fields(Quality)
+    assert set(one.residual_summary()) == fields(ResidualSummary)
+    assert one.rejected_counts() == {"outlier": 1}
     assert set(batch) - {"alarms"} == fields(GatewayAnswer)
     for c in batch["channels"].values():
         assert set(c) == fields(ChannelIngest)

@@ -19,6 +19,12 @@ REFUSED: list[bytes] = [
     b'{"samples": [{"x": 1, "y": 2}], "extra": 1}', b'{"samples": [{"x": "hot", "y": 2}]}',
     b'{"samples": [{"x": [1, 2], "y": 2}]}', b'{"samples": [{"x": 1, "y": 2, "t": "2999-01-01T00:00:00Z"}]}',
     b'{"samples": [{"x": 1, "y": 2, "reference": "no-such-reference"}]}',
+    # the columnar body
+    b'{"columns": {"x": [1, 2], "y": [2]}}', b'{"columns": {"x": [1, "hot"], "y": [2, 3]}}',
+    b'{"columns": {"x": [1, 2], "y": [2, NaN]}}', b'{"columns": {"x": [[1, 2]], "y": [2]}}',
+    b'{"columns": {"x": [1], "y": [2], "t": ["2999-01-01T00:00:00Z"]}}',
+    b'{"columns": {"x": [1], "y": [2]}, "answer": "x"}',
+    b'{"columns": {"x": [1], "y": [2], "seq": [-1]}, "source": "dev-1"}', b'{"columns": {"y": [2]}}',
 ]
 
 
@@ -65,6 +71,24 @@ def test_samples_are_learned_once_with_the_http_answer(client: TestClient, admin
     assert (reply.status, reply.ack) == (200, True)
     assert reply.body == http.json()  # two channels of one configuration learn alike
     again = mqtt(client, "site-a.p2", json.dumps(body).encode())  # the broker delivering it again
+    assert (again.body["accepted"], again.body["duplicates"], again.body["n_samples"]) == (0, 5, 5)
+    assert client.get("/v1/channels/site-a.p2", headers=admin).json()["n_samples"] == 5
+
+
+@pytest.mark.parametrize("answer", ["full", "summary"])
+def test_columns_are_learned_once_with_the_http_answer(client: TestClient, admin: dict[str, str],
+                                                       make_channel: Any, answer: str) -> None:
+    make_channel("site-a.p1")
+    make_channel("site-a.p2")
+    body = {"source": "dev-1", "answer": answer,
+            "columns": {"x": [float(i) for i in range(1, 6)], "y": [2.0 * i + 1.0 for i in range(1, 6)],
+                        "seq": list(range(1, 6))}}
+    http = client.post("/v1/channels/site-a.p1/samples", json=body, headers=admin)
+    reply = mqtt(client, "site-a.p2", json.dumps(body).encode())
+    assert (reply.status, reply.ack) == (200, True)
+    assert reply.body == http.json()
+    assert "quality" in reply.body
+    again = mqtt(client, "site-a.p2", json.dumps(body).encode())
     assert (again.body["accepted"], again.body["duplicates"], again.body["n_samples"]) == (0, 5, 5)
     assert client.get("/v1/channels/site-a.p2", headers=admin).json()["n_samples"] == 5
 

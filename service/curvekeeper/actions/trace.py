@@ -26,15 +26,18 @@ def record(repo: Repository, channel_pk: int, model: ChannelModel, t: datetime, 
     """After a batch is learnt: a trace point at the batch's latest measurement time ``t``
     when the channel has a reference curve and the last point is older by ``TRACE_EVERY_S``
     and by the trace's age over ``TRACE_SPACING`` (samples older than the last point add
-    none)."""
-    found = model.reference_difference()
-    if found is None:
+    none). The span is asked first: most batches add no point, and the curve difference (a
+    grid evaluation and a prediction, about 0.5 ms) is computed only for one that does."""
+    if not model.calibrated:  # no curve at all, so no reference curve either
         return
     span = repo.trace_span(channel_pk)
     if span is not None:
         first, last = span
         if (t - last).total_seconds() < max(TRACE_EVERY_S, (t - first).total_seconds() / TRACE_SPACING):
             return
+    found = model.reference_difference()
+    if found is None:
+        return
     difference, u = found
     repo.insert_trace_point(channel_pk, t=t, difference=difference, u=u, version=version)
 

@@ -14,11 +14,13 @@ from typing import Any
 from fastapi.exceptions import RequestValidationError
 
 from ..actions import samples
+from ..actions.samples import SampleBatch
 from ..actions.unit import Work
 from ..api.bodies import check_items, validate_body
 from ..api.deps import check_times
 from ..api.errors import error_body, status_of
-from ..api.schemas.samples import IngestAnswer, SamplesIn
+from ..api.schemas.samples import SampleItem, SamplesIn
+from ..api.schemas.samples_columns import answer_of, column_count, is_columnar, read_columns
 from ..config import Settings
 from ..core import CoreError, StateError
 from ..errors import NotReady, ServiceError, StateDamaged, StoreBusy, validation_details, validation_message
@@ -65,13 +67,21 @@ def ingest_message(work: Work, settings: Settings, metrics: Metrics, channel_id:
 def _learn(work: Work, settings: Settings, metrics: Metrics, channel_id: str, payload: bytes) -> Reply:
     try:
         raw = _parse(payload)
-        check_items(len(raw["samples"]) if isinstance(raw, dict) and isinstance(raw.get("samples"), list) else 0,
-                    settings.max_batch, "samples", "max_batch")
-        body = validate_body(raw, SamplesIn, "samples")
-        check_times(body.samples, settings)
+        form: str | None = None
+        items: list[SampleItem] | SampleBatch
+        if is_columnar(raw):  # the columnar body, as the route takes it
+            check_items(column_count(raw), settings.max_batch, "samples", "max_batch")
+            col = read_columns(raw, settings.max_clock_skew_s)
+            items, source, reference, form = col.batch, col.source, col.reference, col.answer
+        else:
+            check_items(len(raw["samples"]) if isinstance(raw, dict) and isinstance(raw.get("samples"), list) else 0,
+                        settings.max_batch, "samples", "max_batch")
+            body = validate_body(raw, SamplesIn, "samples")
+            check_times(body.samples, settings)
+            items, source, reference = body.samples, body.source, body.reference
         deadline = time.monotonic() + work.store.busy_timeout_s
         with work.unit(write=True, deadline=deadline) as unit:
-            out = samples.ingest(unit, channel_id, body.samples, body.source, None, body.reference)
+            out = samples.ingest(unit, channel_id, items, source, None, reference)
     except RequestValidationError as exc:
         errors = validation_details(exc.errors())
         if any(e["type"] == "json_invalid" for e in errors):
@@ -93,7 +103,4 @@ def _learn(work: Work, settings: Settings, metrics: Metrics, channel_id: str, pa
     except CoreError as exc:
         return _error(422, exc.code, exc.message, {"field": exc.field})
     metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
-    answer = IngestAnswer.model_validate(
-        {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected, "residuals": out.residuals,
-         "version": out.version, "n_samples": out.n_samples, "drift": out.drift})
-    return Reply(200, answer.model_dump(mode="json"))
+    return Reply(200, answer_of(out, form).model_dump(mode="json"))

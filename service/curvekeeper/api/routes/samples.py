@@ -7,24 +7,31 @@ import time
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Query, Response
+from starlette.concurrency import run_in_threadpool
 
 from ...actions import samples
+from ...actions.samples import SampleBatch
 from ...csvcells import TextSafeWriter
-from ..bodies import CountedRoute, checked_body, counted, unvalidated
+from ..bodies import INLINE_MAX_BODY_ITEMS, CountedRoute, check_items, checked_body, counted, unvalidated
 from ..deps import Ctx, Who, check_times
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
+    ColumnarAnswer,
+    ColumnarSamplesIn,
+    ColumnarSummary,
     GatewayAnswer,
     GatewayIn,
     IngestAnswer,
+    SampleItem,
     SamplePage,
     SamplesIn,
 )
+from ..schemas.samples_columns import answer_of, column_count, is_columnar, read_columns
 from ..work import run_store
 from .channels import ChannelPath, Limit
 
 # request bodies validated by the routes themselves, after counting their items
-RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn)]
+RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn | ColumnarSamplesIn)]
 RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn)]
 
 router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMMON_ERRORS, **error_responses(404)})
@@ -32,21 +39,33 @@ router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMM
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
 @counted("samples", lambda s: s.max_batch, "max_batch", "samples")
-async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who) -> IngestAnswer:
+async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who: Who
+                       ) -> IngestAnswer | ColumnarAnswer | ColumnarSummary:
+    """Rows (``samples``: one object a sample; answered per sample) or columns (``columns``:
+    one array a field, read into numpy and checked column by column; answered per sample or,
+    with ``"answer": "summary"``, in one summary of the residuals). The same rules either way."""
     started = time.monotonic()  # the busy timeout counts from here, validation in a worker thread included
-    body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
-                              setting="max_batch")
-    who.require_channel(channel_id, "device")
-    check_times(body.samples, ctx.settings)
-    out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, body.samples, body.source,
-                                                                 who.key_id, body.reference),
-                          write=True, items=len(body.samples), started=started)
+    items: list[SampleItem] | SampleBatch
+    form: str | None = None
+    if is_columnar(raw):
+        n = column_count(raw)
+        check_items(n, ctx.settings.max_batch, "samples", "max_batch")
+        skew = ctx.settings.max_clock_skew_s
+        # vectorised, yet t (when given) is parsed per value: a large body is read in a worker thread
+        col = read_columns(raw, skew) if n <= INLINE_MAX_BODY_ITEMS else await run_in_threadpool(
+            read_columns, raw, skew)
+        items, source, reference, form = col.batch, col.source, col.reference, col.answer
+        who.require_channel(channel_id, "device")
+    else:
+        body = await checked_body(raw, SamplesIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                                  setting="max_batch")
+        who.require_channel(channel_id, "device")
+        check_times(body.samples, ctx.settings)
+        items, source, reference = body.samples, body.source, body.reference
+    out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, items, source, who.key_id, reference),
+                          write=True, items=len(items), started=started)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
-    # validated here, once (FastAPI takes the instance as it is): an answer holds one residual
-    # per sample, and at these sizes validating costs about what model_construct does
-    return IngestAnswer.model_validate(
-        {"accepted": out.accepted, "duplicates": out.duplicates, "rejected": out.rejected, "residuals": out.residuals,
-         "version": out.version, "n_samples": out.n_samples, "drift": out.drift})
+    return answer_of(out, form)
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")

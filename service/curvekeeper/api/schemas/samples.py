@@ -9,6 +9,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from ...channel_config import ReferenceId
 from .common import Answer, ChannelId, DriftState, Number, Page, Reading, Seq, Source, ToleranceState, When
+from .curves import Quality
 
 REFERENCE = ("the reference instrument (GET /v1/references/{id}) that gave y; unknown: 404, retired: 409; "
              "a channel with require_reference refuses a sample without one (422 reference_required)")
@@ -38,6 +39,40 @@ class SamplesIn(BaseModel):
     source: Source | None = None
     reference: ReferenceId | None = Field(None, description=REQUEST_REFERENCE)
     samples: list[SampleItem] = Field(min_length=1)
+
+
+class SampleColumns(BaseModel):
+    """The samples of a request column by column: value i of each column is sample i."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    x: list[Reading] | list[list[Reading]] = Field(
+        description="raw inputs: one number a sample (one input), or one list a sample in the channel's input order")
+    y: list[Number] = Field(min_length=1, description="reference values in output units, one a sample")
+    t: list[When] | None = Field(None, description="measurement times, ISO-8601 with a time zone, one a sample; "
+                                 "left out: the receive time")
+    seq: list[Seq] | None = Field(None, description="the source's sequence numbers, one a sample: (source, seq) "
+                                  "makes retries idempotent")
+
+
+#: what a columnar request is answered: per sample (full) or one summary of its residuals
+AnswerForm = Literal["full", "summary"]
+
+
+class ColumnarSamplesIn(BaseModel):
+    """The columnar samples body: the same rules as the row body (``samples``), checked
+    column by column; every column holds as many values as ``y``."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"source": "gw-3", "columns": {"x": [10234.5, 10230.0], "y": [24.87, 24.9],
+                                       "t": ["2026-12-01T10:00:00Z", "2026-12-01T10:01:00Z"], "seq": [17, 18]},
+         "answer": "summary"}]})
+
+    source: Source | None = None
+    reference: ReferenceId | None = Field(None, description="the reference instrument of every sample")
+    columns: SampleColumns
+    answer: AnswerForm = Field("full", description="full: counts, held-back samples and the residuals as one "
+                               "array; summary: counts by reason and the residuals' count, mean, s.d. and max |r|")
 
 
 class GatewaySampleItem(SampleItem):
@@ -86,6 +121,35 @@ class IngestAnswer(Answer):
     version: int = Field(description="the channel's state version after the request")
     n_samples: int = Field(description="samples the channel holds")
     drift: DriftBrief
+
+
+class ColumnarAnswer(IngestAnswer):
+    """What one channel learned from a columnar request (answer full): the row body's answer
+    and the channel's quality."""
+
+    quality: Quality
+
+
+class ResidualSummary(Answer):
+    """The prior residuals of the stored samples whose residual is finite, output units."""
+
+    count: int
+    mean: float | None = Field(description="null when count is 0")
+    sd: float | None = Field(description="sample standard deviation (n - 1); null when count < 2")
+    max_abs: float | None = Field(description="largest |residual|; null when count is 0")
+
+
+class ColumnarSummary(Answer):
+    """What one channel learned from a columnar request (answer summary)."""
+
+    accepted: int = Field(description="samples learned")
+    duplicates: int = Field(description="retried samples (same source and seq) skipped")
+    rejected: dict[Reason, int] = Field(description="samples stored but not learned, by reason")
+    residuals: ResidualSummary
+    version: int = Field(description="the channel's state version after the request")
+    n_samples: int = Field(description="samples the channel holds")
+    drift: DriftBrief
+    quality: Quality
 
 
 class GatewayRejection(SampleRejection):
