@@ -37,7 +37,8 @@ from schemathesis.specs.openapi.checks import (
 from tests.conftest import ADMIN_SECRET
 
 # hundreds of generated requests: in the README command, not the quick loop
-pytestmark = pytest.mark.slow
+# one worker runs the whole module, in file order: the last test judges what the cases before it saw
+pytestmark = [pytest.mark.slow, pytest.mark.xdist_group("openapi-fuzz")]
 
 AUTH = {"Authorization": f"Bearer {ADMIN_SECRET}"}
 STORE = Path(tempfile.mkdtemp(prefix="ck-fuzz-")) / "store.db"
