@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import sys
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager, suppress
 from datetime import datetime
@@ -43,6 +44,14 @@ from .routes import (
     webhooks,
 )
 
+#: how long a thread may hold the interpreter lock while another waits for it, seconds
+#: (Python's default: 0.005). The event loop's thread needs the lock back after every
+#: wait on a socket; with worker threads parsing, validating and storing a large batch,
+#: each hand-back cost up to 5 ms, several times a request (a 1-value predict's p99 went
+#: from 3 to 15 ms while another client posted batches; 7 ms at 0.5 ms, and batches of
+#: 1,000 and 10,000 kept their throughput side by side: tests/bench/ingest_bench.py)
+SWITCH_INTERVAL_S = 0.0005
+
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
 `/healthz` and `/readyz`. The service supports, and does not replace, traceable
@@ -74,6 +83,8 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
         # one BLAS thread: requests are the unit of parallelism here; on shared cores a
         # multi-threaded BLAS stalled fits and predicts by up to 10x (tests/bench/cost_bench.py)
         threadpool_limits(limits=1)
+        switch = sys.getswitchinterval()
+        sys.setswitchinterval(SWITCH_INTERVAL_S)
         build.start()  # in its own thread: the loop answers /healthz meanwhile
         store = Store(settings.database_url, busy_timeout_s=settings.busy_timeout_s)
         try:
@@ -106,6 +117,7 @@ def create_app(settings: Settings | None = None, *, kernels: KernelBuild | None 
                         await task
             metrics.unwatch_store(gauges)
             store.dispose()
+            sys.setswitchinterval(switch)
 
     # docs_url/redoc_url off: FastAPI's pages load their scripts from a CDN; ours are local
     app = FastAPI(title="curvekeeper", version=__version__, description=DESCRIPTION, lifespan=lifespan,
