@@ -9,6 +9,7 @@ from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager, suppress
 from datetime import datetime
 from functools import partial
+from typing import TYPE_CHECKING
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
@@ -21,7 +22,6 @@ from ..actions.unit import Work
 from ..config import Settings
 from ..kernels import PROCESS, KernelBuild
 from ..metrics import Metrics, StoreGauges
-from ..mqtt import Subscriber, Topics, ingest_message
 from ..ratelimit import RateLimiter
 from ..store import Store
 from ..store.tables import utcnow
@@ -52,6 +52,9 @@ from .routes import (
 #: 1,000 and 10,000 kept their throughput side by side: tests/bench/ingest_bench.py)
 SWITCH_INTERVAL_S = 0.0005
 
+if TYPE_CHECKING:
+    from ..mqtt import Subscriber
+
 DESCRIPTION = """Keeps each sensor channel's calibration curve current as reference
 readings arrive. Send `Authorization: Bearer <api key>` on every route except
 `/healthz` and `/readyz`. The service supports, and does not replace, traceable
@@ -60,7 +63,10 @@ accredited calibration and the rules that apply where the sensors are used."""
 
 def mqtt_subscriber(ctx: AppContext) -> Subscriber:
     """The MQTT subscriber of ``ctx.settings.mqtt_url``: each message learned through the
-    same unit of work and action as ``POST /v1/channels/{id}/samples``."""
+    same unit of work and action as ``POST /v1/channels/{id}/samples``. Imported here: a
+    service without MQTT starts without the client library."""
+    from ..mqtt import Subscriber, Topics, ingest_message
+
     s = ctx.settings
     assert s.mqtt_url is not None
     return Subscriber(s.mqtt_url, partial(ingest_message, ctx.work, s, ctx.metrics), client_id=s.mqtt_client_id,
