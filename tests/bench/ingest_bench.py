@@ -85,14 +85,15 @@ LOAD_BATCHES = (1_000, 10_000)  # the loading client's batches, in turn (the row
 # ---------------------------------------------------------------------------------------------
 # bodies
 
-def columnar_body(xs: list[float], ys: list[float]) -> dict[str, Any]:
-    """The columnar samples body: THE one place its field names are written."""
-    return {"source": "bench", "columns": {"x": xs, "y": ys}, "answer": "counts"}
+def columnar_body(xs: list[float], ys: list[float], seqs: list[int]) -> dict[str, Any]:
+    """The columnar samples body: THE one place its field names are written (the answer asked
+    for is the short one, counts and a summary of the residuals, not one residual a sample)."""
+    return {"source": "bench", "columns": {"x": xs, "y": ys, "seq": seqs}, "answer": "summary"}
 
 
 def columnar(batch: int, seq0: int) -> bytes:
     rs = [reading(seq0 + i) for i in range(batch)]
-    return json.dumps(columnar_body([r["x"] for r in rs], [r["y"] for r in rs])).encode()
+    return json.dumps(columnar_body([r["x"] for r in rs], [r["y"] for r in rs], [r["seq"] for r in rs])).encode()
 
 
 def rows(batch: int, seq0: int) -> bytes:

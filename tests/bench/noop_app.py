@@ -14,13 +14,19 @@ from pydantic import BaseModel
 app = FastAPI()
 
 
-class ColumnsIn(BaseModel):
-    """A columnar samples body (``tests.bench.ingest_bench.columnar_body``): every column a list
-    of numbers, validated as floats, whatever the columns are named."""
+class AnyColumnsIn(BaseModel):
+    """A columnar samples body (``tests.bench.ingest_bench.columnar_body``) for a service
+    without one: every column a list of numbers, validated as floats, whatever their names."""
 
     source: str | None = None
     columns: dict[str, list[float]]
     answer: str | None = None
+
+
+try:  # the service's own columnar schema, as for the row body: the same validation work
+    from curvekeeper.api.schemas.samples import ColumnarSamplesIn as ColumnsIn
+except ImportError:
+    ColumnsIn = AnyColumnsIn  # type: ignore[misc,assignment]
 
 
 @app.post("/v1/channels/{channel_id}/samples")
@@ -30,7 +36,7 @@ def noop(channel_id: str, body: SamplesIn) -> dict[str, Any]:
 
 @app.post("/noop/channels/{channel_id}/columns")
 def noop_columns(channel_id: str, body: ColumnsIn) -> dict[str, Any]:
-    n = max((len(c) for c in body.columns.values()), default=0)
+    n = len(body.columns.y) if hasattr(body.columns, "y") else max(map(len, body.columns.values()), default=0)
     return {"accepted": n, "duplicates": 0, "rejected": [], "version": 0}
 
 
