@@ -74,7 +74,7 @@ PLANS = {
                   pg_requests=5, pg_channels=4),
     "quick": Plan(rounds=3, columnar=6, big=2, single=100, predicts=150, starts=3, pg_rounds=2, pg_clients=4,
                   pg_requests=40, pg_channels=20),
-    "full": Plan(rounds=5, columnar=10, big=3, single=200, predicts=300, starts=5, pg_rounds=3, pg_clients=4,
+    "full": Plan(rounds=5, columnar=10, big=3, single=300, predicts=400, starts=5, pg_rounds=3, pg_clients=4,
                  pg_requests=80, pg_channels=40),
 }
 
