@@ -492,6 +492,10 @@ def _fig_latency(out: Path, idle: list[float], load: list[float]) -> str:
         xs = sorted(values)
         ax.step(xs, [(i + 1) / len(xs) for i in range(len(xs))], where="post", label=f"{label} (n = {len(xs)})")
     ax.set_xscale("log")
+    from matplotlib.ticker import FormatStrFormatter, NullFormatter
+
+    ax.xaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.xaxis.set_minor_formatter(NullFormatter())
     ax.axhline(0.99, color="grey", linestyle=":", label="p99")
     ax.legend()
     return save(fig, out, "ingest_predict_latency")
