@@ -417,6 +417,23 @@ def _import_s() -> float:
     return time.perf_counter() - t0
 
 
+def cpu_ticks() -> tuple[int, int] | None:
+    """(busy, total) clock ticks of the whole machine so far (Linux ``/proc/stat``), or None."""
+    try:
+        fields = [int(v) for v in Path("/proc/stat").read_text().split("\n", 1)[0].split()[1:9]]
+    except (OSError, ValueError):
+        return None
+    idle = fields[3] + fields[4]  # idle and iowait
+    return sum(fields) - idle, sum(fields)
+
+
+def busy_share(before: tuple[int, int] | None, after: tuple[int, int] | None) -> float | None:
+    """The machine's CPU busy share between two ``cpu_ticks`` readings (0-1)."""
+    if before is None or after is None or after[1] <= before[1]:
+        return None
+    return (after[0] - before[0]) / (after[1] - before[1])
+
+
 def _pg(fleet: Fleet, plan: Plan) -> tuple[tuple[float, float] | None, str]:
     """(one process, two processes) samples/s on a fresh PostgreSQL database, or None and why."""
     try:
@@ -443,12 +460,13 @@ def _pg(fleet: Fleet, plan: Plan) -> tuple[tuple[float, float] | None, str]:
                 _create(c, f"bench.pg{i}")
         ctx = mp.get_context("spawn")
         results: dict[str, list[float]] = {"one": [], "two": []}
+        busy: dict[str, list[float]] = {"one": [], "two": []}
         seed = 1
         for r in range(plan.pg_rounds):
             order = ["one", "two"] if r % 2 == 0 else ["two", "one"]
             for which in order:
                 urls = [servers[0].url] if which == "one" else [servers[1].url, servers[2].url]
-                start = ctx.Barrier(plan.pg_clients)
+                start = ctx.Barrier(plan.pg_clients + 1)  # and this process: the CPU reading starts with them
                 q = ctx.Queue()
                 procs = []
                 for _ in range(plan.pg_clients):
@@ -457,7 +475,12 @@ def _pg(fleet: Fleet, plan: Plan) -> tuple[tuple[float, float] | None, str]:
                     seed += 1
                 for p in procs:
                     p.start()
+                start.wait(timeout=300)
+                ticks = cpu_ticks()
                 got = [q.get(timeout=600) for _ in procs]
+                share = busy_share(ticks, cpu_ticks())
+                if share is not None:
+                    busy[which].append(share)
                 for p in procs:
                     p.join(timeout=60)
                 bad = [g for g in got if g[0] != "ok"]
@@ -465,10 +488,12 @@ def _pg(fleet: Fleet, plan: Plan) -> tuple[tuple[float, float] | None, str]:
                     raise RuntimeError(f"a PostgreSQL client: {bad[0][1]}")
                 total = sum(g[1] for g in got)
                 results[which].append(total / (max(g[3] for g in got) - min(g[2] for g in got)))
+        cpu = (f"; the machine's CPUs {med(busy['one']):.0%} busy with one process, {med(busy['two']):.0%} with two"
+               if busy["one"] and busy["two"] else "")
         return ((med(results["one"]), med(results["two"])),
                 f"{plan.pg_clients} client processes x {plan.pg_requests} requests of {PG_BATCH} samples to "
                 f"{plan.pg_channels} channels, {plan.pg_rounds} round(s) each, on {os.cpu_count()} cores shared "
-                "with the clients and the database")
+                f"with the clients and the database{cpu}")
     finally:
         for s in servers:
             if s.proc.poll() is None:
