@@ -330,9 +330,13 @@ def _run(plan: Plan, tmp: Path, fleet: Fleet, out: Path) -> dict[str, Any]:
 
     # 5. start to ready: the kernel cache is warm (the main server built it)
     starts = _starts(fleet, tmp, plan.starts)
-    value["start_ready"] = med([s for _, s in starts])
-    note["start_ready"] = (f"ready after {', '.join(f'{s:.2f}' for _, s in starts)} s; listening after "
-                           f"{med([a for a, _ in starts]):.2f} s (median); imports alone {_import_s():.2f} s")
+    value["start_ready"] = med([s for _, s, _ in starts])
+    cpus = [c for _, _, c in starts if c is not None]
+    note["start_ready"] = (f"ready after {', '.join(f'{s:.2f}' for _, s, _ in starts)} s; listening after "
+                           f"{med([a for a, _, _ in starts]):.2f} s (median); "
+                           + (f"{med(cpus):.2f} CPU s to ready (median); " if cpus else "")
+                           + f"imports alone {_import_s():.2f} s; load average {os.getloadavg()[0]:.1f} "
+                           f"on {os.cpu_count()} cores")
 
     # 6. PostgreSQL: one process against two, same clients, in turns
     pg_rates, pg_note = _pg(fleet, plan)
@@ -347,7 +351,8 @@ def _run(plan: Plan, tmp: Path, fleet: Fleet, out: Path) -> dict[str, Any]:
 
     targets = Table("Ingest targets (met / missed / skipped, from this run)",
                     ["measure", "target", "measured", "status", "figures"])
-    headline: dict[str, Any] = {"columnar_body": columnar_ok}
+    headline: dict[str, Any] = {"columnar_body": columnar_ok, "load_average": [round(v, 2) for v in os.getloadavg()],
+                                "start_cpu_s": med(cpus) if cpus else None}
     for key, (measure, said, _, _) in TARGETS.items():
         v = value.get(key)
         st = status(key, v)
@@ -370,9 +375,19 @@ def _wait_for_load(c: httpx.Client, url: str, timeout_s: float = 120.0) -> None:
     raise RuntimeError("the loading client stored nothing")
 
 
-def _starts(fleet: Fleet, tmp: Path, n: int) -> list[tuple[float, float]]:
-    """(listening, ready) seconds after the spawn of ``curvekeeper serve``, ``n`` starts on
-    one store (made by the first start, before the timed ones)."""
+def cpu_seconds(pid: int) -> float | None:
+    """User + system CPU seconds process ``pid`` has used (Linux ``/proc``), or None."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except (OSError, IndexError):
+        return None
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def _starts(fleet: Fleet, tmp: Path, n: int) -> list[tuple[float, float, float | None]]:
+    """(listening, ready, CPU) seconds after the spawn of ``curvekeeper serve``, ``n`` starts
+    on one store (made by the first start, before the timed ones); CPU: what the process
+    used until ready (threads included), which the machine's other load does not stretch."""
     db = f"sqlite:///{tmp / 'start.db'}"
     out = []
     for k in range(n + 1):
@@ -398,6 +413,7 @@ def _starts(fleet: Fleet, tmp: Path, n: int) -> list[tuple[float, float]]:
                     raise RuntimeError("serve did not become ready in 120 s")
                 time.sleep(0.01)
             ready = time.perf_counter() - t0
+            cpu = cpu_seconds(proc.pid)
         finally:
             proc.terminate()
             try:
@@ -406,7 +422,7 @@ def _starts(fleet: Fleet, tmp: Path, n: int) -> list[tuple[float, float]]:
                 proc.kill()
                 proc.wait()
         if k:  # the first start makes the store
-            out.append((listening or ready, ready))
+            out.append((listening or ready, ready, cpu))
     return out
 
 
