@@ -463,7 +463,8 @@ def _pg(fleet: Fleet, plan: Plan) -> tuple[tuple[float, float] | None, str]:
             conn.execute(text(f"DROP DATABASE IF EXISTS {name} WITH (FORCE)"))
             conn.execute(text(f"CREATE DATABASE {name}"))
     except Exception as exc:  # no server, no driver, no rights: the measure says why
-        return None, f"PostgreSQL at 127.0.0.1:5432 unreachable ({type(exc).__name__}: {str(exc).splitlines()[0]})"
+        where = PG_ADMIN.split("@", 1)[-1].rsplit("/", 1)[0]
+        return None, f"PostgreSQL at {where} unreachable ({type(exc).__name__}: {str(exc).splitlines()[0]})"
     url = f"postgresql+psycopg://postgres@127.0.0.1:5432/{name}"
     servers = []
     try:
