@@ -134,6 +134,7 @@ def load_client(url: str, channel: str, stop: Any, counts: Any) -> None:
     the samples sent go to ``counts`` (a queue) at the end."""
     bodies = [rows(b, 10**9 + k * 20_000) for k, b in enumerate(LOAD_BATCHES)]
     sent, seq = 0, 2 * 10**9
+    t0 = time.monotonic()
     with httpx.Client(base_url=url, headers=AUTH, timeout=120) as c:
         k = 0
         while not stop.is_set():
@@ -146,7 +147,7 @@ def load_client(url: str, channel: str, stop: Any, counts: Any) -> None:
                 return
             sent += b
             k += 1
-    counts.put(("ok", sent))
+    counts.put(("ok", sent, time.monotonic() - t0))
 
 
 def pg_client(urls: list[str], channels: int, requests: int, seed: int, start: Any, out: Any) -> None:
@@ -292,7 +293,7 @@ def _run(plan: Plan, tmp: Path, fleet: Fleet, out: Path) -> dict[str, Any]:
         ppath = "/v1/channels/bench.predict/predict"
         ctx = mp.get_context("spawn")
         loaded_samples = 0
-        loaded_s = 0.0
+        loader_s = 0.0
         for _ in range(rounds):
             for _k in range(plan.predicts):
                 t0 = time.perf_counter()
@@ -303,24 +304,24 @@ def _run(plan: Plan, tmp: Path, fleet: Fleet, out: Path) -> dict[str, Any]:
             loader.start()
             try:
                 _wait_for_load(c, main.url)
-                t_load = time.perf_counter()
                 for _k in range(plan.predicts):
                     t0 = time.perf_counter()
                     _post(c, ppath, one)
                     lat_load.append((time.perf_counter() - t0) * 1e3)
-                loaded_s += time.perf_counter() - t_load
             finally:
                 stop.set()
-            kind, n = counts.get(timeout=300)
+            kind, n, *took = counts.get(timeout=300)
             loader.join(timeout=60)
             if kind != "ok":
                 raise RuntimeError(f"the loading client: {n}")
             loaded_samples += int(n)
+            loader_s += took[0]
         i99, l99 = percentile(lat_idle, 99), percentile(lat_load, 99)
         value["predict_under_ingest"] = l99 / i99
         note["predict_under_ingest"] = (f"p99 {l99:.2f} ms loaded against {i99:.2f} ms idle "
                                         f"(p50 {percentile(lat_load, 50):.2f} / {percentile(lat_idle, 50):.2f} ms); "
-                                        f"load: row batches of {' and '.join(f'{b:,}' for b in LOAD_BATCHES)}")
+                                        f"load: row batches of {' and '.join(f'{b:,}' for b in LOAD_BATCHES)}, "
+                                        f"{loaded_samples / loader_s:,.0f} samples/s stored meanwhile")
         side.add("predict 1 value p99 under ingest", l99, i99, l99 / i99, "ms", "idle, same server")
         side.add("predict 1 value p50 under ingest", percentile(lat_load, 50), percentile(lat_idle, 50),
                  percentile(lat_load, 50) / percentile(lat_idle, 50), "ms", "idle, same server")
