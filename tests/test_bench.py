@@ -20,7 +20,7 @@ pytestmark = pytest.mark.slow
 
 ROOT = Path(__file__).resolve().parents[1]
 # the MQTT section needs the broker (.ci/run starts Mosquitto); without one it is left out
-SECTIONS = {"core", "cost", "drift", "service"} | ({"mqtt"} if broker_reachable() else set())
+SECTIONS = {"core", "cost", "drift", "service", "ingest"} | ({"mqtt"} if broker_reachable() else set())
 
 
 @pytest.fixture(scope="module")
@@ -114,3 +114,33 @@ def test_mqtt_and_http_rates_are_measured_on_the_same_batches(smoke: tuple[Path,
         assert finite(h[f"http_samples_per_s_batch{b}"]) and h[f"http_samples_per_s_batch{b}"] > 0
     # every sample of both protocols was stored (the section checks the channels' counts)
     assert h["samples_each"] == 1 * 20 + 100 * 4
+
+
+def test_ingest_targets_are_each_met_missed_or_skipped(smoke: tuple[Path, dict[str, Any]]) -> None:
+    from tests.bench.ingest_bench import TARGETS
+
+    section = smoke[1]["sections"]["ingest"]
+    h = section["headline"]
+    targets = section["tables"][0]
+    # one row per target, in the table and the headline, each with its verdict
+    assert [row[0] for row in targets["rows"]] == [t[0] for t in TARGETS.values()]
+    for key, (_, said, *_) in TARGETS.items():
+        entry = h[key]
+        assert entry["target"] == said
+        if entry["status"] == "skipped":
+            # only the columnar body (a server without it) and PostgreSQL (no server) may be skipped, saying why
+            assert key in ("columnar_1000", "pg_two_processes") and entry["value"] is None, key
+            assert entry["note"].startswith("skipped: ") and len(entry["note"]) > 20, entry
+        else:
+            assert finite(entry["value"]) and entry["value"] > 0, (key, entry)
+            bound, kind = TARGETS[key][2:]
+            met = entry["value"] >= bound if kind == "min" else entry["value"] <= bound
+            assert entry["status"] == ("met" if met else "missed"), entry
+            assert entry["note"], key
+    # the columnar measure runs exactly when the server takes the columnar body
+    assert (h["columnar_1000"]["status"] != "skipped") == h["columnar_body"]
+    # the side-by-side figures are all positive and finite
+    side = section["tables"][1]
+    assert any(row[0] == "single-sample requests" for row in side["rows"])
+    for row in side["rows"]:
+        assert all(finite(v) and v > 0 for v in row[1:4]), row

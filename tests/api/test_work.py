@@ -5,13 +5,17 @@ stored."""
 
 from __future__ import annotations
 
+import asyncio
 import sqlite3
 import threading
 from collections.abc import Iterator
 
 import pytest
+from curvekeeper.actions.unit import Work
 from curvekeeper.api.app import create_app
+from curvekeeper.api.work import INLINE_MAX_ITEMS, INLINE_MAX_WRITE_ITEMS, run_store
 from curvekeeper.config import Settings
+from curvekeeper.kernels import PROCESS
 from curvekeeper.store import Store, WriteLockTaken
 from fastapi.testclient import TestClient
 
@@ -126,3 +130,24 @@ def test_large_batches_run_in_a_worker_thread_and_learn_in_order(client: TestCli
                         headers=ADMIN)
     assert again.json()["duplicates"] == 5
 
+
+
+@sqlite_only
+@pytest.mark.parametrize(("write", "items", "on_loop"), [
+    (True, 1, True), (True, INLINE_MAX_WRITE_ITEMS, True), (True, INLINE_MAX_WRITE_ITEMS + 1, False),
+    (True, INLINE_MAX_ITEMS, False), (False, INLINE_MAX_ITEMS, True), (False, INLINE_MAX_ITEMS + 1, False)])
+def test_writes_leave_the_loop_sooner_than_reads(database_url: str, write: bool, items: int, on_loop: bool) -> None:
+    """A write holds the loop through its commit's fsync: past ``INLINE_MAX_WRITE_ITEMS``
+    samples it runs in a worker thread, where a read of the same size still runs on the loop."""
+    PROCESS.start()  # once per process: the kernels must be built for work to run on the loop
+    assert PROCESS.wait(120), PROCESS.error
+    store = Store(database_url)
+    try:
+        async def where() -> tuple[int, int]:
+            ran = await run_store(Work(store), lambda unit: threading.get_ident(), write=write, items=items)
+            return ran, threading.get_ident()
+
+        ran, loop = asyncio.run(where())
+        assert (ran == loop) is on_loop
+    finally:
+        store.dispose()

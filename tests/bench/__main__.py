@@ -25,7 +25,8 @@ from typing import Any
 
 from .report import SIZES, markdown
 
-SECTIONS = ("core", "cost", "drift", "service", "mqtt")  # module tests.bench.<name>_bench, each with run(size, out)
+# each section is the module tests.bench.<name>_bench, with run(size, out)
+SECTIONS = ("core", "cost", "drift", "service", "mqtt", "ingest")
 
 
 def commit() -> str | None:
