@@ -106,3 +106,23 @@ def test_a_busy_store_leaves_the_message_unacknowledged(client: TestClient, make
     reply = mqtt(client, "site-a.p1", b'{"samples": [{"x": 1, "y": 3}]}')
     assert (reply.status, reply.ack, reply.body["error"]["code"]) == (503, False, "store_busy")
     assert store_fingerprint(client) == before
+
+
+@pytest.mark.parametrize("columnar", [False, True])
+def test_a_large_batch_gets_the_same_answer_rendered_off_the_loop(client: TestClient, admin: dict[str, str],
+                                                                  make_channel: Any, columnar: bool) -> None:
+    """Past 1,000 samples the HTTP route renders its answer in a worker thread; the answer
+    is the one the same body earns over MQTT (rendered by pydantic's model_dump)."""
+    make_channel("site-a.p1")
+    make_channel("site-a.p2")
+    xs = [float(i % 100) for i in range(1500)]
+    ys = [0.5 * x + 3.0 + (0.01 if i % 2 else -0.01) for i, x in enumerate(xs)]
+    body: dict[str, Any] = {"source": "bulk", "columns": {"x": xs, "y": ys, "seq": list(range(1, 1501))}} \
+        if columnar else {"source": "bulk", "samples": [{"x": x, "y": y, "seq": i + 1}
+                                                        for i, (x, y) in enumerate(zip(xs, ys, strict=True))]}
+    http = client.post("/v1/channels/site-a.p1/samples", json=body, headers=admin)
+    assert http.status_code == 200, http.text
+    assert http.headers["content-type"] == "application/json"
+    reply = mqtt(client, "site-a.p2", json.dumps(body).encode())
+    assert reply.status == 200 and http.json() == reply.body
+    assert len(reply.body["residuals"]) == 1500
