@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import json
 import os
+import subprocess
+import sys
 import uuid
 from collections.abc import Iterator
 from datetime import UTC, date, datetime, timedelta
@@ -52,6 +54,8 @@ def test_migrations_from_empty_give_the_declared_schema(empty_url: str) -> None:
     try:
         migrate.upgrade(engine)
         assert migrate.current_revision(engine) == migrate.head_revision(engine)
+        # the constant a starting service compares with, without reading the scripts
+        assert migrate.HEAD == migrate.head_revision(engine) == migrate.stored_revision(engine)
         with engine.connect() as conn:
             diffs = compare_metadata(MigrationContext.configure(conn, opts={"compare_type": True}),
                                      Base.metadata)
@@ -311,3 +315,15 @@ def test_0010_watches_no_channel_and_takes_the_service_state_and_last_receipt(em
             assert conn.execute(select(Channel.config).where(Channel.pk == 1)).scalar_one() == old
     finally:
         engine.dispose()
+
+
+def test_a_store_at_head_opens_without_reading_the_migrations(tmp_path: Path) -> None:
+    """Start-up on a current store is one query: Alembic is not even imported."""
+    url = f"sqlite:///{tmp_path / 'current.db'}"
+    Store(url).dispose()  # made, by migrations
+    code = ("import sys; from curvekeeper.store import Store; Store(sys.argv[1]).dispose(); "
+            "print('alembic' in sys.modules)")
+    run = subprocess.run([sys.executable, "-c", code, url], capture_output=True, text=True, timeout=120,
+                         env={**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2] / "service")})
+    assert run.returncode == 0, run.stderr
+    assert run.stdout.strip() == "False"

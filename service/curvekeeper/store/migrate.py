@@ -1,15 +1,22 @@
-"""Schema migrations (Alembic): ``upgrade`` to the newest revision, and where a store stands."""
+"""Schema migrations (Alembic): ``upgrade`` to the newest revision, and where a store stands.
+
+Alembic is imported only where a migration runs or its scripts are read: a service starting
+on a store already at ``HEAD`` checks the stored revision with one query and goes on."""
 
 from __future__ import annotations
 
-from alembic import command
-from alembic.config import Config
-from alembic.runtime.migration import MigrationContext
-from alembic.script import ScriptDirectory
-from sqlalchemy import Engine, inspect
+from typing import TYPE_CHECKING
+
+from sqlalchemy import Engine, inspect, text
 
 from ..errors import ServiceError
 from .tables import Base
+
+if TYPE_CHECKING:
+    from alembic.config import Config
+
+#: the newest migration's revision (tests/store/test_migrations.py holds it to Alembic's head)
+HEAD = "0012"
 
 
 class SchemaError(ServiceError):
@@ -20,6 +27,8 @@ class SchemaError(ServiceError):
 
 
 def alembic_config(engine: Engine) -> Config:
+    from alembic.config import Config
+
     cfg = Config()
     cfg.set_main_option("script_location", "curvekeeper.store:migrations")
     cfg.set_main_option("sqlalchemy.url", engine.url.render_as_string(hide_password=False))
@@ -27,16 +36,30 @@ def alembic_config(engine: Engine) -> Config:
 
 
 def head_revision(engine: Engine) -> str | None:
+    from alembic.script import ScriptDirectory
+
     return ScriptDirectory.from_config(alembic_config(engine)).get_current_head()
 
 
 def current_revision(engine: Engine) -> str | None:
+    from alembic.runtime.migration import MigrationContext
+
     with engine.connect() as conn:
         return MigrationContext.configure(conn).get_current_revision()
 
 
+def stored_revision(engine: Engine) -> str | None:
+    """The revision the store records (one query, without Alembic); None without a history."""
+    if "alembic_version" not in inspect(engine).get_table_names():
+        return None
+    with engine.connect() as conn:
+        return conn.execute(text("SELECT version_num FROM alembic_version")).scalar()
+
+
 def upgrade(engine: Engine, revision: str = "head") -> None:
     """Bring the schema up to ``revision`` in one transaction."""
+    from alembic import command
+
     cfg = alembic_config(engine)
     with engine.begin() as conn:
         cfg.attributes["connection"] = conn
@@ -46,6 +69,8 @@ def upgrade(engine: Engine, revision: str = "head") -> None:
 def prepare(engine: Engine) -> None:
     """Create the schema of an empty store by migrations; refuse a store whose schema is
     behind (it needs ``curvekeeper db upgrade``, after a backup) or unknown."""
+    if stored_revision(engine) == HEAD:
+        return
     head = head_revision(engine)
     current = current_revision(engine)
     if current == head:
