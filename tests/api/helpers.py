@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from datetime import datetime
 from typing import Any
 
 import httpx
@@ -93,3 +94,13 @@ def stored_state(client: TestClient, channel_id: str) -> dict[str, Any]:
             select(ChannelState.model_state).join(Channel, Channel.pk == ChannelState.channel_pk)
             .where(Channel.id == channel_id)).one()
     return state
+
+
+class Clock:
+    """Aware UTC time that moves only when a test sets ``now`` (``create_app(clock=...)``)."""
+
+    def __init__(self, now: datetime) -> None:
+        self.now = now
+
+    def __call__(self) -> datetime:
+        return self.now

@@ -18,23 +18,15 @@ from curvekeeper.store.tables import Channel, ChannelState
 from fastapi.testclient import TestClient
 from sqlalchemy import select, update
 
-from tests.api.helpers import Keys, ok
+from tests.api.helpers import Clock, Keys, ok
 
 SERIES = re.compile(r'^curvekeeper_channels\{state="([^"]*)"\} (\S+)$', re.M)
 T0 = datetime(2026, 11, 2, 8, 0, tzinfo=UTC)
 
 
-class Clock:
-    def __init__(self) -> None:
-        self.now = T0
-
-    def __call__(self) -> datetime:
-        return self.now
-
-
 @pytest.fixture
 def clock() -> Clock:
-    return Clock()
+    return Clock(T0)
 
 
 @pytest.fixture

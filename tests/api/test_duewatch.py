@@ -19,7 +19,7 @@ from curvekeeper.config import Settings
 from curvekeeper.core.conformity import due_state
 from fastapi.testclient import TestClient
 
-from tests.api.helpers import Keys, ok
+from tests.api.helpers import Clock, Keys, ok
 
 CH = "site-a.due"
 T0 = datetime(2026, 6, 1, 8, 0, tzinfo=UTC)  # calibrations are dated by their "at", in the past
@@ -27,17 +27,9 @@ INTERVAL, WINDOW = 30, 7  # days: due on T0 + 30 d, due soon from 7 d before
 POINTS = [{"x": x, "y": 3.0 + 0.5 * x} for x in (0.0, 25.0, 50.0, 75.0, 100.0)]
 
 
-class Clock:
-    def __init__(self) -> None:
-        self.now = T0
-
-    def __call__(self) -> datetime:
-        return self.now
-
-
 @pytest.fixture
 def clock() -> Clock:
-    return Clock()
+    return Clock(T0)
 
 
 @pytest.fixture

@@ -104,13 +104,7 @@ def sweep(repo: Repository, now: datetime, limit: int = SWEEP_BATCH) -> int:
 
 def sweep_all(work: Work) -> int:
     """Sweep until nothing is left, one transaction per ``SWEEP_BATCH`` channels."""
-    total = 0
-    while True:
-        with work.unit(write=True) as unit:
-            n = sweep(unit.repo, unit.now())
-        total += n
-        if n < SWEEP_BATCH:
-            return total
+    return work.in_batches(sweep, SWEEP_BATCH)
 
 
 async def sweep_forever(work: Work, interval_s: float,

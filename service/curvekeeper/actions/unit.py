@@ -178,3 +178,15 @@ class Work:
             yield unit
         for step in unit._after:
             step()
+
+    def in_batches(self, step: Callable[[Repository, datetime], int], batch: int) -> int:
+        """Run ``step(repo, now)`` (it handles up to ``batch`` items and says how many) in one
+        write unit after another until one handles fewer than ``batch``; how many in all.
+        The periodic sweeps run so: a short transaction each, whatever is waiting."""
+        total = 0
+        while True:
+            with self.unit(write=True) as unit:
+                n = step(unit.repo, unit.now())
+            total += n
+            if n < batch:
+                return total
