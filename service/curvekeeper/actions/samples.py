@@ -150,11 +150,7 @@ class ChannelOutcome:
     def residual_summary(self) -> dict[str, Any]:
         """count, mean, s.d. (n - 1; None below 2) and largest |r| of the finite residuals of
         the stored samples, output units (None when there is none)."""
-        r = self.kept_residuals[np.isfinite(self.kept_residuals)]
-        if r.size == 0:
-            return {"count": 0, "mean": None, "sd": None, "max_abs": None}
-        return {"count": int(r.size), "mean": float(np.mean(r)),
-                "sd": float(np.std(r, ddof=1)) if r.size > 1 else None, "max_abs": float(np.max(np.abs(r)))}
+        return summarise_residuals(self.kept_residuals)
 
     def rejected_counts(self) -> dict[str, int]:
         """Samples stored but not learned, by reason."""
@@ -162,6 +158,16 @@ class ChannelOutcome:
         for r in self.rejected:
             out[r["reason"]] = out.get(r["reason"], 0) + 1
         return out
+
+
+def summarise_residuals(residuals: NDArray[np.float64]) -> dict[str, Any]:
+    """count, mean, s.d. (n - 1; None below 2) and largest |r| of the finite values of
+    ``residuals`` (output units; None when there is none)."""
+    r = residuals[np.isfinite(residuals)]
+    if r.size == 0:
+        return {"count": 0, "mean": None, "sd": None, "max_abs": None}
+    return {"count": int(r.size), "mean": float(np.mean(r)),
+            "sd": float(np.std(r, ddof=1)) if r.size > 1 else None, "max_abs": float(np.max(np.abs(r)))}
 
 
 def _wrong_inputs(i: int, d: int) -> InvalidRequest:
@@ -364,51 +370,68 @@ def ingest(unit: Unit, channel_id: str, samples: Sequence[SampleLike] | SampleBa
 NOTHING_STORED = "nothing in this batch was stored"
 
 
-def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]], source: str | None,
+@dataclass(frozen=True)
+class GatewayBatch:
+    """A columnar gateway batch split by channel: ``n`` samples in the request; ``parts``,
+    per channel (in order of first appearance), the (m,) request indexes of its samples in
+    request order and those samples as a ``SampleBatch``."""
+
+    n: int
+    parts: dict[str, tuple[NDArray[np.intp], SampleBatch]]
+
+
+def ingest_gateway(unit: Unit, items: Sequence[tuple[str, SampleLike]] | GatewayBatch, source: str | None,
                    key_id: str | None, reference: str | None = None) -> dict[str, Any]:
-    """A gateway batch across channels: each channel's samples in request order, channels
-    locked in id order, all in one transaction. All or nothing: an unknown channel or a bad
-    sample refuses the whole batch (the error names the first such sample's index)."""
+    """A gateway batch across channels (rows: (channel, sample) pairs; or columns split by
+    channel): each channel's samples in request order, channels locked in id order, all in
+    one transaction. All or nothing: an unknown channel or a bad sample refuses the whole
+    batch (the error names the first such sample's index in the request, and its channel)."""
     repo = unit.repo
-    groups: dict[str, list[int]] = {}
-    for i, (cid, _) in enumerate(items):
-        groups.setdefault(cid, []).append(i)
-    found = {cid: repo.learning_state(cid) for cid in sorted(groups)}  # locked in id order
+    parts: dict[str, tuple[NDArray[np.intp], Sequence[SampleLike] | SampleBatch]]
+    if isinstance(items, GatewayBatch):
+        n, parts = items.n, dict(items.parts)
+    else:
+        n = len(items)
+        groups: dict[str, list[int]] = {}
+        for i, (cid, _) in enumerate(items):
+            groups.setdefault(cid, []).append(i)
+        parts = {cid: (np.array(idx, dtype=np.intp), [items[i][1] for i in idx]) for cid, idx in groups.items()}
+    first = {cid: int(idx[0]) for cid, (idx, _) in parts.items()}
+    found = {cid: repo.learning_state(cid) for cid in sorted(parts)}  # locked in id order
     unknown = [cid for cid, st in found.items() if st is None]
     if unknown:
-        cid = min(unknown, key=lambda c: groups[c][0])
-        raise ChannelNotFound(f"unknown channel {cid!r} (sample {groups[cid][0]}): {NOTHING_STORED}",
-                              details={"index": groups[cid][0], "channel": cid})
+        cid = min(unknown, key=first.__getitem__)
+        raise ChannelNotFound(f"unknown channel {cid!r} (sample {first[cid]}): {NOTHING_STORED}",
+                              details={"index": first[cid], "channel": cid})
     states = {cid: st for cid, st in found.items() if st is not None}
     archived = [cid for cid, st in states.items() if st.archived_at is not None]
     if archived:
-        cid = min(archived, key=lambda c: groups[c][0])
-        _refuse_archived(cid, states[cid], f" (sample {groups[cid][0]}): {NOTHING_STORED}",
-                         {"index": groups[cid][0], "channel": cid})
-    residuals: list[float | None] = [None] * len(items)
+        cid = min(archived, key=first.__getitem__)
+        _refuse_archived(cid, states[cid], f" (sample {first[cid]}): {NOTHING_STORED}",
+                         {"index": first[cid], "channel": cid})
+    per = np.full(n, np.nan)  # prior residuals in request order (NaN: a duplicate, or not finite)
     rejected: list[dict[str, Any]] = []
     channels: dict[str, Any] = {}
     accepted = duplicates = alarms = 0
     for cid, st in states.items():
-        idx = groups[cid]
+        idx, part = parts[cid]
         try:
-            out = ingest_channel(unit, st, [items[i][1] for i in idx], source, key_id, reference)
+            out = ingest_channel(unit, st, part, source, key_id, reference)
         except InvalidRequest as exc:
             local = exc.details.get("index") if isinstance(exc.details, dict) else None
-            where = idx[local] if local is not None else None
+            where = int(idx[local]) if local is not None else None
             # the same class: its code (e.g. reference_required) says what was wrong
             raise type(exc)(f"channel {cid}: {exc.message}; {NOTHING_STORED}",
                             details={"index": where, "channel": cid}) from exc
         accepted += out.accepted
         duplicates += out.duplicates
         alarms += out.alarms
-        for k, r in enumerate(out.residuals):
-            residuals[idx[k]] = r
-        rejected.extend({"index": idx[r["index"]], "channel": cid, "reason": r["reason"]} for r in out.rejected)
+        per[idx[out.kept]] = out.kept_residuals
+        rejected.extend({"index": int(idx[r["index"]]), "channel": cid, "reason": r["reason"]} for r in out.rejected)
         channels[cid] = {"version": out.version, "n_samples": out.n_samples, "drift": out.drift}
     rejected.sort(key=lambda r: r["index"])
-    return {"accepted": accepted, "duplicates": duplicates, "rejected": rejected, "residuals": residuals,
-            "channels": channels, "alarms": alarms}
+    return {"accepted": accepted, "duplicates": duplicates, "rejected": rejected,
+            "residuals": [None if r != r else r for r in per.tolist()], "channels": channels, "alarms": alarms}
 
 
 def export(repo: Repository, channel_id: str, *, cursor: str | None, limit: int) -> Page:

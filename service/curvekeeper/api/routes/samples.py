@@ -10,29 +10,38 @@ from fastapi import APIRouter, Body, Query, Response
 from starlette.concurrency import run_in_threadpool
 
 from ...actions import samples
-from ...actions.samples import SampleBatch
+from ...actions.samples import GatewayBatch, SampleBatch
 from ...csvcells import TextSafeWriter
 from ..bodies import INLINE_MAX_BODY_ITEMS, CountedRoute, check_items, checked_body, counted, unvalidated
 from ..deps import Ctx, Who, check_times
 from ..schemas.common import COMMON_ERRORS, error_responses
 from ..schemas.samples import (
     ColumnarAnswer,
+    ColumnarGatewayIn,
     ColumnarSamplesIn,
     ColumnarSummary,
     GatewayAnswer,
     GatewayIn,
+    GatewaySummary,
     IngestAnswer,
     SampleItem,
     SamplePage,
     SamplesIn,
 )
-from ..schemas.samples_columns import answer_of, column_count, is_columnar, read_columns
+from ..schemas.samples_columns import (
+    answer_of,
+    column_count,
+    gateway_answer_of,
+    is_columnar,
+    read_columns,
+    read_gateway_columns,
+)
 from ..work import run_store
 from .channels import ChannelPath, Limit
 
 # request bodies validated by the routes themselves, after counting their items
 RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn | ColumnarSamplesIn)]
-RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn)]
+RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn | ColumnarGatewayIn)]
 
 router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMMON_ERRORS, **error_responses(404)})
 
@@ -75,21 +84,35 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
 @counted("samples", lambda s: s.max_batch, "max_batch", "samples")
-async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer:
-    """All or nothing: an unknown channel (404) or a bad sample (422) refuses the whole
-    batch, names the first such sample's index and channel, and stores nothing."""
+async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer | GatewaySummary:
+    """Rows (``samples``, ``channel`` on each) or columns (``columns``, with a ``channel``
+    column; read into numpy, split by channel; ``"answer": "summary"`` for a summary). All or
+    nothing: an unknown channel (404) or a bad sample (422) refuses the whole batch, names the
+    first such sample's index in the request and its channel, and stores nothing."""
     started = time.monotonic()
-    body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
-                              setting="max_batch")
-    check_times(body.samples, ctx.settings)
-    for cid in {s.channel for s in body.samples}:
+    items: list[tuple[str, SampleItem]] | GatewayBatch
+    form = "full"
+    if is_columnar(raw):
+        n = column_count(raw)
+        check_items(n, ctx.settings.max_batch, "samples", "max_batch")
+        skew = ctx.settings.max_clock_skew_s
+        col = read_gateway_columns(raw, skew) if n <= INLINE_MAX_BODY_ITEMS else await run_in_threadpool(
+            read_gateway_columns, raw, skew)
+        items, source, reference, form = col.batch, col.source, col.reference, col.answer
+        cids, n = list(col.batch.parts), col.batch.n
+    else:
+        body = await checked_body(raw, GatewayIn, key="samples", cap=ctx.settings.max_batch, noun="samples",
+                                  setting="max_batch")
+        check_times(body.samples, ctx.settings)
+        items, source, reference = [(s.channel, s) for s in body.samples], body.source, body.reference
+        cids = list(dict.fromkeys(s.channel for s in body.samples))
+        n = len(items)
+    for cid in cids:
         who.require_channel(cid, "device")
-    items = [(s.channel, s) for s in body.samples]
-    out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, body.source, who.key_id,
-                                                                         body.reference),
-                          write=True, items=len(items), started=started)
+    out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, source, who.key_id, reference),
+                          write=True, items=n, started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
-    return GatewayAnswer.model_validate(out)
+    return gateway_answer_of(out, form)
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",

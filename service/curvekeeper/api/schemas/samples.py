@@ -152,6 +152,34 @@ class ColumnarSummary(Answer):
     quality: Quality
 
 
+class GatewayColumns(SampleColumns):
+    """A gateway batch column by column: value i of each column is sample i, ``channel``
+    naming its channel."""
+
+    channel: list[ChannelId] = Field(description="the channel of each sample, one id a sample")
+    x: list[Reading] | list[list[Reading]] = Field(
+        description="raw inputs: one number a sample (every channel one input), or one list a sample in its "
+                    "channel's input order (channels may differ in their number of inputs)")
+
+
+class ColumnarGatewayIn(BaseModel):
+    """The columnar gateway body: the rules of the row body (``samples``), checked column by
+    column; every column holds as many values as ``y``. All or nothing, as rows."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"source": "gw-3", "columns": {"channel": ["coldroom2.probe07", "coldroom2.humid01", "coldroom2.probe07"],
+                                       "x": [[10234.5], [812.0, 21.5], [10230.0]], "y": [24.87, 55.1, 24.9],
+                                       "seq": [18, 19, 20]},
+         "answer": "summary"}]})
+
+    source: Source | None = None
+    reference: ReferenceId | None = Field(None, description="the reference instrument of every sample")
+    columns: GatewayColumns
+    answer: AnswerForm = Field("full", description="full: the row body's answer (residuals one array in request "
+                               "order); summary: counts by reason, the residuals' count, mean, s.d. and max |r| over "
+                               "all channels, and each channel's version, n_samples and drift")
+
+
 class GatewayRejection(SampleRejection):
     channel: str
 
@@ -193,3 +221,13 @@ class SampleRecord(Answer):
 
 class SamplePage(Page[SampleRecord]):
     """Stored samples, oldest first."""
+
+
+class GatewaySummary(Answer):
+    """What a columnar gateway batch did (answer summary), over all its channels."""
+
+    accepted: int = Field(description="samples learned")
+    duplicates: int = Field(description="retried samples (same source and seq) skipped")
+    rejected: dict[Reason, int] = Field(description="samples stored but not learned, by reason")
+    residuals: ResidualSummary = Field(description="of the stored samples of every channel in the batch")
+    channels: dict[str, ChannelIngest] = Field(description="by channel id")
