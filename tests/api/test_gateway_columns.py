@@ -328,3 +328,11 @@ def test_more_samples_than_the_batch_allows_are_413(client: TestClient, keys: Ke
     assert out.json()["accepted"] + sum(out.json()["rejected"].values()) == 10_000
     assert {k: v["n_samples"] for k, v in out.json()["channels"].items()} == {"site-a.kone": half,
                                                                               "site-a.ktwo": half}
+    # a large full answer (rendered off the loop): one residual a sample, as the summary counts them
+    full = send_text(client, GATEWAY, ok.replace('"summary"', '"full"'), keys["device"])
+    assert full.status_code == 200, full.text
+    assert full.headers["content-type"] == "application/json"
+    r = np.array([v for v in full.json()["residuals"] if v is not None])
+    assert len(full.json()["residuals"]) == 10_000 and r.size > 9_000
+    assert full.json()["channels"]["site-a.ktwo"] == {**full.json()["channels"]["site-a.ktwo"], "n_samples": 2 * half,
+                                                      "version": 2 * half}

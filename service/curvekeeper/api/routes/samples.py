@@ -112,7 +112,11 @@ async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer |
     out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, source, who.key_id, reference),
                           write=True, items=n, started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
-    return gateway_answer_of(out, form)
+    if n <= INLINE_MAX_BODY_ITEMS:
+        return gateway_answer_of(out, form)
+    # a large answer is built and rendered in a worker thread, as post_samples' is
+    rendered = await run_in_threadpool(lambda: gateway_answer_of(out, form).model_dump_json())
+    return Response(rendered, media_type="application/json")  # type: ignore[return-value]
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
