@@ -12,21 +12,18 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from sqlalchemy import Table, and_, bindparam, case, delete, func, insert, literal, select, update
-from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session, aliased, defer
+from sqlalchemy import Table, and_, bindparam, case, func, insert, literal, select, update
+from sqlalchemy.orm import Session, defer
 from sqlalchemy.orm.attributes import set_committed_value
 
 from ..webhooks import KINDS
+from .keys import KeyQueries
 from .outbox import OutboxQueries
+from .records import RecordQueries
 from .tables import (
-    ApiKey,
-    CalibrationRecord,
     Channel,
     ChannelState,
-    CurveTrace,
     Event,
-    ReferenceInstrument,
     Sample,
     Snapshot,
     Webhook,
@@ -34,7 +31,6 @@ from .tables import (
     utcnow,
 )
 
-_SUCCESSOR = aliased(CalibrationRecord)
 DELIVERABLE = frozenset(KINDS)
 
 SAMPLE_COLUMNS = ("channel_pk", "seq", "version", "source", "source_seq", "t", "received_at", "x", "y",
@@ -144,17 +140,17 @@ _SEEN_SQLITE = "SELECT source_seq FROM sample WHERE channel_pk = ? AND source = 
 _SEEN_PG = _SEEN_SQLITE.replace("?", "%s")
 SAMPLE_T = cast(Table, Sample.__table__)
 SNAPSHOT_T = cast(Table, Snapshot.__table__)
-TRACE_T = cast(Table, CurveTrace.__table__)
 # asked after every batch of a calibrated channel: a Core statement (the ORM's costs ~5x more)
-_TRACE_SPAN = select(func.min(TRACE_T.c.t), func.max(TRACE_T.c.t)).where(TRACE_T.c.channel_pk == bindparam("pk"))
 EVENT_T = cast(Table, Event.__table__)
 DELIVERY_T = cast(Table, WebhookDelivery.__table__)
 WEBHOOK_T = cast(Table, Webhook.__table__)
 
 
-class Repository(OutboxQueries):
-    """SQL for one transaction (the caller's unit of work commits or rolls it back); the
-    webhooks' outbox and the event feed in ``OutboxQueries``."""
+class Repository(RecordQueries, KeyQueries, OutboxQueries):
+    """SQL for one transaction (the caller's unit of work commits or rolls it back). Its parts
+    by concern: calibration records, reference instruments and the curve trace
+    (``RecordQueries``), API keys (``KeyQueries``), the webhooks' outbox and the event feed
+    (``OutboxQueries``); channels, samples, snapshots and events here."""
 
     def __init__(self, session: Session) -> None:
         self.session = session
@@ -320,7 +316,8 @@ class Repository(OutboxQueries):
             stmt = (update(ChannelState).where(ChannelState.channel_pk.in_(pks), *when).values(due_noticed=mark)
                     .returning(ChannelState.channel_pk, ChannelState.due_on, ChannelState.version)
                     .execution_options(synchronize_session=False))
-            out += [(r[0], mark, r[1], r[2]) for r in self.session.execute(stmt)]
+            out += [(r[0], mark, cast(date, r[1]), r[2])  # due_on is set: the WHERE compares it
+                    for r in self.session.execute(stmt)]
         return out
 
     def count_states(self, now: datetime, today: date, damaged: Collection[int] = ()) -> dict[str, int]:
@@ -352,31 +349,6 @@ class Repository(OutboxQueries):
         rows = self.session.execute(select(ChannelState.channel_pk, ChannelState.version)
                                     .where(ChannelState.channel_pk.in_(sorted(channel_pks))))
         return {pk: v for pk, v in rows}
-
-    # calibration records --------------------------------------------------------------
-    def insert_record(self, record: CalibrationRecord) -> CalibrationRecord:
-        """Store a new record; records are never updated nor deleted (no method does)."""
-        self.session.add(record)
-        self.session.flush()
-        return record
-
-    def get_record(self, channel_pk: int, record_pk: int) -> tuple[CalibrationRecord, int | None] | None:
-        """A channel's record with the pk of the record that supersedes it (None: none does)."""
-        row = self.session.execute(
-            select(CalibrationRecord, _SUCCESSOR.pk)
-            .outerjoin(_SUCCESSOR, _SUCCESSOR.supersedes == CalibrationRecord.pk)
-            .where(CalibrationRecord.channel_pk == channel_pk, CalibrationRecord.pk == record_pk)).one_or_none()
-        return None if row is None else (row[0], row[1])
-
-    def list_records(self, channel_pk: int, *, after_pk: int | None, limit: int
-                     ) -> list[tuple[CalibrationRecord, int | None]]:
-        """A channel's records, oldest stored first, each with the pk of its successor."""
-        stmt = (select(CalibrationRecord, _SUCCESSOR.pk)
-                .outerjoin(_SUCCESSOR, _SUCCESSOR.supersedes == CalibrationRecord.pk)
-                .where(CalibrationRecord.channel_pk == channel_pk).order_by(CalibrationRecord.pk).limit(limit))
-        if after_pk is not None:
-            stmt = stmt.where(CalibrationRecord.pk > after_pk)
-        return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
     # samples ----------------------------------------------------------------------
     def seen_source_seqs(self, channel_pk: int, source: str, seqs: Sequence[int] | NDArray[np.int64]) -> set[int]:
@@ -550,116 +522,7 @@ class Repository(OutboxQueries):
             stmt = stmt.where(Event.pk > after_pk)
         return [(r[0], r[1]) for r in self.session.execute(stmt)]
 
-    # reference instruments ------------------------------------------------------------
-    def get_reference(self, reference_id: str) -> ReferenceInstrument | None:
-        return self.session.scalars(select(ReferenceInstrument)
-                                    .where(ReferenceInstrument.id == reference_id)).one_or_none()
-
-    def references_named(self, ids: Collection[str]) -> dict[str, ReferenceInstrument]:
-        """The stored references among ``ids``, by id (the unknown ones are missing)."""
-        if not ids:
-            return {}
-        rows = self.session.scalars(select(ReferenceInstrument).where(ReferenceInstrument.id.in_(sorted(ids))))
-        return {r.id: r for r in rows}
-
-    def insert_reference_unless_taken(self, ref: ReferenceInstrument) -> bool:
-        """Insert a reference in a savepoint; False (and nothing changed) when its id is taken,
-        e.g. by another request at the same moment."""
-        try:
-            with self.session.begin_nested():
-                self.session.add(ref)
-        except IntegrityError:
-            return False
-        return True
-
-    def list_references(self, *, retired: bool | None, due_from: date | None, due_until: date | None,
-                        after_pk: int | None, limit: int) -> Sequence[ReferenceInstrument]:
-        """References by creation order; ``due_from`` / ``due_until`` bound ``due_on`` (inclusive)."""
-        stmt = select(ReferenceInstrument).order_by(ReferenceInstrument.pk).limit(limit)
-        if retired is not None:
-            stmt = stmt.where(ReferenceInstrument.retired.is_(retired))
-        if due_from is not None:
-            stmt = stmt.where(ReferenceInstrument.due_on >= due_from)
-        if due_until is not None:
-            stmt = stmt.where(ReferenceInstrument.due_on <= due_until)
-        if after_pk is not None:
-            stmt = stmt.where(ReferenceInstrument.pk > after_pk)
-        return self.session.scalars(stmt).all()
-
-    def save_reference(self, ref: ReferenceInstrument, values: dict[str, Any]) -> None:
-        for name, value in values.items():
-            setattr(ref, name, value)
-        ref.updated_at = utcnow()
-        self.session.flush()
-
-    # curve trace (the forecast's history) --------------------------------------------
-    def trace_span(self, channel_pk: int) -> tuple[datetime, datetime] | None:
-        """Measurement times of the channel's first and latest trace points, or None."""
-        first, last = self.session.connection().execute(_TRACE_SPAN, {"pk": channel_pk}).one()
-        return None if first is None or last is None else (first, last)
-
-    def insert_trace_point(self, channel_pk: int, *, t: datetime, difference: float, u: float | None,
-                           version: int) -> None:
-        self.session.add(CurveTrace(channel_pk=channel_pk, t=t, difference=difference, u=u, version=version))
-        self.session.flush()
-
-    def clear_trace(self, channel_pk: int, after_version: int | None = None) -> None:
-        """Delete the channel's trace points; with ``after_version``, only those recorded by
-        later versions of its curve."""
-        stmt = delete(CurveTrace).where(CurveTrace.channel_pk == channel_pk)
-        if after_version is not None:
-            stmt = stmt.where(CurveTrace.version > after_version)
-        self.session.execute(stmt)
-
-    def traces(self, channel_pks: Sequence[int]) -> dict[int, list[tuple[datetime, float, float | None]]]:
-        """Each channel's trace points (t, difference, u), oldest first, in one query."""
-        out: dict[int, list[tuple[datetime, float, float | None]]] = {pk: [] for pk in channel_pks}
-        if not out:
-            return out
-        stmt = (select(CurveTrace.channel_pk, CurveTrace.t, CurveTrace.difference, CurveTrace.u)
-                .where(CurveTrace.channel_pk.in_(list(out))).order_by(CurveTrace.channel_pk, CurveTrace.t))
-        for pk, t, d, u in self.session.execute(stmt):
-            out[pk].append((t, d, u))
-        return out
-
-    # keys -------------------------------------------------------------------------------
-    def insert_key(self, key: ApiKey) -> None:
-        self.session.add(key)
-        self.session.flush()
-
-    def insert_key_unless_taken(self, key: ApiKey) -> bool:
-        """Insert a key in a savepoint; False (and nothing changed) when its secret is
-        taken already, e.g. by another process at the same moment."""
-        try:
-            with self.session.begin_nested():
-                self.session.add(key)
-        except IntegrityError:
-            return False
-        return True
-
-    def key_by_hash(self, secret_hash: str) -> ApiKey | None:
-        return self.session.scalars(select(ApiKey).where(ApiKey.secret_hash == secret_hash)).one_or_none()
-
-    def get_key(self, key_id: str) -> ApiKey | None:
-        return self.session.get(ApiKey, key_id)
-
-    def list_keys(self, *, after_id: str | None, limit: int) -> Sequence[ApiKey]:
-        stmt = select(ApiKey).order_by(ApiKey.id).limit(limit)
-        if after_id is not None:
-            stmt = stmt.where(ApiKey.id > after_id)
-        return self.session.scalars(stmt).all()
-
-    def key_used(self, key_id: str, at: datetime) -> None:
-        """Record a key's use at ``at`` (one UPDATE; never moves the time back)."""
-        self.session.execute(update(ApiKey).where(ApiKey.id == key_id)
-                             .where((ApiKey.last_used_at.is_(None)) | (ApiKey.last_used_at < at))
-                             .values(last_used_at=at))
-
-    def revoke_key(self, key: ApiKey) -> None:
-        key.revoked_at = utcnow()
-        self.session.flush()
-
-    # webhooks and their outbox ----------------------------------------------------------
+    # health and tests -------------------------------------------------------------------
     def count_rows(self, table: Any, channel_pk: int | None = None) -> int:
         """Row count of a table (optionally one channel's): used by health checks and tests."""
         stmt = select(func.count()).select_from(table)
