@@ -4,14 +4,16 @@ steps alone; a state the core cannot restore is the store's fault."""
 
 from __future__ import annotations
 
+import asyncio
 import shutil
+import threading
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
 from curvekeeper.actions import channels, samples
-from curvekeeper.actions.unit import ModelCache, Work
+from curvekeeper.actions.unit import ModelCache, Work, in_thread_to_end
 from curvekeeper.channel_config import channel_config
 from curvekeeper.core import ChannelModel
 from curvekeeper.errors import StateDamaged
@@ -99,3 +101,30 @@ def test_the_cache_keeps_the_newest_version_and_evicts_the_least_recent() -> Non
     cache.put(3, 1, c)
     assert cache.get(2, 1) is None and cache.get(1, 5) is a and cache.get(3, 1) is c
     assert np.array_equal(cache.get(1, 5).weights, a.weights)  # type: ignore[union-attr]
+
+
+def test_a_cancelled_background_pass_ends_its_thread_before_the_cancellation_goes_on() -> None:
+    """The service's periodic passes (sweeps, the event feed) run in worker threads; when the
+    service stops, the cancelled task waits for its pass to finish, so the store is not
+    closed under a connection the pass still holds."""
+    started, release, finished = threading.Event(), threading.Event(), threading.Event()
+
+    def a_pass() -> int:
+        started.set()
+        release.wait(30)
+        finished.set()
+        return 1
+
+    async def main() -> None:
+        task = asyncio.create_task(in_thread_to_end(a_pass))
+        assert await asyncio.to_thread(started.wait, 30)
+        task.cancel()
+        for _ in range(5):
+            await asyncio.sleep(0.01)
+        assert not task.done()  # still waiting for the thread
+        release.set()
+        with pytest.raises(asyncio.CancelledError):
+            await task
+        assert finished.is_set()
+
+    asyncio.run(main())

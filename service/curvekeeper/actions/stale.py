@@ -20,6 +20,7 @@ import asyncio
 import logging
 from collections.abc import Awaitable, Callable
 from datetime import datetime, timedelta
+from functools import partial
 from typing import Any
 
 from ..errors import ServiceError
@@ -27,7 +28,7 @@ from ..store import Repository
 from ..store.repository import LearningState
 from ..store.tables import ChannelState
 from . import duewatch
-from .unit import Work
+from .unit import Work, in_thread_to_end
 
 log = logging.getLogger("curvekeeper.stale")
 
@@ -116,7 +117,7 @@ async def sweep_forever(work: Work, interval_s: float,
         await sleep(interval_s)
         for name, run in (("became stale", sweep_all), ("came due or overdue", duewatch.sweep_all)):
             try:
-                n = await asyncio.to_thread(run, work)
+                n = await in_thread_to_end(partial(run, work))
                 if n:
                     log.info("%d channel(s) %s", n, name)
             except ServiceError as exc:

@@ -10,19 +10,22 @@ model saved in a transaction enters the cache only once that transaction has com
 
 from __future__ import annotations
 
+import asyncio
 import math
 from collections import OrderedDict
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from datetime import datetime
 from threading import Lock
-from typing import Any
+from typing import Any, TypeVar
 
 from ..core import ChannelModel, StateError
 from ..errors import StateDamaged
 from ..store import Repository, Store
 from ..store.repository import LearningState
 from ..store.tables import ChannelState, utcnow
+
+T = TypeVar("T")
 
 #: decoded models a process keeps (about 5 KB each)
 CACHE_SIZE = 4096
@@ -190,3 +193,16 @@ class Work:
             total += n
             if n < batch:
                 return total
+
+
+async def in_thread_to_end(fn: Callable[[], T]) -> T:
+    """``fn()`` in a worker thread, for the service's periodic tasks. Cancelled meanwhile (the
+    service stopping), it waits for the thread to finish before the cancellation goes on, so
+    the store is never closed under a pass still holding one of its connections."""
+    running = asyncio.ensure_future(asyncio.to_thread(fn))
+    try:
+        return await asyncio.shield(running)
+    except asyncio.CancelledError:
+        with suppress(Exception):
+            await running
+        raise

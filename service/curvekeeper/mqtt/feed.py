@@ -25,7 +25,7 @@ from datetime import datetime, timedelta
 
 import paho.mqtt.client as paho
 
-from ..actions.unit import Work
+from ..actions.unit import Work, in_thread_to_end
 from ..config import mqtt_broker
 from ..errors import ServiceError
 from ..metrics import Metrics
@@ -93,7 +93,7 @@ class EventFeed:
         while True:
             await sleep(interval_s)
             try:
-                n = await asyncio.to_thread(self.run_once)
+                n = await in_thread_to_end(self.run_once)
                 if n:
                     log.debug("MQTT: %d event(s) published", n)
             except ServiceError as exc:
