@@ -121,23 +121,3 @@ def wait_subscribed(pub: Publisher, results: Results, timeout: float = 60.0) -> 
             time.sleep(0.02)
         if time.monotonic() > deadline:
             pytest.fail("the service never answered on the results topic")
-
-
-def app_passes_share_group() -> bool:
-    """Whether the app factory subscribes as CURVEKEEPER_MQTT_SHARE_GROUP (api/app.py's
-    ``mqtt_subscriber`` passing ``s.mqtt_share_group`` to ``Topics``)."""
-    from types import SimpleNamespace
-
-    from curvekeeper.api.app import mqtt_subscriber
-    from curvekeeper.config import Settings
-
-    settings = Settings(mqtt_url="mqtt://127.0.0.1:1883", mqtt_share_group="ck-probe")
-    sub = mqtt_subscriber(SimpleNamespace(settings=settings, work=None, metrics=None))  # type: ignore[arg-type]
-    return sub.topics.share_group == "ck-probe"
-
-
-#: until api/app.py passes the group, the served processes subscribe plainly
-NEEDS_APP_GROUP = pytest.mark.xfail(
-    not app_passes_share_group(), strict=True,
-    reason="api/app.py builds Topics(s.mqtt_topic_root) without s.mqtt_share_group (not this branch's file; "
-           "the one-line change is in the scale branch's report): the served processes do not share")

@@ -19,7 +19,7 @@ import pytest
 from curvekeeper.client import Client
 
 from tests.conftest import LINEAR, fresh_store
-from tests.mqtt.broker import NEEDS_APP_GROUP, Publisher, Results, broker_url, service_env, unique_root
+from tests.mqtt.broker import Publisher, Results, broker_url, service_env, unique_root
 from tests.store.servers import ADMIN, Server, Triple, assert_exactly_once, assert_replays
 
 pytestmark = pytest.mark.slow
@@ -81,7 +81,6 @@ def wait_results(results: Results, channels: set[str], n: int, servers: list[Ser
         time.sleep(0.05)
 
 
-@NEEDS_APP_GROUP
 def test_two_processes_share_the_load_learn_each_sample_once_and_replay_clean(
         servers: list[Server], store_url: str, root: str) -> None:
     with Client(servers[0].url, ADMIN) as admin:

@@ -16,8 +16,6 @@ from curvekeeper.cli import main
 from curvekeeper.config import Settings, mqtt_broker
 from curvekeeper.mqtt import Topics
 
-from tests.mqtt.broker import NEEDS_APP_GROUP, app_passes_share_group
-
 BAD_URLS = [
     ("http://127.0.0.1:1883", "must start with mqtt:// or mqtts://"),
     ("tcp://broker:1883", "must start with mqtt:// or mqtts://"),
@@ -110,6 +108,14 @@ def test_a_group_or_root_that_breaks_the_filter_is_refused(name: str, value: str
         Settings.from_env({name: value})
 
 
-@NEEDS_APP_GROUP
 def test_the_app_subscribes_as_the_configured_group() -> None:
-    assert app_passes_share_group()
+    """The app factory's subscriber takes CURVEKEEPER_MQTT_SHARE_GROUP (without it, served
+    processes subscribe plainly and each gets every message)."""
+    from types import SimpleNamespace
+
+    from curvekeeper.api.app import mqtt_subscriber
+
+    settings = Settings(mqtt_url="mqtt://127.0.0.1:1883", mqtt_share_group="ck-probe")
+    sub = mqtt_subscriber(SimpleNamespace(settings=settings, work=None, metrics=None))  # type: ignore[arg-type]
+    assert sub.topics.share_group == "ck-probe"
+    assert sub.topics.samples_filter == "$share/ck-probe/curvekeeper/v1/samples/+"
