@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import io
 import time
-from typing import Annotated, Any
+from collections.abc import Callable
+from typing import Annotated, Any, TypeVar
 
 from fastapi import APIRouter, Body, Query, Response
+from pydantic import BaseModel
 from starlette.concurrency import run_in_threadpool
 
 from ...actions import samples
@@ -43,7 +45,24 @@ from .channels import ChannelPath, Limit
 RawSamplesIn = Annotated[Any, Body(), unvalidated(SamplesIn | ColumnarSamplesIn)]
 RawGatewayIn = Annotated[Any, Body(), unvalidated(GatewayIn | ColumnarGatewayIn)]
 
+T = TypeVar("T")
+
 router = APIRouter(tags=["samples"], route_class=CountedRoute, responses={**COMMON_ERRORS, **error_responses(404)})
+
+
+async def _off_loop_if_large(n: int, fn: Callable[..., T], *args: Any) -> T:
+    """``fn(*args)`` for a body of ``n`` samples: on the loop when small, else in a worker thread."""
+    return fn(*args) if n <= INLINE_MAX_BODY_ITEMS else await run_in_threadpool(fn, *args)
+
+
+async def _answer(n: int, build: Callable[[], BaseModel]) -> BaseModel | Response:
+    """The answer to a batch of ``n`` samples. A large one (a residual a sample) is built and
+    rendered in a worker thread: on the loop it held predicts up for milliseconds
+    (tests/bench/ingest_bench.py, predict under ingest)."""
+    if n <= INLINE_MAX_BODY_ITEMS:
+        return build()
+    rendered = await run_in_threadpool(lambda: build().model_dump_json())
+    return Response(rendered, media_type="application/json")
 
 
 @router.post("/v1/channels/{channel_id}/samples", summary="Learn from samples, in order")
@@ -61,8 +80,7 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
         check_items(n, ctx.settings.max_batch, "samples", "max_batch")
         skew = ctx.settings.max_clock_skew_s
         # vectorised, yet t (when given) is parsed per value: a large body is read in a worker thread
-        col = read_columns(raw, skew) if n <= INLINE_MAX_BODY_ITEMS else await run_in_threadpool(
-            read_columns, raw, skew)
+        col = await _off_loop_if_large(n, read_columns, raw, skew)
         items, source, reference, form = col.batch, col.source, col.reference, col.answer
         who.require_channel(channel_id, "device")
     else:
@@ -74,12 +92,7 @@ async def post_samples(channel_id: ChannelPath, raw: RawSamplesIn, ctx: Ctx, who
     out = await run_store(ctx.work, lambda unit: samples.ingest(unit, channel_id, items, source, who.key_id, reference),
                           write=True, items=len(items), started=started)
     ctx.metrics.observe_samples(out.accepted, len(out.rejected), out.duplicates, out.alarms)
-    if len(items) <= INLINE_MAX_BODY_ITEMS:
-        return answer_of(out, form)
-    # a large answer (a residual a sample) is built and rendered in a worker thread: on the loop
-    # it held predicts up for milliseconds (tests/bench/ingest_bench.py, predict under ingest)
-    rendered = await run_in_threadpool(lambda: answer_of(out, form).model_dump_json())
-    return Response(rendered, media_type="application/json")  # type: ignore[return-value]
+    return await _answer(len(items), lambda: answer_of(out, form))  # type: ignore[return-value]
 
 
 @router.post("/v1/samples", summary="Gateway batch across channels")
@@ -96,8 +109,7 @@ async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer |
         n = column_count(raw)
         check_items(n, ctx.settings.max_batch, "samples", "max_batch")
         skew = ctx.settings.max_clock_skew_s
-        col = read_gateway_columns(raw, skew) if n <= INLINE_MAX_BODY_ITEMS else await run_in_threadpool(
-            read_gateway_columns, raw, skew)
+        col = await _off_loop_if_large(n, read_gateway_columns, raw, skew)
         items, source, reference, form = col.batch, col.source, col.reference, col.answer
         cids, n = list(col.batch.parts), col.batch.n
     else:
@@ -112,11 +124,7 @@ async def post_gateway(raw: RawGatewayIn, ctx: Ctx, who: Who) -> GatewayAnswer |
     out = await run_store(ctx.work, lambda unit: samples.ingest_gateway(unit, items, source, who.key_id, reference),
                           write=True, items=n, started=started)
     ctx.metrics.observe_samples(out["accepted"], len(out["rejected"]), out["duplicates"], out.pop("alarms"))
-    if n <= INLINE_MAX_BODY_ITEMS:
-        return gateway_answer_of(out, form)
-    # a large answer is built and rendered in a worker thread, as post_samples' is
-    rendered = await run_in_threadpool(lambda: gateway_answer_of(out, form).model_dump_json())
-    return Response(rendered, media_type="application/json")  # type: ignore[return-value]
+    return await _answer(n, lambda: gateway_answer_of(out, form))  # type: ignore[return-value]
 
 
 CSV_FIELDS = ["seq", "t", "received_at", "source", "source_seq", "x", "y", "residual", "drift_statistic",
